@@ -1,0 +1,44 @@
+"""varstar: calibrated variable-star light curves from instrumental magnitudes.
+
+The public API is small; see the README for the command line::
+
+    import varstar
+    arch = varstar.open_archive("demo/target.h5")
+    lc = arch.lightcurve(band="V")        # a pandas DataFrame
+
+Names are imported lazily so that ``varstar --help`` starts quickly.
+"""
+
+from __future__ import annotations
+
+import importlib
+from typing import Any
+
+__version__ = "0.1.0"
+
+_API = {
+    "Archive": "varstar.archive",
+    "create_archive": "varstar.archive",
+    "open_archive": "varstar.archive",
+    "VarstarError": "varstar.errors",
+    "InputError": "varstar.errors",
+    "ArchiveError": "varstar.errors",
+    "ReductionError": "varstar.errors",
+    "read_measurements": "varstar.measurements",
+    "ingest": "varstar.night",
+    "reduce_night": "varstar.night",
+    "Target": "varstar.target",
+    "read_target": "varstar.target",
+}
+
+__all__ = sorted(_API) + ["__version__"]
+
+
+def __getattr__(name: str) -> Any:
+    if name in _API:
+        return getattr(importlib.import_module(_API[name]), name)
+    raise AttributeError(f"module 'varstar' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return __all__

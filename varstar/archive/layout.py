@@ -1,0 +1,85 @@
+"""The archive's layout: schema version, tables and their column types.
+
+Every table is an HDF5 group holding one 1-D dataset per column, all of the same
+length (a column store: cheap appends, and a reader takes only the columns it
+needs).  Text columns are variable-length UTF-8; stars and bands are stored as
+small integer codes into ``/stars/id`` and ``/bands/name``.  The layout is
+documented for people in ``docs/archive-format.md``; keep the two in step.
+"""
+
+from __future__ import annotations
+
+FORMAT_NAME = "varstar-archive"
+SCHEMA_VERSION = 1
+
+STR = "str"  # marker for variable-length UTF-8 text
+
+#: Quality bits of a light-curve point (``/points/quality``); 0 means good.
+QUALITY_EXPOSURE_FLAGGED = 1
+QUALITY_UPSTREAM_FLAG = 2
+QUALITY_NO_ZERO_POINT = 4
+
+TABLES: dict[str, dict[str, str]] = {
+    "bands": {"name": STR},
+    "stars": {"id": STR, "role": STR},
+    "nights": {
+        "night": "i4",
+        "label": STR,
+        "ingested_utc": STR,
+        "software": STR,
+        "n_exposures": "i4",
+        "n_flagged": "i4",
+        "n_points": "i8",
+        "bjd_start": "f8",
+        "bjd_end": "f8",
+        "report": STR,
+    },
+    "sources": {"night": "i4", "name": STR, "sha256": STR, "n_rows": "i8"},
+    "exposures": {
+        "night": "i4",
+        "frame": STR,
+        "band": "u1",
+        "jd_utc": "f8",
+        "bjd_tdb": "f8",
+        "hjd_utc": "f8",
+        "airmass": "f8",
+        "airmass_given": "f8",
+        "exptime_s": "f8",
+        "zero_point": "f8",
+        "zero_point_err": "f8",
+        "calibration_err": "f8",
+        "n_comparisons": "i2",
+        "flags": STR,
+    },
+    "raw": {
+        "night": "i4",
+        "exposure": "i8",
+        "star": "u2",
+        "mag": "f8",
+        "mag_err": "f8",
+        "flag": "i4",
+        "source": "i4",
+        "line": "i8",
+    },
+    "points": {
+        "night": "i4",
+        "exposure": "i8",
+        "star": "u2",
+        "band": "u1",
+        "bjd_tdb": "f8",
+        "mag": "f8",
+        "mag_err": "f8",
+        "cal_err": "f8",
+        "quality": "u1",
+    },
+    "comparisons": {
+        "night": "i4",
+        "band": "u1",
+        "star": "u2",
+        "status": STR,
+        "reason": STR,
+        "offset": "f8",
+        "excess": "f8",
+        "chi2_dof": "f8",
+    },
+}

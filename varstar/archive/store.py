@@ -1,0 +1,289 @@
+"""Reading and creating per-target archives."""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+from pathlib import Path
+from typing import Any
+
+import h5py
+import numpy as np
+import pandas as pd
+
+from .. import __version__
+from ..errors import ArchiveError
+from ..target import Target, parse_target
+from . import tables
+from .layout import FORMAT_NAME, QUALITY_EXPOSURE_FLAGGED, QUALITY_NO_ZERO_POINT, QUALITY_UPSTREAM_FLAG, SCHEMA_VERSION
+
+
+def utc_now() -> str:
+    return _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def create_archive(path: str | Path, target: Target) -> "Archive":
+    """Create a new, empty archive for ``target`` at ``path`` (never overwrites)."""
+    from .transaction import create_new
+
+    def build(f: h5py.File) -> None:
+        f.attrs["format"] = FORMAT_NAME
+        f.attrs["schema_version"] = SCHEMA_VERSION
+        f.attrs["created_utc"] = utc_now()
+        f.attrs["created_by"] = f"varstar {__version__}"
+        g = f.create_group("target")
+        g.attrs["toml"] = target.source_text
+        g.attrs["name"] = target.name
+        g.attrs["ra_deg"] = target.ra_deg
+        g.attrs["dec_deg"] = target.dec_deg
+        tables.create_tables(f)
+        tables.append(f, "stars", {"id": [s.id for s in target.stars], "role": [s.role for s in target.stars]})
+
+    create_new(Path(path), build)
+    return Archive(path)
+
+
+def open_archive(path: str | Path) -> "Archive":
+    """Open an existing archive for reading (changes go through :mod:`varstar.night`)."""
+    arch = Archive(path)
+    arch.check_format()
+    return arch
+
+
+class Archive:
+    """A per-target archive on disk.
+
+    Every method opens the file, reads what it needs and closes it again, so an
+    :class:`Archive` never holds the file open between calls and always sees the
+    last committed state.
+    """
+
+    def __init__(self, path: str | Path) -> None:
+        self.path = Path(path)
+
+    # -- low level -----------------------------------------------------------
+    def _open(self) -> h5py.File:
+        if not self.path.exists():
+            raise ArchiveError(f"{self.path}: no such archive (create it with 'varstar init')")
+        try:
+            return h5py.File(self.path, "r", locking=False)
+        except OSError:
+            raise ArchiveError(f"{self.path}: not a readable HDF5 archive") from None
+
+    def check_format(self) -> None:
+        with self._open() as f:
+            check_root(f, self.path)
+
+    # -- contents --------------------------------------------------------------
+    @property
+    def target(self) -> Target:
+        with self._open() as f:
+            return parse_target(str(f["target"].attrs["toml"]), source=f"{self.path}:/target")
+
+    def nights(self) -> pd.DataFrame:
+        """One row per ingested night (label, counts, time span, ingest date)."""
+        with self._open() as f:
+            d = tables.read(f, "nights")
+        df = pd.DataFrame({k: v for k, v in d.items() if k != "report"})
+        return df
+
+    def night_report(self, label: str) -> dict[str, Any]:
+        """The reduction report stored when the night was ingested."""
+        with self._open() as f:
+            d = tables.read(f, "nights", ["label", "report"])
+        for lab, rep in zip(d["label"], d["report"]):
+            if lab == label:
+                return json.loads(rep)
+        raise ArchiveError(f"{self.path}: no night '{label}' (nights: {', '.join(d['label']) or 'none'})")
+
+    def exposures(self) -> pd.DataFrame:
+        """Every exposure with its times, airmass, zero point and flags."""
+        with self._open() as f:
+            d = tables.read(f, "exposures")
+            bands = tables.read(f, "bands", ["name"])["name"]
+            labels = tables.read(f, "nights", ["night", "label"])
+        df = pd.DataFrame(d)
+        df["band"] = bands[df["band"].to_numpy()] if len(df) else pd.Series(dtype=object)
+        df.insert(1, "night_label", _labels(labels, df["night"].to_numpy()))
+        return df
+
+    def comparisons(self) -> pd.DataFrame:
+        """Status of every comparison star in every night and band."""
+        with self._open() as f:
+            d = tables.read(f, "comparisons")
+            bands = tables.read(f, "bands", ["name"])["name"]
+            stars = tables.read(f, "stars", ["id"])["id"]
+            labels = tables.read(f, "nights", ["night", "label"])
+        df = pd.DataFrame(d)
+        if len(df):
+            df["band"] = bands[df["band"].to_numpy()]
+            df["star"] = stars[df["star"].to_numpy()]
+        df.insert(1, "night_label", _labels(labels, df["night"].to_numpy()))
+        return df
+
+    def lightcurve(
+        self,
+        band: str | None = None,
+        star: str | None = None,
+        *,
+        include_flagged: bool = False,
+    ) -> pd.DataFrame:
+        """The calibrated light curve as a DataFrame, sorted by time.
+
+        Parameters
+        ----------
+        band
+            Only this band (default: every band).
+        star
+            Star id (default: the target).  Check stars are stored too.
+        include_flagged
+            Also return points of flagged exposures and upstream-flagged
+            measurements (column ``quality`` says why: 0 = good).
+
+        Returns
+        -------
+        pandas.DataFrame
+            Columns ``bjd_tdb, hjd_utc, jd_utc, band, star, mag, mag_err,
+            cal_err, airmass, night, frame, quality, flags``.  ``mag_err`` is
+            the point's own 1-sigma (measurement and exposure zero point);
+            ``cal_err`` is the night's calibration uncertainty shared by all
+            its points in that band.
+        """
+        with self._open() as f:
+            stars = tables.read(f, "stars", ["id"])["id"]
+            bands = tables.read(f, "bands", ["name"])["name"]
+            if star is None:
+                roles = tables.read(f, "stars", ["role"])["role"]
+                star = str(stars[list(roles).index("target")])
+            if star not in stars:
+                raise ArchiveError(f"{self.path}: no star '{star}' (stars: {', '.join(stars)})")
+            p = tables.read(f, "points")
+            keep = p["star"] == list(stars).index(star)
+            if band is not None:
+                if band not in bands:
+                    raise ArchiveError(f"{self.path}: no observations in band '{band}' (bands: {', '.join(bands) or 'none'})")
+                keep &= p["band"] == list(bands).index(band)
+            if not include_flagged:
+                keep &= p["quality"] == 0
+            p = {k: v[keep] for k, v in p.items()}
+            exp_idx = p["exposure"]
+            e = tables.read(f, "exposures", ["jd_utc", "hjd_utc", "airmass", "frame", "flags"])
+            labels = tables.read(f, "nights", ["night", "label"])
+        df = pd.DataFrame(
+            {
+                "bjd_tdb": p["bjd_tdb"],
+                "hjd_utc": e["hjd_utc"][exp_idx],
+                "jd_utc": e["jd_utc"][exp_idx],
+                "band": bands[p["band"]] if len(exp_idx) else np.array([], dtype=object),
+                "star": star,
+                "mag": p["mag"],
+                "mag_err": p["mag_err"],
+                "cal_err": p["cal_err"],
+                "airmass": e["airmass"][exp_idx],
+                "night": _labels(labels, p["night"]),
+                "frame": e["frame"][exp_idx],
+                "quality": p["quality"],
+                "flags": _flag_texts(p["quality"], e["flags"], exp_idx),
+            }
+        )
+        return df.sort_values(["bjd_tdb", "band"], kind="stable").reset_index(drop=True)
+
+    def raw(self) -> pd.DataFrame:
+        """The measurements exactly as ingested, one row per star per exposure."""
+        with self._open() as f:
+            r = tables.read(f, "raw")
+            e = tables.read(f, "exposures", ["frame", "band", "jd_utc", "airmass_given", "exptime_s"])
+            stars = tables.read(f, "stars", ["id"])["id"]
+            bands = tables.read(f, "bands", ["name"])["name"]
+            src = tables.read(f, "sources", ["name"])["name"]
+        x = r["exposure"]
+        return pd.DataFrame(
+            {
+                "source": src[r["source"]] if len(x) else np.array([], dtype=object),
+                "line": r["line"],
+                "frame": e["frame"][x],
+                "jd": e["jd_utc"][x],
+                "band": bands[e["band"][x]] if len(x) else np.array([], dtype=object),
+                "star": stars[r["star"]] if len(x) else np.array([], dtype=object),
+                "mag": r["mag"],
+                "mag_err": r["mag_err"],
+                "airmass": e["airmass_given"][x],
+                "exptime_s": e["exptime_s"][x],
+                "flag": r["flag"],
+                "night": r["night"],
+            }
+        )
+
+    def summary(self) -> dict[str, Any]:
+        """A JSON-ready overview: target, nights, points per band, magnitude ranges."""
+        tgt = self.target
+        nights = self.nights()
+        lc = self.lightcurve(include_flagged=True)
+        good = lc[lc["quality"] == 0]
+        bands = {}
+        for b, g in good.groupby("band", sort=True):
+            bands[str(b)] = {
+                "n_points": int(len(g)),
+                "n_flagged": int(((lc["band"] == b) & (lc["quality"] != 0)).sum()),
+                "mag_min": float(g["mag"].min()),
+                "mag_max": float(g["mag"].max()),
+                "median_mag_err": float(g["mag_err"].median()),
+                "bjd_first": float(g["bjd_tdb"].min()),
+                "bjd_last": float(g["bjd_tdb"].max()),
+            }
+        with self._open() as f:
+            schema = int(f.attrs["schema_version"])
+            created = str(f.attrs.get("created_utc", ""))
+        return {
+            "archive": str(self.path),
+            "schema_version": schema,
+            "created_utc": created,
+            "target": {"name": tgt.name, "ra_deg": tgt.ra_deg, "dec_deg": tgt.dec_deg, "star": tgt.target_star.id},
+            "n_nights": int(len(nights)),
+            "nights": [
+                {
+                    "label": str(r.label),
+                    "n_exposures": int(r.n_exposures),
+                    "n_flagged": int(r.n_flagged),
+                    "ingested_utc": str(r.ingested_utc),
+                }
+                for r in nights.itertuples()
+            ],
+            "bands": bands,
+        }
+
+
+def check_root(f: h5py.File, path: Path) -> None:
+    """Refuse files that are not varstar archives of a schema this version reads."""
+    if f.attrs.get("format") != FORMAT_NAME:
+        raise ArchiveError(f"{path}: not a varstar archive (no '{FORMAT_NAME}' format mark)")
+    version = int(f.attrs.get("schema_version", -1))
+    if version > SCHEMA_VERSION:
+        raise ArchiveError(
+            f"{path}: archive schema {version} is newer than this varstar understands ({SCHEMA_VERSION}); upgrade varstar"
+        )
+    if version < 1:
+        raise ArchiveError(f"{path}: archive has no valid schema version")
+
+
+def _labels(nights: dict[str, np.ndarray], ids: np.ndarray) -> np.ndarray:
+    lookup = dict(zip(nights["night"].tolist(), nights["label"].tolist()))
+    return np.array([lookup.get(int(i), "?") for i in np.unique(ids)], dtype=object)[np.searchsorted(np.unique(ids), ids)] if len(ids) else np.array([], dtype=object)
+
+
+def _flag_texts(quality: np.ndarray, exposure_flags: np.ndarray, exp_idx: np.ndarray) -> np.ndarray:
+    out = np.full(len(quality), "", dtype=object)
+    for i in np.flatnonzero(quality):  # only the (few) flagged points
+        out[i] = _quality_text(int(quality[i]), str(exposure_flags[exp_idx[i]]))
+    return out
+
+
+def _quality_text(q: int, exposure_flags: str) -> str:
+    parts = []
+    if q & QUALITY_EXPOSURE_FLAGGED:
+        parts.append(exposure_flags)
+    if q & QUALITY_UPSTREAM_FLAG:
+        parts.append("upstream_flag")
+    if q & QUALITY_NO_ZERO_POINT:
+        parts.append("no_zero_point")
+    return ";".join(p for p in parts if p)

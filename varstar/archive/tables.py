@@ -1,0 +1,83 @@
+"""Column-store tables inside an HDF5 group (see :mod:`.layout`)."""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Mapping
+
+import h5py
+import numpy as np
+
+from .layout import STR, TABLES
+
+_CHUNK_ROWS = 65_536
+
+
+def _dtype(code: str):
+    return h5py.string_dtype("utf-8") if code == STR else np.dtype(code)
+
+
+def create_tables(root: h5py.Group) -> None:
+    """Create every table of the layout, empty."""
+    for name, cols in TABLES.items():
+        g = root.create_group(name)
+        for col, code in cols.items():
+            kw = {}
+            if code != STR:
+                kw = {"compression": "gzip", "compression_opts": 4, "shuffle": True}
+            g.create_dataset(col, shape=(0,), maxshape=(None,), dtype=_dtype(code), chunks=(_CHUNK_ROWS if code != STR else 1024,), **kw)
+
+
+def n_rows(root: h5py.Group, table: str) -> int:
+    first = next(iter(TABLES[table]))
+    return int(root[table][first].shape[0])
+
+
+def append(root: h5py.Group, table: str, columns: Mapping[str, np.ndarray | list]) -> int:
+    """Append rows to ``table``; return the index of the first new row.
+
+    ``columns`` must give every column of the table, all of one length.
+    """
+    spec = TABLES[table]
+    if set(columns) != set(spec):
+        missing = set(spec) - set(columns)
+        extra = set(columns) - set(spec)
+        raise ValueError(f"table {table}: missing columns {sorted(missing)}, unexpected {sorted(extra)}")
+    lengths = {len(v) for v in columns.values()}
+    if len(lengths) != 1:
+        raise ValueError(f"table {table}: columns of different lengths {lengths}")
+    n_new = lengths.pop()
+    start = n_rows(root, table)
+    if n_new == 0:
+        return start
+    for col, code in spec.items():
+        ds = root[table][col]
+        vals = columns[col]
+        if code == STR:
+            arr = np.array([str(v) for v in vals], dtype=object)
+        else:
+            arr = np.asarray(vals).astype(code, copy=False)
+        ds.resize((start + n_new,))
+        ds[start:] = arr
+    return start
+
+
+def read(root: h5py.Group, table: str, columns: Iterable[str] | None = None) -> dict[str, np.ndarray]:
+    """Read whole columns of ``table`` (text columns come back as ``str`` objects)."""
+    spec = TABLES[table]
+    out: dict[str, np.ndarray] = {}
+    for col in columns or spec:
+        ds = root[table][col]
+        out[col] = ds.asstr()[()] if spec[col] == STR else ds[()]
+    return out
+
+
+def code_of(root: h5py.Group, table: str, column: str, value: str, *, add: bool) -> int:
+    """Index of ``value`` in a small lookup column, optionally appending it."""
+    values = list(root[table][column].asstr()[()])
+    if value in values:
+        return values.index(value)
+    if not add:
+        raise KeyError(value)
+    row = {c: [""] for c in TABLES[table]}
+    row[column] = [value]
+    return append(root, table, row)

@@ -1,0 +1,241 @@
+"""The command line: parses, calls the API, prints.  No computation of its own.
+
+Expected mistakes (:class:`varstar.errors.VarstarError`) become one
+``error: ...`` line on stderr and a non-zero exit code; with ``--json`` stdout
+carries exactly one JSON object and nothing else.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any
+
+
+def _parse_columns(items: Sequence[str] | None) -> dict[str, str] | None:
+    from .errors import InputError
+
+    if not items:
+        return None
+    out = {}
+    for item in items:
+        ours, sep, theirs = item.partition("=")
+        if not sep or not ours.strip() or not theirs.strip():
+            raise InputError(f"--column {item!r}: expected NAME=FILE_COLUMN, e.g. --column jd=JD_UTC")
+        out[ours.strip()] = theirs.strip()
+    return out
+
+
+def _emit(args: argparse.Namespace, payload: dict[str, Any], text: str) -> None:
+    from .export import to_json
+
+    if getattr(args, "json", False):
+        sys.stdout.write(to_json(payload) + "\n")
+    else:
+        sys.stdout.write(text.rstrip("\n") + "\n")
+
+
+# -- text rendering --------------------------------------------------------------
+def _fmt(v: float | None, spec: str = ".3f") -> str:
+    return "n/a" if v is None or v != v else format(v, spec)
+
+
+def format_night_report(rep: dict[str, Any]) -> str:
+    """A short, readable night summary for the terminal."""
+    lines = [
+        f"Night {rep['night']}  ({', '.join(Path(s).name for s in rep['sources'])}): "
+        f"{rep['n_exposures']} exposures, {rep['n_flagged']} flagged"
+    ]
+    for band, b in rep["bands"].items():
+        reasons = ", ".join(f"{k} {v}" for k, v in sorted(b["flag_reasons"].items()))
+        lines.append(
+            f"  {band}: {b['n_exposures']} exposures, {b['n_used']} used, {b['n_flagged']} flagged"
+            + (f" ({reasons})" if reasons else "")
+        )
+        frames = b["flagged_frames"]
+        if frames:
+            shown = ", ".join(f"{fr['frame']} [{fr['reasons']}]" for fr in frames[:6])
+            more = f" and {len(frames) - 6} more" if len(frames) > 6 else ""
+            lines.append(f"      flagged: {shown}{more}")
+        lines.append(f"      comparison stars kept: {' '.join(b['comparisons_kept']) or 'none'}")
+        for rj in b["comparisons_rejected"]:
+            lines.append(f"      rejected {rj['star']} ({rj['status']}): {rj['reason']}")
+        for sid, c in b["check_stars"].items():
+            off = c.get("offset_from_catalog")
+            cat = f", {_fmt(off, '+.3f')} from catalogue" if off is not None else ""
+            lines.append(
+                f"      check {sid}: mean {_fmt(c['mean'])}{cat}; rms {_fmt(c['rms'])} vs {_fmt(c['predicted_rms'])} predicted ({c['n']} points)"
+            )
+        t = b["target"]
+        if t["n"]:
+            lines.append(
+                f"      target: {_fmt(t['mag_min'])} .. {_fmt(t['mag_max'])} mag, median error {_fmt(t['median_mag_err'])} ({t['n']} points); "
+                f"calibration ±{_fmt(b['calibration_err'])}"
+            )
+        for w in b["ensemble"].get("warnings", []):
+            lines.append(f"      note: {w}")
+    for w in rep.get("warnings", []):
+        lines.append(f"  warning: {w}")
+    return "\n".join(lines)
+
+
+def format_summary(s: dict[str, Any]) -> str:
+    t = s["target"]
+    lines = [
+        f"{t['name']}  (RA {t['ra_deg']:.5f}°, Dec {t['dec_deg']:+.5f}°; star {t['star']})",
+        f"archive {s['archive']}, schema {s['schema_version']}, {s['n_nights']} night(s)",
+    ]
+    for n in s["nights"]:
+        lines.append(f"  {n['label']}: {n['n_exposures']} exposures, {n['n_flagged']} flagged (ingested {n['ingested_utc']})")
+    for band, b in s["bands"].items():
+        lines.append(
+            f"  {band}: {b['n_points']} points ({b['n_flagged']} flagged left out), {b['mag_min']:.3f} .. {b['mag_max']:.3f} mag, "
+            f"median error {b['median_mag_err']:.3f}, BJD_TDB {b['bjd_first']:.4f} .. {b['bjd_last']:.4f}"
+        )
+    return "\n".join(lines)
+
+
+# -- commands --------------------------------------------------------------------
+def cmd_init(args: argparse.Namespace) -> int:
+    from .archive import create_archive
+    from .target import read_target
+
+    target = read_target(args.target)
+    arch = create_archive(args.archive, target)
+    payload = {"archive": str(arch.path), "target": target.to_dict()}
+    _emit(args, payload, f"created {arch.path} for {target.name} ({len(target.stars)} stars)")
+    return 0
+
+
+def cmd_ingest(args: argparse.Namespace) -> int:
+    from .night import ingest
+
+    res = ingest(args.archive, args.files, columns=_parse_columns(args.column), timeout_s=args.wait)
+    text = [format_night_report(r) for r in res.nights]
+    text += [f"skipped {s['file']}: {s['why']}" for s in res.skipped]
+    if not res.nights:
+        text.append("nothing new: the archive is unchanged")
+    _emit(args, res.to_dict(), "\n".join(text))
+    return 0
+
+
+def cmd_summary(args: argparse.Namespace) -> int:
+    from .archive import open_archive
+
+    s = open_archive(args.archive).summary()
+    _emit(args, s, format_summary(s))
+    return 0
+
+
+def cmd_report(args: argparse.Namespace) -> int:
+    from .archive import open_archive
+
+    rep = open_archive(args.archive).night_report(args.night)
+    _emit(args, rep, format_night_report(rep))
+    return 0
+
+
+def cmd_plot(args: argparse.Namespace) -> int:
+    from .archive import open_archive
+    from .plots import lightcurve_figure, save
+
+    arch = open_archive(args.archive)
+    lc = arch.lightcurve(band=args.band, star=args.star, include_flagged=args.show_flagged)
+    fig = lightcurve_figure(lc, title=f"{arch.target.name} — {lc['star'].iloc[0] if len(lc) else ''}", show_flagged=args.show_flagged)
+    save(fig, args.output)
+    _emit(args, {"plot": str(args.output), "n_points": int(len(lc))}, f"wrote {args.output} ({len(lc)} points)")
+    return 0
+
+
+def cmd_export(args: argparse.Namespace) -> int:
+    from .archive import open_archive
+    from .export import lightcurve_table, write_csv
+
+    arch = open_archive(args.archive)
+    lc = arch.lightcurve(band=args.band, star=args.star, include_flagged=args.include_flagged)
+    write_csv(lightcurve_table(lc), args.output)
+    _emit(args, {"csv": str(args.output), "n_rows": int(len(lc))}, f"wrote {args.output} ({len(lc)} observations)")
+    return 0
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    from .demo import run_demo
+
+    res = run_demo(args.out, echo=None if args.json else print)
+    _emit(args, res, f"\nDemo results are in {res['folder']}: {', '.join(Path(p).name for p in res['files'])}")
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    from . import __version__
+
+    p = argparse.ArgumentParser(
+        prog="varstar",
+        description="Calibrated variable-star light curves: ensemble differential photometry, BJD_TDB, one HDF5 archive per target.",
+    )
+    p.add_argument("--version", action="version", version=f"varstar {__version__}")
+    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    def add(name: str, func, help_: str) -> argparse.ArgumentParser:
+        sp = sub.add_parser(name, help=help_, description=help_)
+        sp.set_defaults(func=func)
+        sp.add_argument("--json", action="store_true", help="print one JSON object on stdout instead of text")
+        return sp
+
+    sp = add("init", cmd_init, "create a new archive for a target described in a TOML file")
+    sp.add_argument("archive", type=Path, help="archive file to create (e.g. target.h5)")
+    sp.add_argument("target", type=Path, help="target description (TOML)")
+
+    sp = add("ingest", cmd_ingest, "reduce a night's measurement tables and add them to the archive")
+    sp.add_argument("archive", type=Path)
+    sp.add_argument("files", type=Path, nargs="+", help="measurement tables (CSV, long or wide form)")
+    sp.add_argument("--column", action="append", metavar="NAME=FILE_COLUMN", help="read varstar column NAME from the file's FILE_COLUMN (repeatable)")
+    sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
+
+    sp = add("summary", cmd_summary, "overview of an archive: nights, bands, magnitude ranges")
+    sp.add_argument("archive", type=Path)
+
+    sp = add("report", cmd_report, "show the reduction report stored for one night")
+    sp.add_argument("archive", type=Path)
+    sp.add_argument("night", help="night label (evening date, YYYY-MM-DD)")
+
+    sp = add("plot", cmd_plot, "plot the light curve (one panel per band)")
+    sp.add_argument("archive", type=Path)
+    sp.add_argument("-o", "--output", type=Path, default=Path("lightcurve.png"), help="image file (png, pdf, svg)")
+    sp.add_argument("--band", help="only this band")
+    sp.add_argument("--star", help="star id (default: the target)")
+    sp.add_argument("--show-flagged", action="store_true", help="also draw flagged points, hollow and grey")
+
+    sp = add("export", cmd_export, "write the light curve as neutral CSV, one observation a row")
+    sp.add_argument("archive", type=Path)
+    sp.add_argument("-o", "--output", type=Path, default=Path("observations.csv"))
+    sp.add_argument("--band", help="only this band")
+    sp.add_argument("--star", help="star id (default: the target)")
+    sp.add_argument("--include-flagged", action="store_true", help="also write flagged points (see the quality and flags columns)")
+
+    sp = add("demo", cmd_demo, "run the whole pipeline on the shipped invented demo field")
+    sp.add_argument("--out", type=Path, default=None, help="folder for the results (default: a new folder here)")
+    return p
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    from .errors import VarstarError
+
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return int(args.func(args) or 0)
+    except VarstarError as exc:
+        sys.stderr.write(f"error: {exc}\n")
+        return exc.exit_code
+    except KeyboardInterrupt:
+        sys.stderr.write("interrupted; the archive is unchanged\n")
+        return 130
+    except BrokenPipeError:  # e.g. piped into head
+        return 0
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

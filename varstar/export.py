@@ -1,0 +1,97 @@
+"""Neutral CSV and JSON output.
+
+CSV: one observation a row, plain column names (``bjd_tdb, mag, mag_err, ...``),
+dot decimal, no index column.  Text cells that a spreadsheet would read as a
+formula (starting with ``=``, ``+``, ``-``, ``@``, tab or carriage return) are
+prefixed with a single quote; numbers are written as numbers.
+
+JSON: strict (NaN and infinity become ``null``), numpy types turned into Python
+ones, so any JSON parser reads it.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+#: Columns of the exported light curve, in order.
+LIGHTCURVE_COLUMNS = (
+    "bjd_tdb", "hjd_utc", "jd_utc", "band", "star", "mag", "mag_err", "cal_err", "airmass", "night", "frame", "quality", "flags",
+)
+
+
+def plain(obj: Any) -> Any:
+    """Recursively turn numpy scalars/arrays and non-finite floats into JSON-safe Python values."""
+    if isinstance(obj, dict):
+        return {str(k): plain(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [plain(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return [plain(v) for v in obj.tolist()]
+    if isinstance(obj, (np.bool_, bool)):
+        return bool(obj)
+    if isinstance(obj, (np.integer,)):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        f = float(obj)
+        return f if math.isfinite(f) else None
+    return obj
+
+
+def to_json(obj: Any, *, indent: int | None = None) -> str:
+    """Strict JSON text of ``obj`` (see :func:`plain`)."""
+    return json.dumps(plain(obj), indent=indent, allow_nan=False, ensure_ascii=False)
+
+
+def _defuse(value: Any) -> Any:
+    if isinstance(value, str) and value.startswith(_FORMULA_START):
+        return "'" + value
+    return value
+
+
+def safe_text_columns(df: pd.DataFrame) -> pd.DataFrame:
+    """Copy of ``df`` whose text cells cannot start a spreadsheet formula."""
+    out = df.copy()
+    for col in out.columns:
+        if out[col].dtype == object or pd.api.types.is_string_dtype(out[col]):
+            out[col] = out[col].map(_defuse)
+    return out
+
+
+def write_csv(df: pd.DataFrame, path: str | Path) -> Path:
+    """Write ``df`` as neutral CSV, atomically (a partial file never appears at ``path``)."""
+    text = safe_text_columns(df).to_csv(index=False, float_format="%.10g", lineterminator="\n")
+    return write_atomic(path, text.encode("utf-8"))
+
+
+def write_atomic(path: str | Path, data: bytes) -> Path:
+    """Write ``data`` to ``path`` via a temporary file and a rename; clear error if impossible."""
+    from .errors import OutputError
+
+    path = Path(path)
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+    try:
+        tmp.write_bytes(data)
+        os.replace(tmp, path)
+    except OSError as exc:
+        raise OutputError(f"{path}: cannot write ({exc.strerror})") from None
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+    return path
+
+
+def lightcurve_table(lc: pd.DataFrame) -> pd.DataFrame:
+    """The export form of a light curve: fixed column order, times to 1e-8 d."""
+    out = lc.loc[:, list(LIGHTCURVE_COLUMNS)].copy()
+    for c in ("bjd_tdb", "hjd_utc", "jd_utc"):
+        out[c] = out[c].map(lambda v: f"{v:.8f}" if np.isfinite(v) else "")
+    return out

@@ -1,0 +1,490 @@
+"""The one orchestration of a night: read -> times -> ensemble -> archive.
+
+:func:`reduce_night` is computation only (a tidy measurement table in, tables
+and a report out); :func:`ingest` adds the file reading, duplicate detection
+and the all-or-nothing write into the archive.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .ensemble import EnsembleSettings, solve_ensemble
+from .errors import InputError
+from .measurements import parse_measurements, read_bytes
+from .target import Target
+from .timescale import exposure_times, night_label
+
+# Difference between a table's own airmass and ours that deserves a warning
+# (wrong coordinates, site or time zone upstream): common practice.
+_AIRMASS_WARN = 0.05
+
+
+@dataclass(frozen=True)
+class NightReduction:
+    """Everything the reduction of one night produced.
+
+    ``exposures`` has one row per exposure (sorted by time), ``raw`` the input
+    measurements with an ``exposure`` index into it, ``points`` the calibrated
+    magnitudes of the target and check stars, ``comparisons`` the status of each
+    comparison star per band, ``report`` the JSON-ready night summary.
+    """
+
+    label: str
+    exposures: pd.DataFrame
+    raw: pd.DataFrame
+    points: pd.DataFrame
+    comparisons: pd.DataFrame
+    report: dict[str, Any]
+
+    def to_dict(self) -> dict[str, Any]:
+        return self.report
+
+
+@dataclass(frozen=True)
+class IngestResult:
+    """What an ingest did: the nights added and the files skipped as already ingested."""
+
+    archive: str
+    nights: tuple[dict[str, Any], ...] = ()
+    skipped: tuple[dict[str, str], ...] = field(default_factory=tuple)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"archive": self.archive, "nights": list(self.nights), "skipped": list(self.skipped)}
+
+
+def settings_from_target(target: Target) -> EnsembleSettings:
+    """Ensemble settings, with overrides from an optional ``[reduction]`` table."""
+    table = target.extra.get("reduction", {})
+    if not isinstance(table, dict):
+        raise InputError(f"{target.source}: [reduction] must be a table")
+    known = {f.name: f for f in dataclasses.fields(EnsembleSettings)}
+    kw: dict[str, Any] = {}
+    for key, val in table.items():
+        if key not in known:
+            raise InputError(f"{target.source}: [reduction].{key} is not a setting (known: {', '.join(sorted(known))})")
+        default = getattr(EnsembleSettings(), key)
+        if isinstance(val, bool) or not isinstance(val, (int, float)) or (isinstance(default, int) and not isinstance(val, int)):
+            raise InputError(f"{target.source}: [reduction].{key} must be a {type(default).__name__}, got {val!r}")
+        if val <= 0:
+            raise InputError(f"{target.source}: [reduction].{key} must be positive, got {val}")
+        kw[key] = val
+    return EnsembleSettings(**kw)
+
+
+def split_nights(target: Target, table: pd.DataFrame) -> dict[str, pd.DataFrame]:
+    """Split a measurement table into nights (evening date at the site)."""
+    labels = night_label(table["jd"].to_numpy(), target.site.longitude_deg)
+    return {str(lab): table[labels == lab].reset_index(drop=True) for lab in np.unique(labels)}
+
+
+def _check_bands(target: Target, table: pd.DataFrame) -> None:
+    have = target.catalog_bands()
+    for band in pd.unique(table["band"]):
+        if band not in have:
+            rows = table[table["band"] == band]
+            src, line = rows["source"].iloc[0], int(rows["line"].iloc[0])
+            raise InputError(
+                f"{src}, line {line}: band '{band}' has no catalogue magnitude for any comparison star in "
+                f"{target.source}; add '{band} = ...' to the comparison stars there, or leave this band out"
+            )
+
+
+def reduce_night(
+    target: Target,
+    table: pd.DataFrame,
+    settings: EnsembleSettings | None = None,
+    label: str | None = None,
+) -> NightReduction:
+    """Reduce one night's tidy measurement table (see :mod:`varstar.measurements`).
+
+    Parameters
+    ----------
+    target
+        The target description (stars, roles, catalogue magnitudes, site).
+    table
+        Measurements of one night, as :func:`varstar.measurements.parse_measurements` returns.
+    settings
+        Ensemble settings; default from the target's ``[reduction]`` table.
+    label
+        Night label; default the evening date at the site.
+    """
+    if table.empty:
+        raise InputError("no measurements to reduce")
+    settings = settings or settings_from_target(target)
+    _check_bands(target, table)
+    if label is None:
+        label = str(night_label(table["jd"].to_numpy()[:1], target.site.longitude_deg)[0])
+    star_ids = list(target.star_ids)
+    roles = np.array([s.role for s in target.stars])
+
+    # Exposures: one per (frame, band), ordered by time.
+    key = table["frame"].astype(str) + "\x1f" + table["band"].astype(str)
+    codes, _ = pd.factorize(key)
+    _, first = np.unique(codes, return_index=True)
+    exp = table.iloc[first][["frame", "band", "jd", "airmass", "exptime_s"]].reset_index(drop=True)
+    order = np.argsort(exp["jd"].to_numpy(), kind="stable")
+    rank = np.empty_like(order)
+    rank[order] = np.arange(len(order))
+    exp = exp.iloc[order].reset_index(drop=True)
+    exposure_of_row = rank[codes]
+
+    site = target.site
+    times = exposure_times(exp["jd"].to_numpy(), target.ra_deg, target.dec_deg, site.latitude_deg, site.longitude_deg, site.elevation_m)
+    given = exp["airmass"].to_numpy(dtype=float)
+    airmass = np.where(np.isfinite(given), given, times.airmass)
+    warnings: list[str] = []
+    both = np.isfinite(given) & np.isfinite(times.airmass)
+    if both.any() and np.median(np.abs(given[both] - times.airmass[both])) > _AIRMASS_WARN:
+        warnings.append(
+            f"the table's airmass differs from the one computed for the site and target by "
+            f"{np.median(np.abs(given[both] - times.airmass[both])):.2f} (median): check coordinates, site and that jd is UTC"
+        )
+    below = ~np.isfinite(given) & ~np.isfinite(times.airmass)
+    if below.any():
+        warnings.append(f"the target is below the horizon at {int(below.sum())} exposure time(s): check coordinates, site and that jd is UTC")
+
+    n_exp = len(exp)
+    zp = np.full(n_exp, np.nan)
+    zp_err = np.full(n_exp, np.nan)
+    cal_err = np.full(n_exp, np.nan)
+    n_comp = np.zeros(n_exp, dtype=np.int64)
+    flags = np.full(n_exp, "", dtype=object)
+    mag_cal = np.full(len(table), np.nan)
+    err_cal = np.full(len(table), np.nan)
+    star_idx = pd.Index(star_ids).get_indexer(table["star"])
+    is_comp = roles == "comparison"
+    comp_rows = []
+    band_reports: dict[str, Any] = {}
+    exp_band = exp["band"].to_numpy()
+
+    for band in sorted(pd.unique(exp["band"])):
+        in_band = np.flatnonzero(exp_band == band)  # global exposure indices, time order
+        local = np.full(n_exp, -1)
+        local[in_band] = np.arange(in_band.size)
+        rows = np.flatnonzero(table["band"].to_numpy() == band)
+        cat = np.array([s.catalog.get(band, np.nan) for s in target.stars])
+        cat_err = np.array([s.catalog_err.get(band, 0.0) for s in target.stars])
+        sol = solve_ensemble(
+            local[exposure_of_row[rows]],
+            star_idx[rows],
+            table["mag"].to_numpy()[rows],
+            table["mag_err"].to_numpy()[rows],
+            n_exposures=in_band.size,
+            is_comparison=is_comp,
+            catalog_mag=cat,
+            catalog_err=cat_err,
+            time=exp["jd"].to_numpy()[in_band],
+            airmass=airmass[in_band],
+            good=(table["flag"].to_numpy()[rows] == 0) & np.isfinite(table["mag"].to_numpy()[rows]),
+            settings=settings,
+        )
+        zp[in_band] = sol.zero_point
+        zp_err[in_band] = sol.zero_point_err
+        cal_err[in_band] = sol.calibration_err
+        n_comp[in_band] = sol.n_comparisons
+        flags[in_band] = np.asarray(sol.exposure_flags, dtype=object)
+        mag_cal[rows] = sol.mag
+        err_cal[rows] = sol.mag_err
+        for i, sid in enumerate(star_ids):
+            if is_comp[i]:
+                comp_rows.append(
+                    {
+                        "band": band,
+                        "star": sid,
+                        "status": sol.star_status[i],
+                        "reason": sol.star_reason[i],
+                        "offset": float(sol.star_offset[i]),
+                        "excess": float(sol.star_excess[i]),
+                        "chi2_dof": float(sol.star_chi2_dof[i]),
+                    }
+                )
+        band_reports[band] = {"ensemble": sol.to_dict()}
+
+    exposures = pd.DataFrame(
+        {
+            "frame": exp["frame"].astype(str).to_numpy(dtype=object),
+            "band": exp_band,
+            "jd_utc": exp["jd"].to_numpy(),
+            "bjd_tdb": times.bjd_tdb,
+            "hjd_utc": times.hjd_utc,
+            "airmass": airmass,
+            "airmass_given": given,
+            "exptime_s": exp["exptime_s"].to_numpy(dtype=float),
+            "zero_point": zp,
+            "zero_point_err": zp_err,
+            "calibration_err": cal_err,
+            "n_comparisons": n_comp,
+            "flags": flags,
+        }
+    )
+    raw = table.copy()
+    raw["exposure"] = exposure_of_row
+
+    from .archive.layout import QUALITY_EXPOSURE_FLAGGED, QUALITY_NO_ZERO_POINT, QUALITY_UPSTREAM_FLAG
+
+    measured = ~is_comp[star_idx] & np.isfinite(table["mag"].to_numpy())
+    e_rows = exposure_of_row[measured]
+    quality = (
+        np.where(flags[e_rows] != "", QUALITY_EXPOSURE_FLAGGED, 0)
+        | np.where(table["flag"].to_numpy()[measured] != 0, QUALITY_UPSTREAM_FLAG, 0)
+        | np.where(np.isfinite(zp[e_rows]), 0, QUALITY_NO_ZERO_POINT)
+    ).astype(np.uint8)
+    points = pd.DataFrame(
+        {
+            "exposure": e_rows,
+            "star": table["star"].to_numpy(dtype=object)[measured],
+            "band": exp_band[e_rows],
+            "bjd_tdb": times.bjd_tdb[e_rows],
+            "mag": mag_cal[measured],
+            "mag_err": err_cal[measured],
+            "cal_err": cal_err[e_rows],
+            "quality": quality,
+        }
+    )
+    comparisons = pd.DataFrame(comp_rows, columns=["band", "star", "status", "reason", "offset", "excess", "chi2_dof"])
+    report = _night_report(target, label, table, exposures, points, comparisons, band_reports, warnings)
+    return NightReduction(label, exposures, raw, points, comparisons, report)
+
+
+def _stats(mag: np.ndarray, err: np.ndarray) -> dict[str, float]:
+    return {
+        "n": int(mag.size),
+        "mean": float(np.mean(mag)) if mag.size else float("nan"),
+        "rms": float(np.std(mag, ddof=1)) if mag.size > 1 else float("nan"),
+        "predicted_rms": float(np.sqrt(np.mean(err**2))) if mag.size else float("nan"),
+    }
+
+
+def _night_report(
+    target: Target,
+    label: str,
+    table: pd.DataFrame,
+    exposures: pd.DataFrame,
+    points: pd.DataFrame,
+    comparisons: pd.DataFrame,
+    band_reports: dict[str, Any],
+    warnings: list[str],
+) -> dict[str, Any]:
+    tid = target.target_star.id
+    bands: dict[str, Any] = {}
+    for band, info in band_reports.items():
+        ex = exposures[exposures["band"] == band]
+        flagged = ex[ex["flags"] != ""]
+        reasons: dict[str, int] = {}
+        for fl in flagged["flags"]:
+            for r in str(fl).split(";"):
+                reasons[r] = reasons.get(r, 0) + 1
+        comp = comparisons[comparisons["band"] == band]
+        good = points[(points["band"] == band) & (points["quality"] == 0)]
+        tgt = good[good["star"] == tid]
+        checks = {}
+        for s in target.stars_with_role("check"):
+            g = good[good["star"] == s.id]
+            st = _stats(g["mag"].to_numpy(), g["mag_err"].to_numpy())
+            st["catalog"] = s.catalog.get(band)
+            st["offset_from_catalog"] = (st["mean"] - s.catalog[band]) if band in s.catalog and g.size else None
+            checks[s.id] = st
+        bands[band] = {
+            "n_exposures": int(len(ex)),
+            "n_used": int(len(ex) - len(flagged)),
+            "n_flagged": int(len(flagged)),
+            "flag_reasons": reasons,
+            "flagged_frames": [{"frame": str(r.frame), "jd_utc": float(r.jd_utc), "reasons": str(r.flags)} for r in flagged.itertuples()],
+            "comparisons_kept": comp.loc[comp["status"] == "kept", "star"].tolist(),
+            "comparisons_rejected": [
+                {"star": str(r.star), "status": str(r.status), "reason": str(r.reason)} for r in comp.itertuples() if r.status not in ("kept", "not_comparison")
+            ],
+            "calibration_err": float(ex["calibration_err"].iloc[0]) if len(ex) else float("nan"),
+            "median_zero_point_err": float(np.nanmedian(ex["zero_point_err"])) if len(ex) else float("nan"),
+            "target": {
+                "n": int(len(tgt)),
+                "mag_min": float(tgt["mag"].min()) if len(tgt) else None,
+                "mag_max": float(tgt["mag"].max()) if len(tgt) else None,
+                "median_mag_err": float(tgt["mag_err"].median()) if len(tgt) else None,
+            },
+            "check_stars": checks,
+            "ensemble": info["ensemble"],
+        }
+    return {
+        "night": label,
+        "sources": sorted(pd.unique(table["source"]).tolist()),
+        "n_measurements": int(len(table)),
+        "n_exposures": int(len(exposures)),
+        "n_flagged": int((exposures["flags"] != "").sum()),
+        "bjd_start": float(exposures["bjd_tdb"].min()),
+        "bjd_end": float(exposures["bjd_tdb"].max()),
+        "bands": bands,
+        "warnings": warnings,
+    }
+
+
+def ingest(
+    archive_path: str | Path,
+    files: Sequence[str | Path],
+    *,
+    columns: Mapping[str, str] | None = None,
+    settings: EnsembleSettings | None = None,
+    timeout_s: float = 30.0,
+) -> IngestResult:
+    """Reduce measurement files and add them to an archive, all or nothing.
+
+    Files whose exact content is already in the archive are skipped (content
+    hash).  The rows are grouped into nights by evening date; a night already in
+    the archive is refused (remove it first to re-reduce it).  Everything is
+    computed before the archive is opened for writing.
+    """
+    from .archive import open_archive, tables, transaction
+    from .archive.store import check_root, utc_now
+
+    arch = open_archive(archive_path)
+    target = arch.target
+    settings = settings or settings_from_target(target)
+    if not files:
+        raise InputError("no measurement files given")
+    blobs = [(Path(p), read_bytes(Path(p))) for p in files]
+    hashes = [hashlib.sha256(b).hexdigest() for _, b in blobs]
+    with arch._open() as f:
+        known = dict(zip(tables.read(f, "sources", ["sha256"])["sha256"], tables.read(f, "sources", ["night"])["night"]))
+        labels_before = set(tables.read(f, "nights", ["label"])["label"])
+    skipped, fresh = [], []
+    seen_here: set[str] = set()
+    for (p, b), h in zip(blobs, hashes):
+        if h in known or h in seen_here:
+            skipped.append({"file": str(p), "sha256": h, "why": "already ingested (same content)"})
+        else:
+            seen_here.add(h)
+            fresh.append((p, b, h))
+    if not fresh:
+        return IngestResult(str(arch.path), (), tuple(skipped))
+
+    parsed = []
+    for p, b, h in fresh:
+        t = parse_measurements(b, str(p), target.star_ids, columns)
+        if len(fresh) > 1:
+            t["frame"] = p.name + ":" + t["frame"].astype(str)
+        parsed.append(t)
+    table = pd.concat(parsed, ignore_index=True)
+    nights = split_nights(target, table)
+    for lab in nights:
+        if lab in labels_before:
+            raise InputError(
+                f"night {lab} is already in {arch.path}; ingest all files of a night together, "
+                f"or take the night out first with 'varstar remove-night'"
+            )
+    reductions = [reduce_night(target, t, settings, label=lab) for lab, t in sorted(nights.items())]
+    sha_of = {str(p): h for p, _, h in fresh}
+
+    with transaction(arch.path, timeout_s=timeout_s) as f:
+        check_root(f, arch.path)
+        # Re-check under the lock: another process may have ingested meanwhile.
+        if set(tables.read(f, "sources", ["sha256"])["sha256"]) & set(sha_of.values()):
+            raise InputError(f"{arch.path}: another process ingested some of these files meanwhile; nothing was written")
+        if set(tables.read(f, "nights", ["label"])["label"]) & set(nights):
+            raise InputError(f"{arch.path}: another process ingested one of these nights meanwhile; nothing was written")
+        for red in reductions:
+            _write_night(f, red, sha_of, utc_now())
+    return IngestResult(str(arch.path), tuple(r.report for r in reductions), tuple(skipped))
+
+
+def _write_night(f, red: NightReduction, sha_of: Mapping[str, str], now: str) -> None:
+    from . import __version__
+    from .archive import tables
+
+    stars = list(tables.read(f, "stars", ["id"])["id"])
+    existing = tables.read(f, "nights", ["night"])["night"]
+    night_id = int(existing.max()) + 1 if existing.size else 0
+    band_code = {b: tables.code_of(f, "bands", "name", b, add=True) for b in sorted(pd.unique(red.exposures["band"]))}
+    # Sources of this night.
+    src_names = sorted(pd.unique(red.raw["source"]))
+    first_src = tables.n_rows(f, "sources")
+    tables.append(
+        f,
+        "sources",
+        {
+            "night": [night_id] * len(src_names),
+            "name": [Path(s).name for s in src_names],
+            "sha256": [sha_of[s] for s in src_names],
+            "n_rows": [int((red.raw["source"] == s).sum()) for s in src_names],
+        },
+    )
+    src_code = {s: first_src + k for k, s in enumerate(src_names)}
+    e = red.exposures
+    first_exp = tables.append(
+        f,
+        "exposures",
+        {
+            "night": np.full(len(e), night_id),
+            "frame": e["frame"].to_numpy(),
+            "band": e["band"].map(band_code).to_numpy(),
+            **{c: e[c].to_numpy() for c in ("jd_utc", "bjd_tdb", "hjd_utc", "airmass", "airmass_given", "exptime_s", "zero_point", "zero_point_err", "calibration_err", "n_comparisons", "flags")},
+        },
+    )
+    r = red.raw
+    star_code = pd.Index(stars).get_indexer(r["star"])
+    tables.append(
+        f,
+        "raw",
+        {
+            "night": np.full(len(r), night_id),
+            "exposure": first_exp + r["exposure"].to_numpy(),
+            "star": star_code,
+            "mag": r["mag"].to_numpy(),
+            "mag_err": r["mag_err"].to_numpy(),
+            "flag": r["flag"].to_numpy(),
+            "source": r["source"].map(src_code).to_numpy(),
+            "line": r["line"].to_numpy(),
+        },
+    )
+    p = red.points
+    tables.append(
+        f,
+        "points",
+        {
+            "night": np.full(len(p), night_id),
+            "exposure": first_exp + p["exposure"].to_numpy(),
+            "star": pd.Index(stars).get_indexer(p["star"]),
+            "band": p["band"].map(band_code).to_numpy(),
+            "bjd_tdb": p["bjd_tdb"].to_numpy(),
+            "mag": p["mag"].to_numpy(),
+            "mag_err": p["mag_err"].to_numpy(),
+            "cal_err": p["cal_err"].to_numpy(),
+            "quality": p["quality"].to_numpy(),
+        },
+    )
+    c = red.comparisons
+    tables.append(
+        f,
+        "comparisons",
+        {
+            "night": np.full(len(c), night_id),
+            "band": c["band"].map(band_code).to_numpy(),
+            "star": pd.Index(stars).get_indexer(c["star"]),
+            **{k: c[k].to_numpy() for k in ("status", "reason", "offset", "excess", "chi2_dof")},
+        },
+    )
+    tables.append(
+        f,
+        "nights",
+        {
+            "night": [night_id],
+            "label": [red.label],
+            "ingested_utc": [now],
+            "software": [f"varstar {__version__}"],
+            "n_exposures": [len(e)],
+            "n_flagged": [int((e["flags"] != "").sum())],
+            "n_points": [len(p)],
+            "bjd_start": [red.report["bjd_start"]],
+            "bjd_end": [red.report["bjd_end"]],
+            "report": [json.dumps(red.report, allow_nan=True)],
+        },
+    )

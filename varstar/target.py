@@ -1,0 +1,267 @@
+"""Target description: a TOML file -> :class:`Target`.
+
+The format is varstar's own (documented in the README):
+
+``[target]`` name, ra, dec; ``[site]`` latitude, longitude, elevation;
+``[[stars]]`` one table per star with ``id``, ``role`` (target | comparison |
+check) and catalogue standard magnitudes by band (``V = 12.1``, ``V_err = 0.01``).
+Tables this version does not know (``[transformation]``, ``[ephemeris]``, ...)
+are kept verbatim in :attr:`Target.extra` and in the original text.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Mapping
+
+from .errors import InputError
+
+try:  # Python 3.11+
+    import tomllib
+except ModuleNotFoundError:  # pragma: no cover - Python 3.10
+    import tomli as tomllib  # type: ignore[no-redef]
+
+ROLES = ("target", "comparison", "check")
+_KNOWN_TABLES = ("target", "site", "stars")
+_STAR_KEYS = ("id", "role", "name", "notes")
+_BAND_RE = re.compile(r"^[A-Za-z][A-Za-z0-9']{0,7}$")
+
+
+@dataclass(frozen=True)
+class Site:
+    """Observing site (geodetic, WGS84)."""
+
+    latitude_deg: float
+    longitude_deg: float
+    elevation_m: float
+
+
+@dataclass(frozen=True)
+class Star:
+    """One star measured in the field."""
+
+    id: str
+    role: str
+    catalog: Mapping[str, float] = field(default_factory=dict)
+    catalog_err: Mapping[str, float] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class Target:
+    """A target field: the variable, its comparison and check stars, and the site."""
+
+    name: str
+    ra_deg: float
+    dec_deg: float
+    site: Site
+    stars: tuple[Star, ...]
+    extra: Mapping[str, Any] = field(default_factory=dict)
+    source_text: str = ""
+    source: str = "<string>"
+
+    @property
+    def star_ids(self) -> tuple[str, ...]:
+        return tuple(s.id for s in self.stars)
+
+    @property
+    def target_star(self) -> Star:
+        return next(s for s in self.stars if s.role == "target")
+
+    def star(self, star_id: str) -> Star:
+        for s in self.stars:
+            if s.id == star_id:
+                return s
+        raise KeyError(star_id)
+
+    def stars_with_role(self, role: str) -> tuple[Star, ...]:
+        return tuple(s for s in self.stars if s.role == role)
+
+    def catalog_bands(self) -> set[str]:
+        """Bands in which at least one comparison star has a catalogue magnitude."""
+        return {b for s in self.stars_with_role("comparison") for b in s.catalog}
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "name": self.name,
+            "ra_deg": self.ra_deg,
+            "dec_deg": self.dec_deg,
+            "site": {
+                "latitude_deg": self.site.latitude_deg,
+                "longitude_deg": self.site.longitude_deg,
+                "elevation_m": self.site.elevation_m,
+            },
+            "stars": [
+                {"id": s.id, "role": s.role, "catalog": dict(s.catalog), "catalog_err": dict(s.catalog_err)}
+                for s in self.stars
+            ],
+        }
+
+
+def parse_angle(value: Any, *, kind: str, where: str) -> float:
+    """Parse an angle given in degrees or sexagesimal text.
+
+    ``kind`` is ``"ra"`` (sexagesimal in hours, 0 <= ra < 360 deg) or ``"dec"``
+    (sexagesimal in degrees, -90..90).
+    """
+    if isinstance(value, bool):
+        raise InputError(f"{where}: expected a number of degrees or a sexagesimal string, got {value!r}")
+    if isinstance(value, (int, float)):
+        deg = float(value)
+    elif isinstance(value, str):
+        text = value.strip()
+        parts = re.split(r"[:\s hdms°'\"]+", text.replace("+", "").replace("−", "-").strip())
+        parts = [p for p in parts if p != ""]
+        try:
+            nums = [float(p) for p in parts]
+        except ValueError:
+            raise InputError(f"{where}: cannot read {value!r} as an angle (use degrees or e.g. '18:54:02.4')") from None
+        if not 1 <= len(nums) <= 3 or any(not 0 <= n < 60 for n in nums[1:]):
+            raise InputError(f"{where}: cannot read {value!r} as an angle (use degrees or e.g. '18:54:02.4')")
+        negative = text.lstrip().startswith(("-", "−"))
+        mag = abs(nums[0]) + sum(n / 60.0**k for k, n in enumerate(nums[1:], start=1))
+        if len(nums) == 1:
+            deg = -mag if negative else mag
+        else:
+            deg = (mag * 15.0 if kind == "ra" else mag) * (-1 if negative else 1)
+    else:
+        raise InputError(f"{where}: expected a number of degrees or a sexagesimal string, got {value!r}")
+    if not math.isfinite(deg):
+        raise InputError(f"{where}: angle must be finite, got {value!r}")
+    if kind == "ra" and not 0.0 <= deg < 360.0:
+        raise InputError(f"{where}: right ascension must be in [0, 360) degrees, got {deg}")
+    if kind == "dec" and not -90.0 <= deg <= 90.0:
+        raise InputError(f"{where}: declination must be in [-90, 90] degrees, got {deg}")
+    return deg
+
+
+def _number(table: Mapping[str, Any], key: str, where: str, lo: float, hi: float) -> float:
+    if key not in table:
+        raise InputError(f"{where}: missing key '{key}'")
+    v = table[key]
+    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+        raise InputError(f"{where}.{key}: expected a finite number, got {v!r}")
+    if not lo <= v <= hi:
+        raise InputError(f"{where}.{key}: {v} is outside the plausible range [{lo}, {hi}]")
+    return float(v)
+
+
+def parse_target(text: str, source: str = "<string>") -> Target:
+    """Parse the text of a target TOML file.
+
+    Raises
+    ------
+    InputError
+        With a message naming ``source`` and the offending key.
+    """
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"{source}: not valid TOML: {exc}") from None
+
+    tgt = doc.get("target")
+    if not isinstance(tgt, dict):
+        raise InputError(f"{source}: missing [target] table (name, ra, dec)")
+    name = tgt.get("name", "")
+    if not isinstance(name, str) or not name.strip():
+        raise InputError(f"{source}: [target].name must be a non-empty string")
+    for key in ("ra", "dec"):
+        if key not in tgt:
+            raise InputError(f"{source}: [target] is missing '{key}'")
+    ra = parse_angle(tgt["ra"], kind="ra", where=f"{source}: [target].ra")
+    dec = parse_angle(tgt["dec"], kind="dec", where=f"{source}: [target].dec")
+
+    site_t = doc.get("site")
+    if not isinstance(site_t, dict):
+        raise InputError(f"{source}: missing [site] table (latitude, longitude, elevation)")
+    w = f"{source}: [site]"
+    site = Site(
+        latitude_deg=_number(site_t, "latitude", w, -90, 90),
+        longitude_deg=_number(site_t, "longitude", w, -180, 360),
+        elevation_m=_number(site_t, "elevation", w, -500, 9000),
+    )
+    if site.longitude_deg > 180:
+        site = Site(site.latitude_deg, site.longitude_deg - 360.0, site.elevation_m)
+
+    stars_t = doc.get("stars")
+    if not isinstance(stars_t, list) or not stars_t:
+        raise InputError(f"{source}: no [[stars]] tables: list the target and at least two comparison stars")
+    stars: list[Star] = []
+    seen: set[str] = set()
+    for k, st in enumerate(stars_t, start=1):
+        w = f"{source}: [[stars]] #{k}"
+        if not isinstance(st, dict):
+            raise InputError(f"{w}: expected a table")
+        sid = st.get("id")
+        if not isinstance(sid, str) or not sid.strip():
+            raise InputError(f"{w}: 'id' must be a non-empty string")
+        sid = sid.strip()
+        w = f"{source}: star '{sid}'"
+        if sid in seen:
+            raise InputError(f"{w}: id is used twice")
+        seen.add(sid)
+        role = st.get("role")
+        if role not in ROLES:
+            raise InputError(f"{w}: role must be one of {', '.join(ROLES)}, got {role!r}")
+        cat: dict[str, float] = {}
+        cat_err: dict[str, float] = {}
+        for key, val in st.items():
+            if key in _STAR_KEYS:
+                continue
+            band, is_err = (key[:-4], True) if key.endswith("_err") else (key, False)
+            if not _BAND_RE.match(band):
+                raise InputError(f"{w}: unknown key '{key}' (expected a band name like V or B, or V_err)")
+            if isinstance(val, bool) or not isinstance(val, (int, float)) or not math.isfinite(val):
+                raise InputError(f"{w}.{key}: expected a finite number, got {val!r}")
+            if is_err:
+                if not 0 <= val < 5:
+                    raise InputError(f"{w}.{key}: uncertainty must be in [0, 5) mag, got {val}")
+                cat_err[band] = float(val)
+            else:
+                if not -30 < val < 40:
+                    raise InputError(f"{w}.{key}: magnitude {val} is not plausible")
+                cat[band] = float(val)
+        orphan = set(cat_err) - set(cat)
+        if orphan:
+            b = sorted(orphan)[0]
+            raise InputError(f"{w}: '{b}_err' given without '{b}'")
+        stars.append(Star(sid, role, cat, cat_err))
+
+    n_target = sum(s.role == "target" for s in stars)
+    if n_target != 1:
+        raise InputError(f"{source}: exactly one star must have role = \"target\", found {n_target}")
+    comps = [s for s in stars if s.role == "comparison"]
+    if len(comps) < 2:
+        raise InputError(f"{source}: at least two comparison stars are needed, found {len(comps)}")
+    if not any(s.catalog for s in comps):
+        raise InputError(f"{source}: no comparison star has a catalogue magnitude (e.g. V = 12.10)")
+
+    extra = {k: v for k, v in doc.items() if k not in _KNOWN_TABLES}
+    return Target(
+        name=name.strip(),
+        ra_deg=ra,
+        dec_deg=dec,
+        site=site,
+        stars=tuple(stars),
+        extra=extra,
+        source_text=text,
+        source=source,
+    )
+
+
+def read_target(path: str | Path) -> Target:
+    """Read and validate a target TOML file."""
+    p = Path(path)
+    try:
+        raw = p.read_bytes()
+    except FileNotFoundError:
+        raise InputError(f"{p}: file not found") from None
+    except OSError as exc:
+        raise InputError(f"{p}: cannot read: {exc.strerror}") from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise InputError(f"{p}: not UTF-8 text (byte {exc.start})") from None
+    return parse_target(text, source=str(p))

@@ -1,0 +1,180 @@
+"""Times and airmass: JD(UTC) -> BJD_TDB and HJD(UTC), airmass, night labels.
+
+This is the only module that knows about astropy time scales.  Everything runs
+offline: astropy is told, for the duration of each call only, never to download
+IERS tables and to accept the bundled ones (polar motion and UT1 - UTC matter
+here at the millisecond level at most).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import warnings
+from collections.abc import Iterator
+from dataclasses import dataclass
+
+import numpy as np
+
+# Spacing of the exact evaluations when a night has many exposures.  The
+# barycentric correction is smooth (annual term ~ 500 s, diurnal term ~ 20 ms),
+# so a cubic spline through nodes 15 minutes apart reproduces it to far below a
+# microsecond; astropy's own evaluation costs ~0.1 ms per time, which would be
+# the largest cost of ingesting a long night.
+_NODE_SPACING_D = 15.0 / 1440.0
+_EXACT_BELOW = 64
+
+
+@contextlib.contextmanager
+def offline_astropy() -> Iterator[None]:
+    """Configure astropy for offline use within a ``with`` block.
+
+    No IERS download is attempted, the bundled tables are used even when they
+    are old, and the warnings about it (harmless at our precision) are muted.
+    """
+    from astropy.utils import iers
+
+    with (
+        iers.conf.set_temp("auto_download", False),
+        iers.conf.set_temp("auto_max_age", None),
+        iers.conf.set_temp("iers_degraded_accuracy", "ignore"),
+        warnings.catch_warnings(),
+    ):
+        warnings.filterwarnings("ignore", module="erfa")
+        warnings.filterwarnings("ignore", message=".*(IERS|polar motion|leap.second|dubious year).*")
+        from astropy.utils.exceptions import AstropyWarning
+
+        warnings.filterwarnings("ignore", category=AstropyWarning)
+        yield
+
+
+@dataclass(frozen=True)
+class ExposureTimes:
+    """Times and airmass of a set of exposures (all arrays of the input's shape)."""
+
+    jd_utc: np.ndarray
+    bjd_tdb: np.ndarray
+    hjd_utc: np.ndarray
+    airmass: np.ndarray
+    altitude_deg: np.ndarray
+
+
+def hardie_airmass(zenith_deg: np.ndarray) -> np.ndarray:
+    """Airmass from the true zenith distance, Hardie (1962).
+
+    X = sec z - 0.0018167 (sec z - 1) - 0.002875 (sec z - 1)^2 - 0.0008083 (sec z - 1)^3.
+    The formula is meant for z up to ~85 deg (beyond, its cubic turns over and
+    even goes negative), so NaN is returned for z > 85 deg.
+    """
+    z = np.asarray(zenith_deg, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        s = 1.0 / np.cos(np.radians(z))
+        d = s - 1.0
+        x = s - 0.0018167 * d - 0.002875 * d**2 - 0.0008083 * d**3
+    return np.where(z <= 85.0, x, np.nan)
+
+
+def _location_and_coord(ra_deg: float, dec_deg: float, latitude_deg: float, longitude_deg: float, elevation_m: float):
+    import astropy.units as u
+    from astropy.coordinates import EarthLocation, SkyCoord
+
+    loc = EarthLocation.from_geodetic(longitude_deg * u.deg, latitude_deg * u.deg, elevation_m * u.m)
+    coord = SkyCoord(ra_deg * u.deg, dec_deg * u.deg, frame="icrs")
+    return loc, coord
+
+
+def _exact(jd: np.ndarray, loc, coord) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Corrections BJD_TDB - JD_UTC and HJD_UTC - JD_UTC (days), and altitude, by astropy.
+
+    The corrections are returned rather than the dates so that no precision is
+    lost to the float64 spacing of a Julian Date (~40 microseconds).
+    """
+    from astropy.coordinates import AltAz
+    from astropy.time import Time
+
+    t = Time(jd, format="jd", scale="utc", location=loc)
+    ltt_bary = t.light_travel_time(coord, "barycentric")
+    ltt_helio = t.light_travel_time(coord, "heliocentric")
+    tdb = t.tdb
+    bary = (tdb.jd1 - t.jd1) + (tdb.jd2 - t.jd2) + ltt_bary.to_value("day")
+    helio = ltt_helio.to_value("day")
+    # Unit vector towards the target in the horizontal frame (east, north, up
+    # in some order): smooth in time even through a transit near the zenith,
+    # where the altitude itself has a cusp a spline cannot follow.
+    xyz = coord.transform_to(AltAz(obstime=t, location=loc)).cartesian.xyz.value
+    return np.asarray(bary, float), np.asarray(helio, float), np.asarray(xyz, dtype=float)
+
+
+def exposure_times(
+    jd_utc: np.ndarray,
+    ra_deg: float,
+    dec_deg: float,
+    latitude_deg: float,
+    longitude_deg: float,
+    elevation_m: float,
+) -> ExposureTimes:
+    """Convert mid-exposure JD(UTC) to BJD_TDB and HJD(UTC), with airmass.
+
+    Parameters
+    ----------
+    jd_utc
+        Julian Dates in UTC (any shape).
+    ra_deg, dec_deg
+        ICRS coordinates of the target, degrees.
+    latitude_deg, longitude_deg, elevation_m
+        Geodetic site position (longitude east positive).
+
+    Returns
+    -------
+    ExposureTimes
+        BJD_TDB follows Eastman, Siverd & Gaudi (2010): TDB plus the Roemer delay
+        to the solar-system barycentre for the observer's position (astropy,
+        built-in ephemeris).  HJD is in UTC, as it is traditionally quoted.
+        Airmass is Hardie (1962) from the geometric altitude.
+    """
+    from scipy.interpolate import CubicSpline
+
+    jd = np.asarray(jd_utc, dtype=float)
+    flat = jd.ravel()
+    if flat.size == 0:
+        empty = np.empty(jd.shape)
+        return ExposureTimes(jd, empty, empty.copy(), empty.copy(), empty.copy())
+    loc, coord = _location_and_coord(ra_deg, dec_deg, latitude_deg, longitude_deg, elevation_m)
+    uniq, inverse = np.unique(flat, return_inverse=True)
+    with offline_astropy():
+        span = uniq[-1] - uniq[0]
+        if uniq.size <= _EXACT_BELOW or span > 2.0:
+            d_bary, d_helio, xyz = _exact(uniq, loc, coord)
+        else:
+            n_nodes = max(8, int(np.ceil(span / _NODE_SPACING_D)) + 1)
+            nodes = np.linspace(uniq[0], uniq[-1], n_nodes)
+            bary_n, helio_n, xyz_n = _exact(nodes, loc, coord)
+            d_bary = CubicSpline(nodes, bary_n)(uniq)
+            d_helio = CubicSpline(nodes, helio_n)(uniq)
+            xyz = CubicSpline(nodes, xyz_n, axis=1)(uniq)
+    alt = np.degrees(np.arctan2(xyz[2], np.hypot(xyz[0], xyz[1])))
+    bjd = uniq + d_bary
+    hjd = uniq + d_helio
+    airmass = hardie_airmass(90.0 - alt)
+    shape = jd.shape
+    return ExposureTimes(
+        jd_utc=jd,
+        bjd_tdb=bjd[inverse].reshape(shape),
+        hjd_utc=hjd[inverse].reshape(shape),
+        airmass=airmass[inverse].reshape(shape),
+        altitude_deg=alt[inverse].reshape(shape),
+    )
+
+
+def night_label(jd_utc: np.ndarray, longitude_deg: float) -> np.ndarray:
+    """Label each time with the calendar date of the evening its night began.
+
+    Observers name a night by its evening date at the site (common practice):
+    local mean solar time is shifted back by 12 hours so that a whole night,
+    dusk to dawn, carries one label.  Returns ``YYYY-MM-DD`` strings.
+    """
+    jd = np.asarray(jd_utc, dtype=float)
+    lon = (longitude_deg + 180.0) % 360.0 - 180.0
+    # JD n.5 is 0h UT; local mean time = UT + longitude/15 h; minus 12 h.
+    day_number = np.floor(jd + lon / 360.0)  # JD of local noon before, as an integer day
+    days = (day_number - 2440588).astype("int64")  # JD 2440587.5 = 1970-01-01 0h
+    return np.datetime_as_string(days.astype("datetime64[D]"), unit="D")
