@@ -20,17 +20,24 @@ Fernandez & Neuhaeuser 2005, Astron. Nachr. 326, 134, iterative weights):
 * weights ``1 / (mag_err^2 + e_i^2)`` with a per-star excess scatter ``e_i``
   fitted so that the star's reduced chi-square is one (zero if already <= 1);
 * single outlying comparison measurements are clipped (at most one per exposure
-  and iteration, since one outlier shifts the zero point seen by the others);
+  and iteration, since one outlier shifts the zero point seen by the others),
+  judged against the reported errors and each star's robust scatter (median
+  absolute deviation), never against the fitted excess, which outliers inflate;
+  a clipped measurement returns once the solution agrees with it again;
 * comparison stars whose scatter exceeds their errors are rejected one at a
-  time, the worst first, with a chi-square test after dividing by a common
-  error-scale factor (the ensemble median of chi2/dof), so that globally
-  underestimated errors do not reject everybody;
+  time, the worst first (a variable pollutes the zero points seen by the
+  others), with a chi-square test of each star against the zero points of all
+  the other stars, after dividing by a common error-scale factor (the ensemble
+  median of chi2/dof, at least one), so that globally underestimated errors do
+  not reject everybody;
 * the ensemble is tied to the catalogue by a weighted mean of the offsets
   ``M_i - C_i`` whose weights contain an excess scatter of the catalogue
-  offsets (Paule & Mandel 1982, J. Res. NBS 87, 377) so that disagreeing
-  catalogue values (untransformed colour terms) give an honest
-  ``calibration_err``; stars whose offset is far from the others are marked
-  ``catalog_offset`` and leave the tie (they still help the zero points);
+  offsets (the Paule & Mandel 1982 estimator, J. Res. NBS 87, 377, reference
+  from memory) so that disagreeing catalogue values (untransformed colour
+  terms) give an honest ``calibration_err``, widened to the Student-t 68.27%
+  quantile when that scatter had to be estimated from few stars; stars whose
+  offset is far from the others are marked ``catalog_offset`` and leave the
+  tie (they still help the zero points);
 * exposures are flagged, never dropped: too few comparisons, a zero-point error
   far above the night's median, or a zero point away from a robust smooth trend
   (extinction in airmass plus a linear drift in time), as a passing cloud does.
@@ -41,6 +48,7 @@ The module is a pure computational core: arrays in, a frozen dataclass out.
 from __future__ import annotations
 
 import math
+import numbers
 from dataclasses import asdict, dataclass, field
 from typing import Any, Sequence
 
@@ -56,8 +64,21 @@ EXPOSURE_FLAGS = ("too_few_comparisons", "zero_point_error", "zero_point_jump")
 # A diagonal hat value this close to one means the residual is fixed at zero
 # (for example the only comparison star of an exposure): it carries no information.
 _HAT_ONE = 1e-9
-# The excess scatter has converged when it changes by less than this (mag).
-_EXCESS_TOL = 1e-5
+# The excess scatter has converged when no star's effective error sqrt(mag_err^2 + excess^2)
+# changes by more than this fraction (weights by less than 2%; the weight model itself is
+# uncertain by ~sqrt(2/dof), ten per cent for 200 points).
+_EXCESS_RTOL = 1e-2
+# A clipped measurement returns when it is within this fraction of clip_sigma of the current
+# solution (hysteresis: a point near the threshold must not flip at every iteration).
+_RESTORE_FRACTION = 0.8
+# A star is called variable for its clipped points only if at least this many were clipped.
+_MIN_CLIPS_VARIABLE = 5
+# Upper quantile of a normal distribution at +1 sigma, Phi(1).
+_ONE_SIGMA_QUANTILE = 0.8413447460685429
+# Colour extinction is fitted only when the comparison stars' colours span this much
+# (mag) and the airmass this much: otherwise the term is not constrained (common practice).
+COLOUR_MIN_SPAN = 0.3
+AIRMASS_MIN_SPAN = 0.1
 # Normal-distribution consistency factor of the median absolute deviation.
 _MAD_TO_SIGMA = 1.482602218505602
 
@@ -82,9 +103,10 @@ class EnsembleSettings:
         that a millimagnitude error-model mismatch of a bright star on a long
         night does not reject the best comparison star.
     max_clipped_fraction : float
-        A comparison star with at least three clipped measurements and more than
+        A comparison star with at least five clipped measurements and more than
         this fraction of its measurements clipped is also called variable (an
-        eclipse looks like a run of outliers).
+        eclipse looks like a run of outliers).  Clips made only because the two
+        comparison stars of an exposure disagree do not count.
     catalog_sigma : float
         A comparison star's catalogue offset ``M_i - C_i`` inconsistent with the
         others by more than this many robust sigma ...
@@ -129,15 +151,15 @@ class EnsembleSettings:
         positive = ("clip_sigma", "catalog_sigma", "zp_err_factor", "zp_jump_sigma", "trend_clip_sigma")
         for name in positive:
             value = getattr(self, name)
-            if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
+            if not (isinstance(value, numbers.Real) and math.isfinite(value) and value > 0):
                 raise InputError(f"ensemble setting {name} must be a positive number, got {value!r}")
         for name in ("variable_min_excess", "catalog_min_mag", "zp_jump_min_mag"):
             value = getattr(self, name)
-            if not (isinstance(value, (int, float)) and math.isfinite(value) and value >= 0):
+            if not (isinstance(value, numbers.Real) and math.isfinite(value) and value >= 0):
                 raise InputError(f"ensemble setting {name} must be a number >= 0 (mag), got {value!r}")
         for name in ("variable_p_value", "max_clipped_fraction"):
             value = getattr(self, name)
-            if not (isinstance(value, (int, float)) and 0 < value < 1):
+            if not (isinstance(value, numbers.Real) and 0 < value < 1):
                 raise InputError(f"ensemble setting {name} must lie strictly between 0 and 1, got {value!r}")
         for name in ("min_comparisons", "min_star_points", "max_iter"):
             value = getattr(self, name)
@@ -161,7 +183,10 @@ class EnsembleSolution:
         1-sigma of the tie of the ensemble to the catalogue, common to every
         exposure of the night and band (catalogue errors and the fitted excess
         scatter of the catalogue offsets); add it in quadrature for absolute
-        magnitudes.
+        magnitudes.  When the catalogue scatter had to be estimated from the
+        offsets themselves it is widened to the 68.27% quantile of Student's t
+        with ``n_tie - 1`` degrees of freedom, so that it still covers the
+        truth in 68% of nights with few catalogue stars.
     n_comparisons : numpy.ndarray
         ``(n_exp,)`` comparison measurements used in each exposure.
     exposure_flags : tuple of str
@@ -181,9 +206,10 @@ class EnsembleSolution:
         errors; for stars outside the fit a diagnostic computed the same way
         from their calibrated magnitudes.
     star_chi2_dof : numpy.ndarray
-        ``(n_star,)`` reduced chi-square with the reported errors: of the fit
-        residuals for stars in the fit (degrees of freedom from the hat matrix),
-        otherwise of the calibrated magnitudes about their weighted mean.
+        ``(n_star,)`` reduced chi-square with the reported errors: for stars in
+        the fit, of their magnitudes against the zero points of all the other
+        stars (whose errors are included), about their mean; otherwise of the
+        calibrated magnitudes about their weighted mean.
     mag, mag_err : numpy.ndarray
         ``(n_meas,)`` calibrated magnitude of every input measurement and
         ``sqrt(mag_err_in^2 + zero_point_err^2)``.
@@ -207,6 +233,15 @@ class EnsembleSolution:
         Things a person should know (ambiguities that could not be resolved).
     settings : EnsembleSettings
         The settings used.
+    colour_extinction, colour_extinction_err : float
+        Fitted second-order (colour) extinction ``k''`` of the comparison stars
+        in this band, mag per airmass per mag of catalogue colour, and its
+        1-sigma; NaN when it was not fitted (see ``colour`` in
+        :func:`solve_ensemble`).
+    colour_reference : float
+        The colour the zero points refer to: a star of this catalogue colour
+        needs no colour-extinction correction (mean colour of the comparison
+        stars with colours); NaN when not fitted.
     """
 
     zero_point: np.ndarray
@@ -230,6 +265,9 @@ class EnsembleSolution:
     converged: bool = True
     warnings: tuple[str, ...] = ()
     settings: EnsembleSettings = field(default_factory=EnsembleSettings)
+    colour_extinction: float = float("nan")
+    colour_extinction_err: float = float("nan")
+    colour_reference: float = float("nan")
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-safe summary: per-star results, exposure flag counts, the tie.
@@ -267,6 +305,9 @@ class EnsembleSolution:
             "method": "inhomogeneous ensemble, weighted least squares (Honeycutt 1992)",
             "calibration_err": _json_float(self.calibration_err),
             "catalog_scatter": _json_float(self.catalog_scatter),
+            "colour_extinction": _json_float(self.colour_extinction),
+            "colour_extinction_err": _json_float(self.colour_extinction_err),
+            "colour_reference": _json_float(self.colour_reference),
             "error_scale": _json_float(self.error_scale),
             "iterations": int(self.iterations),
             "converged": bool(self.converged),
@@ -383,6 +424,27 @@ def _solve_weighted(W: np.ndarray, Y: np.ndarray) -> _Fit:
     return _Fit(M=M, z=z, CM=CM, P=P, Wj=Wj, var_pred=var_pred)
 
 
+def _colour_step(W: np.ndarray, U: np.ndarray, Dc: np.ndarray, R: np.ndarray) -> tuple[float, float]:
+    """One exact least-squares step for the colour-extinction coefficient.
+
+    ``R`` are the residuals of the ``M + z`` fit with the current coefficient
+    removed.  By the Frisch-Waugh-Lovell theorem the joint weighted solution
+    changes the coefficient by ``sum W R Dres / sum W Dres^2``, where ``Dres``
+    is the part of the regressor ``Dc`` that ``M + z`` cannot absorb; the
+    denominator's inverse is the coefficient's variance.
+
+    Returns
+    -------
+    (step, err) : tuple of float
+    """
+    dfit = _solve_weighted(W, np.where(U, Dc, 0.0))
+    dres = np.where(U, Dc - dfit.M - np.nan_to_num(dfit.z)[:, None], 0.0)
+    denom = float(np.sum(W * dres * dres))
+    if not denom > 0:
+        return 0.0, float("nan")
+    return float(np.sum(W * R * dres)) / denom, 1.0 / math.sqrt(denom)
+
+
 def _zero_point_variance(fit: _Fit, CM: np.ndarray) -> np.ndarray:
     """``Var(z_j)`` for a star covariance ``CM`` given in some gauge."""
     has = fit.Wj > 0
@@ -486,6 +548,47 @@ def _paule_mandel(d: np.ndarray, v: np.ndarray) -> float:
     return 0.5 * (lo + hi)
 
 
+@dataclass
+class _StarTest:
+    """Each fitted star against the zero points of all the other stars."""
+
+    r2: np.ndarray  # (n_exp, k) squared residuals about the star's own mean (0 where unused)
+    V: np.ndarray  # (n_exp, k) their variance if the star is constant: mag_err^2 + Var(z_others)
+    mask: np.ndarray  # (n_exp, k) exposures where the star and at least one other were used
+    chi2: np.ndarray  # (k,) sum r2 / V
+    dof: np.ndarray  # (k,) points - 1
+
+
+def _star_vs_others(W: np.ndarray, U: np.ndarray, Y: np.ndarray, S2: np.ndarray, fit: _Fit) -> _StarTest:
+    """Residuals of each star against the zero points computed from the other stars only.
+
+    ``z_j^(-i) = sum_{k != i} W_jk (Y_jk - M_k) / sum_{k != i} W_jk`` has variance
+    ``1 / sum_{k != i} W_jk``, independent of star ``i``'s own noise and weight.  So
+    ``Y_ij - z_j^(-i)`` about its weighted mean gives a chi-square with ``n_i - 1``
+    degrees of freedom if star ``i`` is constant with the reported errors,
+    whatever weight (excess) the fit currently gives it.  Testing the fit
+    residuals instead would make a star that got a chance excess look worse:
+    down-weighted, it no longer pulls its own zero points.
+    """
+    D = np.where(U, Y - fit.M, 0.0)
+    WD = W * D
+    S = WD.sum(axis=1)
+    W_oth = fit.Wj[:, None] - W
+    mask = U & (W_oth > 1e-12 * np.maximum(fit.Wj[:, None], 1e-300))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z_oth = np.where(mask, (S[:, None] - WD) / W_oth, 0.0)
+        V = np.where(mask, S2 + 1.0 / W_oth, 1.0)
+    d = np.where(mask, D - z_oth, 0.0)
+    iv = np.where(mask, 1.0 / V, 0.0)
+    siv = iv.sum(axis=0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mean = np.where(siv > 0, (iv * d).sum(axis=0) / siv, 0.0)
+    r2 = np.where(mask, (d - mean) ** 2, 0.0)
+    chi2 = (r2 * iv).sum(axis=0)
+    dof = mask.sum(axis=0) - 1.0
+    return _StarTest(r2=r2, V=V, mask=mask, chi2=chi2, dof=dof)
+
+
 def _components(present: np.ndarray) -> np.ndarray:
     """Connected-component label of each column (stars linked by shared exposures).
 
@@ -579,7 +682,10 @@ def _trend_jumps(
     A_all = np.column_stack(cols)
     n_ok = int(np.count_nonzero(ok))
     if n_ok < A_all.shape[1] + 3:
-        return jump, f"only {n_ok} exposures with a zero point: the zero-point jump test needs at least {A_all.shape[1] + 3}"
+        return jump, (
+            f"only {n_ok} exposure(s) with a zero point: the zero-point jump test needs at least "
+            f"{A_all.shape[1] + 3} and was skipped"
+        )
     A, y, e = A_all[ok], zp[ok], zp_err[ok]
     # least absolute deviations by iteratively reweighted least squares
     beta = np.linalg.lstsq(A, y, rcond=None)[0]
@@ -628,6 +734,7 @@ def solve_ensemble(
     good: np.ndarray | None = None,
     settings: EnsembleSettings = EnsembleSettings(),
     star_names: Sequence[str] | None = None,
+    colour: np.ndarray | None = None,
 ) -> EnsembleSolution:
     """Inhomogeneous ensemble solution of one band of one night (Honeycutt 1992).
 
@@ -660,6 +767,15 @@ def solve_ensemble(
     star_names : sequence of str, optional
         Names used in the human-readable reasons and warnings (default
         ``"star <index>"``).
+    colour : numpy.ndarray, optional
+        ``(n_star,)`` catalogue colour index (e.g. B - V) of each star, NaN if
+        unknown.  When at least three comparison stars have colours spanning
+        ``COLOUR_MIN_SPAN`` mag and the airmass changes by ``AIRMASS_MIN_SPAN``,
+        the model gains one term, ``m_ij = M_i + z_j + k'' X_j (c_i - c_ref)``:
+        second-order (colour) extinction, which otherwise makes a red
+        comparison star drift against blue ones as the field sets and look
+        variable (Henden & Kaitchuck 1982: the second-order term does not cancel
+        in differential photometry).  Stars without a colour count as ``c_ref``.
 
     Returns
     -------
@@ -788,20 +904,37 @@ def solve_ensemble(
             "the night cannot be tied to the catalogue"
         )
 
+    # ---------------------------------------------------------------- colour extinction
+    # D_ji = X_j (c_i - c_ref): the regressor of the single k'' term.  It is fitted jointly
+    # with M and z by the Frisch-Waugh-Lovell step below (regress the residuals on the part
+    # of D that M and z cannot absorb), which for fixed weights is the exact joint solution.
+    D = np.zeros((n_exp, k_all))
+    kappa, kappa_err, c_ref = 0.0, float("nan"), float("nan")
+    fit_kappa = False
+    if colour is not None:
+        col = _as_float(colour, "colour", n_star, "star (len(is_comparison))")[comp_idx]
+        has_col = np.isfinite(col)
+        x_span = airmass[np.isfinite(airmass)]
+        if (
+            np.count_nonzero(has_col) >= 3
+            and np.ptp(col[has_col]) >= COLOUR_MIN_SPAN
+            and x_span.size >= 2
+            and np.ptp(x_span) >= AIRMASS_MIN_SPAN
+        ):
+            fit_kappa = True
+            c_ref = float(np.mean(col[has_col]))
+            D = np.nan_to_num(airmass)[:, None] * np.where(has_col, col - c_ref, 0.0)[None, :]
+
     # ---------------------------------------------------------------- iterate
     from scipy import stats
 
     clipped = np.zeros((n_exp, k_all), dtype=bool)
+    pair_clipped = np.zeros((n_exp, k_all), dtype=bool)  # clipped only because two disagreed
     excess2 = np.zeros(k_all)
     iterations = 0
     converged = False
-    protected_warned: set[int] = set()
     error_scale = float("nan")
-    chi2 = np.full(k_all, np.nan)
-    dof = np.full(k_all, np.nan)
     pending_two_star: str | None = None
-    fit: _Fit | None = None
-    used = avail & infit[None, :]
 
     cols_cached: np.ndarray | None = None
     relink = True
@@ -809,25 +942,37 @@ def solve_ensemble(
         iterations += 1
         if relink:
             link_check(avail & infit[None, :] & ~clipped)
+            if np.count_nonzero(infit) < 2:
+                raise ReductionError(
+                    "after clipping outliers fewer than 2 comparison stars remain linked by common "
+                    "exposures: the night cannot be reduced with this ensemble; add comparison stars"
+                )
         cols_in = np.flatnonzero(infit)
         if cols_cached is None or not np.array_equal(cols_cached, cols_in):
             cols_cached = cols_in
-            Yc, S2c, Ac = Y[:, cols_in], S2[:, cols_in], avail[:, cols_in]
+            S2c, Ac, Dc = S2[:, cols_in], avail[:, cols_in], D[:, cols_in]
+        Yc = Y[:, cols_in] - kappa * Dc
         U = Ac & ~clipped[:, cols_in]
         W = np.where(U, 1.0 / (S2c + excess2[cols_in]), 0.0)
         fit = _solve_weighted(W, np.where(U, Yc, 0.0))
         R = np.where(U, Yc - fit.M - np.nan_to_num(fit.z)[:, None], 0.0)
+        kappa_moved = False
+        if fit_kappa:
+            dk, kappa_err = _colour_step(W, U, Dc, R)
+            kappa += dk
+            kappa_moved = abs(dk) > 0.05 * kappa_err  # refit with it before judging the stars
         one_minus_h = np.where(U, np.clip(1.0 - W * np.nan_to_num(fit.var_pred), 0.0, 1.0), 0.0)
         informative = one_minus_h > _HAT_ONE
-        dof_c = one_minus_h.sum(axis=0)
         R2 = np.where(informative, R * R, 0.0)
         s2_c = np.where(U, S2c, 1.0)
-        # excess so that each star's reduced chi-square (with the hat-matrix dof) is one
-        new_excess2 = _solve_excess(R2, s2_c, dof_c, excess2[cols_in])
-        # standardised residuals; each star's robust scatter is a floor of the normalisation
+        # Residuals in units of the reported error (times sqrt(1 - h)), divided by each star's
+        # robust scatter (never below one).  The fitted excess is left out on purpose: a few
+        # wild points or an eclipse inflate it, and clipping must not depend on it.
+        # Residuals are taken about each star's median residual: on a short night one wild point
+        # pulls the star's fitted mean and with it all its other residuals.
+        center = np.nan_to_num(_column_median(R, informative))
         with np.errstate(divide="ignore", invalid="ignore"):
-            t_abs = np.where(informative, np.abs(R) * np.sqrt(W / one_minus_h), 0.0)
-        n_inf = informative.sum(axis=0)
+            t_abs = np.where(informative, np.abs(R - center) / np.sqrt(S2c * one_minus_h), 0.0)
         rob = _MAD_TO_SIGMA * _column_median(t_abs, informative)
         rob = np.where(np.isfinite(rob), np.maximum(rob, 1.0), 1.0)
         tn = np.where(informative, t_abs / rob, -np.inf)
@@ -840,37 +985,59 @@ def solve_ensemble(
         new_clip[r_many, worst[r_many]] = True
         r_two = exceed & (n_row == 2)  # two comparisons disagree: no way to tell which is wrong
         new_clip[r_two] = U[r_two]
-        n_new_clips = int(np.count_nonzero(new_clip))
+        # Measurements clipped earlier (for example next to a wild point that pulled the zero
+        # point in the first fit) come back when they agree with the current solution.  Their
+        # statistic is the one they would have inside the fit: with prediction variance v and
+        # weight w the in-fit residual is r / (1 + w v) and 1 - h = 1 / (1 + w v).
+        old_clip = clipped[:, cols_in] & Ac
+        restore = np.zeros_like(U)
+        if old_clip.any():
+            with np.errstate(invalid="ignore"):
+                wv = fit.var_pred / (S2c + excess2[cols_in])
+                t_old = np.abs(Yc - fit.M - fit.z[:, None] - center) / np.sqrt(S2c * (1.0 + wv)) / rob
+            restore = old_clip & np.isfinite(t_old) & (t_old < _RESTORE_FRACTION * settings.clip_sigma)
+        # Excess so that each star's reduced chi-square (with the hat-matrix dof) is one, from
+        # the exposures without a newly found outlier (its pull on the zero point would inflate
+        # the excess of every star measured there).
+        clean_rows = ~new_clip.any(axis=1)[:, None]
+        dof_clean = np.where(clean_rows, one_minus_h, 0.0).sum(axis=0)
+        new_excess2 = _solve_excess(np.where(clean_rows, R2, 0.0), s2_c, dof_clean, excess2[cols_in])
+        new_excess2 = np.where(dof_clean >= 1.0, new_excess2, excess2[cols_in])
+        n_new_clips = int(np.count_nonzero(new_clip)) + int(np.count_nonzero(restore))
         if n_new_clips:
-            clipped[:, cols_in] |= new_clip
+            sub = clipped[:, cols_in]
+            clipped[:, cols_in] = (sub | new_clip) & ~restore
+            pair = pair_clipped[:, cols_in]
+            pair[r_two] |= U[r_two]
+            pair_clipped[:, cols_in] = pair & clipped[:, cols_in]
         relink = n_new_clips > 0
-        delta = np.max(np.abs(np.sqrt(new_excess2) - np.sqrt(excess2[cols_in])))
+        n_used_c = np.maximum(U.sum(axis=0), 1)
+        typical_s2 = np.where(U, S2c, 0.0).sum(axis=0) / n_used_c
+        eff_old = np.sqrt(typical_s2 + excess2[cols_in])
+        delta = float(np.max(np.abs(np.sqrt(typical_s2 + new_excess2) - eff_old) / eff_old))
         excess2[cols_in] = new_excess2
         excess2[~infit] = 0.0
-        # reported-error chi-square of each fitted star
-        chi2[:] = np.nan
-        dof[:] = np.nan
-        chi2[cols_in] = (R2 / s2_c).sum(axis=0)
-        dof[cols_in] = dof_c
-        if n_new_clips or delta > _EXCESS_TOL:
+        if n_new_clips or delta > _EXCESS_RTOL or kappa_moved:
             continue  # not yet stable: refit before judging the stars
         # ------------------------------------------------ variability test
-        red = chi2[cols_in] / np.where(dof_c > 0, dof_c, np.nan)
+        st = _star_vs_others(W, U, Yc, S2c, fit)
+        testable = st.dof >= 1.0
+        red = st.chi2 / np.where(testable, st.dof, np.nan)
         n_in = cols_in.size
         # common error scale: the ensemble median of chi2/dof, never below one, so that globally
         # underestimated errors do not reject everybody while a chance low median (few stars,
         # short night) cannot make the test stricter than the reported errors
-        error_scale = float(np.nanmedian(red)) if n_in >= 3 else 1.0
-        if not np.isfinite(error_scale):
-            error_scale = 1.0
+        red_ok = red[testable]
+        error_scale = float(np.median(red_ok)) if n_in >= 3 and red_ok.size else 1.0
         error_scale = max(error_scale, 1.0)
-        excess_scaled = np.sqrt(_solve_excess(R2, error_scale * s2_c, dof_c))
-        stat = chi2[cols_in] / error_scale
+        excess_scaled = np.sqrt(_solve_excess(st.r2, error_scale * st.V, np.where(testable, st.dof, 0.0)))
+        stat = st.chi2 / error_scale
         with np.errstate(all="ignore"):
-            logp = np.where(dof_c > 0, stats.chi2.logsf(stat, np.maximum(dof_c, 1e-12)), 0.0)
-        n_clip_star = (clipped[:, cols_in] & avail[:, cols_in]).sum(axis=0)
-        n_star_pts = (avail[:, cols_in]).sum(axis=0)
-        clip_bad = (n_clip_star >= 3) & (n_clip_star > settings.max_clipped_fraction * n_star_pts)
+            logp = np.where(testable, stats.chi2.logsf(stat, np.maximum(st.dof, 1.0)), 0.0)
+        # clips that only reflect two stars disagreeing in one exposure do not count against either
+        n_clip_star = (clipped[:, cols_in] & ~pair_clipped[:, cols_in] & Ac).sum(axis=0)
+        n_star_pts = Ac.sum(axis=0)
+        clip_bad = (n_clip_star >= _MIN_CLIPS_VARIABLE) & (n_clip_star > settings.max_clipped_fraction * n_star_pts)
         chi_bad = (logp < math.log(settings.variable_p_value)) & (excess_scaled > settings.variable_min_excess)
         # rank by evidence: -ln p of the chi-square test; a run of 5-sigma outliers scores
         # roughly -ln p of that many Gaussian tail events (about 14 each)
@@ -884,34 +1051,33 @@ def solve_ensemble(
             labels_ = " and ".join(_label(int(comp_idx[c]), names) for c in cols_in)
             pending_two_star = (
                 f"only two comparison stars ({labels_}) are in the ensemble and they disagree beyond their "
-                f"errors (chi2/dof {np.nanmax(red):.1f}); one of them may be variable but two stars cannot "
+                f"errors (chi2/dof {float(np.max(red_ok)) if red_ok.size else float('nan'):.1f}); one of them "
+                f"may be variable but two stars cannot "
                 f"tell which: add comparison stars"
             )
             converged = True
             break
-        order = np.argsort(-score)
         rejected = False
-        for o in order:
-            if not bad[o]:
-                break
+        for o in [int(np.argmax(score))]:
             c = cols_in[o]
             gi = int(comp_idx[c])
             remaining_cat = has_cat[comp_idx[cols_in]].copy()
             remaining_cat[o] = False
             if not np.any(remaining_cat):
-                if gi not in protected_warned:
-                    protected_warned.add(gi)
-                    warnings.append(
-                        f"{_label(gi, names)} looks variable but is the last comparison star with a catalogue "
-                        f"magnitude; it was kept for the tie to the catalogue"
-                    )
-                continue
+                # the worst star cannot go; rejecting others it pollutes would be wrong, so stop
+                warnings.append(
+                    f"{_label(gi, names)} looks variable but is the last comparison star with a catalogue "
+                    f"magnitude; it was kept for the tie to the catalogue: add comparison stars with "
+                    f"catalogue magnitudes"
+                )
+                break
             infit[c] = False
             status[gi] = "variable"
             scale_txt = f", ensemble error scale {error_scale:.2f}" if n_in >= 3 else ""
             if chi_bad[o]:
-                rms = math.sqrt(float(R2[:, o].sum() / max(n_inf[o], 1)))
-                expected = math.sqrt(float((s2_c[:, o] * one_minus_h[:, o]).sum() / max(dof_c[o], 1e-12)) * error_scale)
+                n_o = max(int(st.mask[:, o].sum()), 1)
+                rms = math.sqrt(float(st.r2[:, o].sum()) / n_o)
+                expected = math.sqrt(float(np.where(st.mask[:, o], st.V[:, o], 0.0).sum()) / n_o * error_scale)
                 lp10 = float(logp[o]) / math.log(10.0)
                 p_txt = "p<1e-30" if lp10 < -30 else f"p={10.0**lp10:.1e}"
                 reason[gi] = (
@@ -928,8 +1094,12 @@ def solve_ensemble(
         if not rejected:
             converged = True
             break
-        # a variable star polluted the zero points: judge every measurement afresh
-        clipped[:] = False
+        # The rejected star's clips no longer matter; clips of the others that it caused are
+        # undone by the restoration test in the next iterations, except pair clips (where
+        # the two comparisons of an exposure disagreed), which are judged afresh.
+        clipped[:, ~infit] = False
+        clipped &= ~pair_clipped
+        pair_clipped[:] = False
         relink = True
     if not converged:
         warnings.append(
@@ -945,13 +1115,14 @@ def solve_ensemble(
     clipped &= infit[None, :]
     U = used[:, cols_in]
     W = np.where(U, 1.0 / (S2[:, cols_in] + excess2[cols_in][None, :]), 0.0)
-    fit = _solve_weighted(W, np.where(U, Y[:, cols_in], 0.0))
+    if fit_kappa:
+        fit0 = _solve_weighted(W, np.where(U, Y[:, cols_in], 0.0))
+        R0 = np.where(U, Y[:, cols_in] - fit0.M - np.nan_to_num(fit0.z)[:, None], 0.0)
+        kappa, kappa_err = _colour_step(W, U, D[:, cols_in], R0)
+    Yk = Y[:, cols_in] - kappa * D[:, cols_in]
+    fit = _solve_weighted(W, np.where(U, Yk, 0.0))
     iterations += 1
-    R = np.where(U, Y[:, cols_in] - fit.M[None, :] - np.nan_to_num(fit.z)[:, None], 0.0)
-    h = np.where(U, W * fit.var_pred, 0.0)
-    one_minus_h = np.where(U, np.clip(1.0 - h, 0.0, 1.0), 0.0)
-    dof_c = one_minus_h.sum(axis=0)
-    chi2_c = np.where(U & (one_minus_h > _HAT_ONE), R**2 / S2[:, cols_in], 0.0).sum(axis=0)
+    st = _star_vs_others(W, U, Yk, S2[:, cols_in], fit)
 
     # ---------------------------------------------------------------- tie to the catalogue
     gi_in = comp_idx[cols_in]
@@ -991,6 +1162,11 @@ def solve_ensemble(
             f"(robust sigma {sig_rob:.3f} mag; limit {thr[o]:.3f} mag); kept for the zero points, not for the tie"
         )
     n_tie = int(np.count_nonzero(tie))
+    if n_tie == 0:
+        raise ReductionError(
+            "no comparison star with a catalogue magnitude is left in the ensemble: the night cannot be "
+            "tied to the catalogue; add comparison stars with catalogue magnitudes"
+        )
     if n_tie == 1:
         warnings.append(
             "only one comparison star with a catalogue magnitude is in the tie: calibration_err rests on its "
@@ -1012,6 +1188,11 @@ def solve_ensemble(
     zero_point = np.where(fit.Wj > 0, zero_point, np.nan)
     zero_point_err = np.where(fit.Wj > 0, zero_point_err, np.nan)
     calibration_err = math.sqrt(float(np.sum(ubar**2 * (cat_err[gi_in] ** 2 + s_cat2) * tie)))
+    if s_cat2 > 0 and n_tie >= 2:
+        # the catalogue scatter was estimated from the n_tie offsets themselves: the tie then
+        # follows Student's t with n_tie - 1 degrees of freedom, so widen the error to the
+        # t quantile that contains 68.27% (the "1 sigma" of a normal distribution)
+        calibration_err *= float(stats.t.ppf(_ONE_SIGMA_QUANTILE, n_tie - 1))
 
     # ---------------------------------------------------------------- per measurement
     zp_m = zero_point[exposure]
@@ -1028,8 +1209,7 @@ def solve_ensemble(
     star_chi2 = np.full(n_star, np.nan)
     star_offset[gi_in] = M_t - delta_tie - cat[gi_in]
     star_excess[gi_in] = np.sqrt(excess2[cols_in])
-    with np.errstate(invalid="ignore", divide="ignore"):
-        star_chi2[gi_in] = chi2_c / dof_c
+    star_chi2[gi_in] = np.where(st.dof >= 1.0, st.chi2 / np.maximum(st.dof, 1.0), np.nan)
     other = np.ones(n_star, dtype=bool)
     other[gi_in] = False
     valid = other[star] & good_arr & np.isfinite(cal) & np.isfinite(cal_err) & (cal_err > 0)
@@ -1096,4 +1276,7 @@ def solve_ensemble(
         converged=converged,
         warnings=tuple(warnings),
         settings=settings,
+        colour_extinction=kappa if fit_kappa else float("nan"),
+        colour_extinction_err=kappa_err if fit_kappa else float("nan"),
+        colour_reference=c_ref,
     )

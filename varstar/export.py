@@ -95,3 +95,23 @@ def lightcurve_table(lc: pd.DataFrame) -> pd.DataFrame:
     for c in ("bjd_tdb", "hjd_utc", "jd_utc"):
         out[c] = out[c].map(lambda v: f"{v:.8f}" if np.isfinite(v) else "")
     return out
+
+
+_RESERVED = {"CON", "PRN", "AUX", "NUL", *(f"COM{i}" for i in range(1, 10)), *(f"LPT{i}" for i in range(1, 10))}
+
+
+def safe_filename(text: str, default: str = "target") -> str:
+    """A file-name stem derived from free text (e.g. a target name).
+
+    Keeps letters, digits, ``-``, ``_`` and ``.``; everything else (path
+    separators, control characters, spaces) becomes ``_``.  Never returns
+    ``.``/``..``-style names, hidden names or reserved device names.
+    """
+    import re
+    import unicodedata
+
+    norm = unicodedata.normalize("NFKD", text).encode("ascii", "ignore").decode("ascii")
+    stem = re.sub(r"[^A-Za-z0-9._-]+", "_", norm).strip("._-")[:80].strip("._-")
+    if not stem or stem.split(".")[0].upper() in _RESERVED:
+        stem = f"{default}_{stem}" if stem else default
+    return stem

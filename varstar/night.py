@@ -70,6 +70,8 @@ def settings_from_target(target: Target) -> EnsembleSettings:
     known = {f.name: f for f in dataclasses.fields(EnsembleSettings)}
     kw: dict[str, Any] = {}
     for key, val in table.items():
+        if key == "exclude":
+            continue
         if key not in known:
             raise InputError(f"{target.source}: [reduction].{key} is not a setting (known: {', '.join(sorted(known))})")
         default = getattr(EnsembleSettings(), key)
@@ -79,6 +81,18 @@ def settings_from_target(target: Target) -> EnsembleSettings:
             raise InputError(f"{target.source}: [reduction].{key} must be positive, got {val}")
         kw[key] = val
     return EnsembleSettings(**kw)
+
+
+def excluded_stars(target: Target) -> tuple[str, ...]:
+    """Comparison stars the observer keeps out of every ensemble (``[reduction] exclude``)."""
+    table = target.extra.get("reduction", {})
+    names = table.get("exclude", []) if isinstance(table, dict) else []
+    if not isinstance(names, list) or not all(isinstance(n, str) for n in names):
+        raise InputError(f"{target.source}: [reduction].exclude must be a list of star ids, e.g. [\"C4\"]")
+    for n in names:
+        if n not in target.star_ids or target.star(n).role != "comparison":
+            raise InputError(f"{target.source}: [reduction].exclude names '{n}', which is not a comparison star")
+    return tuple(names)
 
 
 def split_nights(target: Target, table: pd.DataFrame) -> dict[str, pd.DataFrame]:
@@ -162,11 +176,15 @@ def reduce_night(
     mag_cal = np.full(len(table), np.nan)
     err_cal = np.full(len(table), np.nan)
     star_idx = pd.Index(star_ids).get_indexer(table["star"])
-    is_comp = roles == "comparison"
+    excluded = excluded_stars(target)
+    is_comp = (roles == "comparison") & ~np.isin(star_ids, excluded)
     comp_rows = []
     band_reports: dict[str, Any] = {}
     exp_band = exp["band"].to_numpy()
 
+    # Catalogue colour of each star for the ensemble's colour-extinction term (B - V
+    # when the catalogue has both; any colour index serves as the regressor).
+    colour = np.array([s.catalog["B"] - s.catalog["V"] if {"B", "V"} <= set(s.catalog) else np.nan for s in target.stars])
     for band in sorted(pd.unique(exp["band"])):
         in_band = np.flatnonzero(exp_band == band)  # global exposure indices, time order
         local = np.full(n_exp, -1)
@@ -187,6 +205,8 @@ def reduce_night(
             airmass=airmass[in_band],
             good=(table["flag"].to_numpy()[rows] == 0) & np.isfinite(table["mag"].to_numpy()[rows]),
             settings=settings,
+            star_names=star_ids,
+            colour=colour,
         )
         zp[in_band] = sol.zero_point
         zp_err[in_band] = sol.zero_point_err
@@ -196,13 +216,14 @@ def reduce_night(
         mag_cal[rows] = sol.mag
         err_cal[rows] = sol.mag_err
         for i, sid in enumerate(star_ids):
-            if is_comp[i]:
+            if roles[i] == "comparison":
+                out = sid in excluded
                 comp_rows.append(
                     {
                         "band": band,
                         "star": sid,
-                        "status": sol.star_status[i],
-                        "reason": sol.star_reason[i],
+                        "status": "excluded" if out else sol.star_status[i],
+                        "reason": "excluded by [reduction] exclude in the target file" if out else sol.star_reason[i],
                         "offset": float(sol.star_offset[i]),
                         "excess": float(sol.star_excess[i]),
                         "chi2_dof": float(sol.star_chi2_dof[i]),
@@ -232,7 +253,7 @@ def reduce_night(
 
     from .archive.layout import QUALITY_EXPOSURE_FLAGGED, QUALITY_NO_ZERO_POINT, QUALITY_UPSTREAM_FLAG
 
-    measured = ~is_comp[star_idx] & np.isfinite(table["mag"].to_numpy())
+    measured = (roles[star_idx] != "comparison") & np.isfinite(table["mag"].to_numpy())
     e_rows = exposure_of_row[measured]
     quality = (
         np.where(flags[e_rows] != "", QUALITY_EXPOSURE_FLAGGED, 0)
@@ -354,7 +375,7 @@ def ingest(
     blobs = [(Path(p), read_bytes(Path(p))) for p in files]
     hashes = [hashlib.sha256(b).hexdigest() for _, b in blobs]
     with arch._open() as f:
-        known = dict(zip(tables.read(f, "sources", ["sha256"])["sha256"], tables.read(f, "sources", ["night"])["night"]))
+        known = set(tables.read(f, "sources", ["sha256"])["sha256"])
         labels_before = set(tables.read(f, "nights", ["label"])["label"])
     skipped, fresh = [], []
     seen_here: set[str] = set()
@@ -382,6 +403,7 @@ def ingest(
                 f"or take the night out first with 'varstar remove-night'"
             )
     reductions = [reduce_night(target, t, settings, label=lab) for lab, t in sorted(nights.items())]
+    _add_history_notes(arch.comparisons(), reductions)
     sha_of = {str(p): h for p, _, h in fresh}
 
     with transaction(arch.path, timeout_s=timeout_s) as f:
@@ -394,6 +416,32 @@ def ingest(
         for red in reductions:
             _write_night(f, red, sha_of, utc_now())
     return IngestResult(str(arch.path), tuple(r.report for r in reductions), tuple(skipped))
+
+
+def _add_history_notes(history: pd.DataFrame, reductions: Sequence[NightReduction]) -> None:
+    """Warn when a comparison star kept tonight was found variable on earlier nights.
+
+    A slowly varying comparison star may pass one night's test (near an
+    extremum its magnitude hardly changes within a few hours) while its mean
+    is off; the observer should decide to exclude it for good.
+    """
+    seen: dict[str, set[str]] = {}
+    for r in history.itertuples():
+        if r.status == "variable":
+            seen.setdefault(str(r.star), set()).add(str(r.night_label))
+    for red in reductions:
+        kept = set(red.comparisons.loc[red.comparisons["status"] == "kept", "star"])
+        for star in sorted(kept):
+            earlier = seen.get(star, set())
+            if len(earlier) >= 2:
+                red.report["warnings"].append(
+                    f"comparison star {star} passed tonight's test but was found variable on {len(earlier)} earlier "
+                    f"night(s) (latest: {', '.join(sorted(earlier)[-3:])}); if it is variable, keep it out of every ensemble "
+                    f"with [reduction] exclude = [\"{star}\"] in the target file"
+                )
+        for r in red.comparisons.itertuples():
+            if r.status == "variable":
+                seen.setdefault(str(r.star), set()).add(red.label)
 
 
 def _write_night(f, red: NightReduction, sha_of: Mapping[str, str], now: str) -> None:

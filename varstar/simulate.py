@@ -831,7 +831,9 @@ def simulate(scenario: Scenario, rng_or_seed: int | np.random.Generator | None =
             raise InputError(f"scenario night {evenings[i]}: no exposure fits in the observing window")
         et = exposure_times(jd[m], scenario.ra_deg, scenario.dec_deg, scenario.latitude_deg,
                             scenario.longitude_deg, scenario.elevation_m)
-        bjd[m], airmass[m], altitude[m] = et.bjd_tdb, et.airmass, et.altitude_deg
+        # Use the values at the precision the files print them, so that the truth
+        # files hold exactly what the physics used.
+        bjd[m], airmass[m], altitude[m] = np.round(et.bjd_tdb, 6), np.round(et.airmass, 4), et.altitude_deg
         labels = night_label(jd[m], scenario.longitude_deg)
         if not np.all(labels == evenings[i]):
             raise InputError(f"scenario night {evenings[i]}: exposures fall on night {labels[0]}; check the date")
@@ -986,6 +988,7 @@ def simulate(scenario: Scenario, rng_or_seed: int | np.random.Generator | None =
             "k1": rep(k1_exp),
             "zero_point": rep(zero_point),
             "fwhm_arcsec": rep(fwhm_arcsec),
+            "peak_e": peak.ravel(),
             "mag_inst_true": mag_inst_true.ravel(),
             "n_star_e": n_star_e.ravel(),
             "sigma_ccd_mag": (POGSON_K * sigma_ccd_e / n_star_e).ravel(),
@@ -1221,6 +1224,8 @@ def synthetic_night(
     mag = flux_to_mag(n_meas / t)
     mag_err = mag_err_from_snr(ccd_snr(n_meas, tel.n_pix, tel.n_background_px, sky_px, dark_px, tel.read_noise_e))
     flag = (rng.random((n_frames, n_stars)) < flag_fraction).astype(np.int64)
+    # A flagged measurement is bad: here clipped (saturated-like), fainter by 0.02-0.3 mag.
+    mag = np.where(flag == 1, mag + rng.uniform(0.02, 0.3, flag.shape), mag)
     keep = (rng.random((n_frames, n_stars)) >= missing_fraction).ravel()
 
     # --- table --------------------------------------------------------------------

@@ -234,7 +234,7 @@ def parse_target(text: str, source: str = "<string>") -> Target:
         raise InputError(f"{source}: exactly one star must have role = \"target\", found {n_target}")
     comps = [s for s in stars if s.role == "comparison"]
     if len(comps) < 2:
-        raise InputError(f"{source}: at least two comparison stars are needed, found {len(comps)}")
+        raise InputError(f"{source}: at least two [[stars]] with role = \"comparison\" are needed, found {len(comps)}")
     if not any(s.catalog for s in comps):
         raise InputError(f"{source}: no comparison star has a catalogue magnitude (e.g. V = 12.10)")
 
