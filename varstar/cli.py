@@ -141,8 +141,14 @@ def cmd_plot(args: argparse.Namespace) -> int:
     from .archive import open_archive
     from .plots import lightcurve_figure, save
 
+    from .errors import ArchiveError
+
     arch = open_archive(args.archive)
     lc = arch.lightcurve(band=args.band, star=args.star, include_flagged=args.show_flagged)
+    if args.night:
+        if args.night not in set(arch.nights()["label"]):
+            raise ArchiveError(f"{arch.path}: no night '{args.night}' (see 'varstar summary')")
+        lc = lc[lc["night"] == args.night]
     fig = lightcurve_figure(lc, title=f"{arch.target.name} — {lc['star'].iloc[0] if len(lc) else ''}", show_flagged=args.show_flagged)
     save(fig, args.output)
     _emit(args, {"plot": str(args.output), "n_points": int(len(lc))}, f"wrote {args.output} ({len(lc)} points)")
@@ -206,6 +212,7 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("-o", "--output", type=Path, default=Path("lightcurve.png"), help="image file (png, pdf, svg)")
     sp.add_argument("--band", help="only this band")
     sp.add_argument("--star", help="star id (default: the target)")
+    sp.add_argument("--night", help="only this night (evening date, YYYY-MM-DD)")
     sp.add_argument("--show-flagged", action="store_true", help="also draw flagged points, hollow and grey")
 
     sp = add("export", cmd_export, "write the light curve as neutral CSV, one observation a row")

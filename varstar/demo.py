@@ -78,11 +78,18 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
     lc = arch.lightcurve(include_flagged=True)
     plot = folder / "lightcurve.png"
     save(lightcurve_figure(lc, title=f"{target.name}: {target.target_star.id}", show_flagged=True), plot)
+    files = [archive, plot]
+    nights_df = arch.nights()
+    if int(nights_df["n_flagged"].max()) > 0:  # zoom on the night with passing clouds
+        label = str(nights_df.loc[nights_df["n_flagged"].idxmax(), "label"])
+        zoom = folder / f"night-{label}.png"
+        save(lightcurve_figure(lc[lc["night"] == label], title=f"{target.name}: {target.target_star.id}, night {label}", show_flagged=True), zoom)
+        files.append(zoom)
     csv = write_csv(lightcurve_table(arch.lightcurve()), folder / "observations.csv")
     js = write_atomic(folder / "summary.json", (to_json(summary, indent=2) + "\n").encode("utf-8"))
     return {
         "folder": str(folder),
-        "files": [str(archive), str(plot), str(csv), str(js)],
+        "files": [str(p) for p in (*files, csv, js)],
         "nights": [r["night"] for r in reports],
         "summary": summary,
     }

@@ -28,8 +28,11 @@ def _figure(n_panels: int, width: float = 9.0, height_per: float = 3.2) -> "Figu
 
 
 def _time_offset(t: np.ndarray) -> float:
-    """A round offset (multiple of 100 d) to subtract from BJD on an axis."""
-    return float(np.floor(np.nanmin(t) / 100.0) * 100.0) if t.size else 0.0
+    """A round offset to subtract from BJD on an axis (whole days for a short span, else hundreds)."""
+    if not t.size:
+        return 0.0
+    lo, hi = float(np.nanmin(t)), float(np.nanmax(t))
+    return float(np.floor(lo)) if hi - lo < 5.0 else float(np.floor(lo / 100.0) * 100.0)
 
 
 def lightcurve_figure(lc: pd.DataFrame, *, title: str = "", show_flagged: bool = False) -> "Figure":
