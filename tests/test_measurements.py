@@ -113,3 +113,15 @@ def test_read_several_files_prefixes_frames(tmp_path):
     assert t["frame"].nunique() == 4  # f1, f2 in each file, kept apart
     with pytest.raises(InputError, match="file not found"):
         read_measurements(tmp_path / "missing.csv", IDS)
+
+
+def test_fast_and_text_paths_agree():
+    # A clean long table is read with pandas' float parser; one empty optional cell
+    # sends the whole table through the text path.  Both must give the same values.
+    clean = b"jd,band,star,mag,mag_err,airmass\n2461000.6, V ,T, -1.2345678901,0.005 ,1.234\n2461000.6,V,C1,-2.0,0.004,1.234\n"
+    holey = clean.replace(b",1.234\n2461000.6,V,C1", b",\n2461000.6,V,C1").replace(b"0.004,1.234", b"0.004,")
+    a, b = parse(clean), parse(holey)
+    for col in ("jd", "band", "star", "mag", "mag_err", "frame"):
+        assert a[col].tolist() == b[col].tolist(), col
+    assert a["mag"].iloc[0] == -1.2345678901 and a["band"].iloc[0] == "V"
+    assert a["airmass"].tolist() == [1.234, 1.234] and np.isnan(b["airmass"]).all()

@@ -19,6 +19,8 @@ from .errors import OutputError
 def _new_folder(out: Path | None) -> Path:
     if out is not None:
         out = Path(out)
+        if out.exists() and not out.is_dir():
+            raise OutputError(f"{out}: is a file, not a folder; choose another --out")
         if out.exists() and any(out.iterdir()):
             raise OutputError(f"{out}: folder exists and is not empty; choose another --out")
         try:

@@ -53,6 +53,7 @@ from dataclasses import asdict, dataclass, field
 from typing import Any, Sequence
 
 import numpy as np
+from scipy import special
 
 from varstar.errors import InputError, ReductionError
 
@@ -422,6 +423,22 @@ def _solve_weighted(W: np.ndarray, Y: np.ndarray) -> _Fit:
     var_z = inv_Wj + pcp
     var_pred = np.diag(CM)[None, :] + var_z[:, None] - 2.0 * PC
     return _Fit(M=M, z=z, CM=CM, P=P, Wj=Wj, var_pred=var_pred)
+
+
+def _chi2_logsf(x: np.ndarray, dof: np.ndarray) -> np.ndarray:
+    """Natural log of the chi-square survival function, finite far into the tail.
+
+    ``scipy.special.gammaincc`` gives Q(k/2, x/2); where it underflows the
+    leading term of its asymptotic series, Q(a, y) ~ y^(a-1) e^(-y) / Gamma(a)
+    (Abramowitz & Stegun 6.5.32), is used instead.  (``scipy.special`` rather
+    than ``scipy.stats``: the latter costs most of a second to import.)
+    """
+    a = 0.5 * np.asarray(dof, dtype=float)
+    y = 0.5 * np.asarray(x, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        q = special.gammaincc(a, y)
+        tail = (a - 1.0) * np.log(y) - y - special.gammaln(a)
+        return np.where(q > 1e-290, np.log(q), tail)
 
 
 def _colour_step(W: np.ndarray, U: np.ndarray, Dc: np.ndarray, R: np.ndarray) -> tuple[float, float]:
@@ -926,7 +943,6 @@ def solve_ensemble(
             D = np.nan_to_num(airmass)[:, None] * np.where(has_col, col - c_ref, 0.0)[None, :]
 
     # ---------------------------------------------------------------- iterate
-    from scipy import stats
 
     clipped = np.zeros((n_exp, k_all), dtype=bool)
     pair_clipped = np.zeros((n_exp, k_all), dtype=bool)  # clipped only because two disagreed
@@ -1033,7 +1049,7 @@ def solve_ensemble(
         excess_scaled = np.sqrt(_solve_excess(st.r2, error_scale * st.V, np.where(testable, st.dof, 0.0)))
         stat = st.chi2 / error_scale
         with np.errstate(all="ignore"):
-            logp = np.where(testable, stats.chi2.logsf(stat, np.maximum(st.dof, 1.0)), 0.0)
+            logp = np.where(testable, _chi2_logsf(stat, np.maximum(st.dof, 1.0)), 0.0)
         # clips that only reflect two stars disagreeing in one exposure do not count against either
         n_clip_star = (clipped[:, cols_in] & ~pair_clipped[:, cols_in] & Ac).sum(axis=0)
         n_star_pts = Ac.sum(axis=0)
@@ -1192,7 +1208,7 @@ def solve_ensemble(
         # the catalogue scatter was estimated from the n_tie offsets themselves: the tie then
         # follows Student's t with n_tie - 1 degrees of freedom, so widen the error to the
         # t quantile that contains 68.27% (the "1 sigma" of a normal distribution)
-        calibration_err *= float(stats.t.ppf(_ONE_SIGMA_QUANTILE, n_tie - 1))
+        calibration_err *= float(special.stdtrit(n_tie - 1, _ONE_SIGMA_QUANTILE))
 
     # ---------------------------------------------------------------- per measurement
     zp_m = zero_point[exposure]

@@ -35,7 +35,7 @@ def plain(obj: Any) -> Any:
     if isinstance(obj, (list, tuple)):
         return [plain(v) for v in obj]
     if isinstance(obj, np.ndarray):
-        return [plain(v) for v in obj.tolist()]
+        return plain(obj.tolist())
     if isinstance(obj, (np.bool_, bool)):
         return bool(obj)
     if isinstance(obj, (np.integer,)):

@@ -15,6 +15,7 @@ and blank lines are ignored; every error names the file and the line.
 from __future__ import annotations
 
 import io
+import re
 from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
 
@@ -44,8 +45,14 @@ def _fail(source: str, line: int | None, msg: str) -> InputError:
     return InputError(f"{where}: {msg}")
 
 
-def _split_lines(text: str) -> tuple[list[str], list[int]]:
-    """Keep non-blank, non-comment lines with their 1-based line numbers."""
+_SKIPPED_LINE = re.compile(r"^[ \t\r]*(#|$)", re.M)
+
+
+def _split_lines(text: str) -> tuple[str, np.ndarray]:
+    """Drop blank and comment lines; return the rest and their 1-based line numbers."""
+    body = text[:-1] if text.endswith("\n") else text
+    if not _SKIPPED_LINE.search(body):  # the common case: nothing to drop
+        return body, np.arange(1, body.count("\n") + 2)
     kept, numbers = [], []
     for k, ln in enumerate(text.splitlines(), start=1):
         s = ln.strip()
@@ -53,22 +60,34 @@ def _split_lines(text: str) -> tuple[list[str], list[int]]:
             continue
         kept.append(ln)
         numbers.append(k)
-    return kept, numbers
+    return "\n".join(kept), np.asarray(numbers, dtype=np.int64)
 
 
 def _numeric(df: pd.DataFrame, col: str, lines: np.ndarray, source: str, *, allow_empty: bool) -> np.ndarray:
     raw = df[col]
-    txt = raw.astype("string").str.strip()
-    empty = txt.isna() | (txt == "")
-    vals = pd.to_numeric(txt.where(~empty, None), errors="coerce").to_numpy(dtype=float, na_value=np.nan)
-    bad = (~empty.to_numpy()) & ~np.isfinite(vals)
-    if bad.any():
-        i = int(np.flatnonzero(bad)[0])
-        raise _fail(source, int(lines[i]), f"column '{col}': {txt.iloc[i]!r} is not a finite number")
-    if not allow_empty and empty.any():
-        i = int(np.flatnonzero(empty.to_numpy())[0])
-        raise _fail(source, int(lines[i]), f"column '{col}' is empty")
+    # Fast path: parse everything at once; look closer only at what did not parse
+    # into a finite number (empty cells, padded text, "nan", words).
+    vals = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float, na_value=np.nan, copy=True)
+    odd = np.flatnonzero(~np.isfinite(vals))
+    if odd.size:
+        txt = raw.iloc[odd].astype(str).str.strip()
+        empty = (txt == "").to_numpy()
+        again = pd.to_numeric(txt.where(~empty, None), errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+        vals[odd] = again
+        bad = ~empty & ~np.isfinite(again)
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise _fail(source, int(lines[odd[i]]), f"column '{col}': {txt.iloc[i]!r} is not a finite number")
+        if not allow_empty and empty.any():
+            i = int(np.flatnonzero(empty)[0])
+            raise _fail(source, int(lines[odd[i]]), f"column '{col}' is empty")
     return vals
+
+
+def _stripped(col: pd.Series) -> np.ndarray:
+    """Text column with surrounding blanks removed (stripping each distinct value once)."""
+    codes, uniq = pd.factorize(col.astype(str))
+    return np.asarray([u.strip() for u in uniq], dtype=object)[codes]
 
 
 def _check_range(vals: np.ndarray, lines: np.ndarray, source: str, col: str, lo: float, hi: float, hint: str = "") -> None:
@@ -84,6 +103,38 @@ def _jd_hint(vals: np.ndarray) -> str:
     if v.size and np.median(v) < 100_000:
         return " (it looks like a reduced or modified JD: give the full Julian Date, e.g. MJD + 2400000.5)"
     return ""
+
+
+_LONG_NUMERIC = ("jd", "mag", "mag_err", "airmass", "exptime", "flag")
+
+
+def _read_csv(body: str, source: str, columns: Mapping[str, str] | None) -> pd.DataFrame:
+    """Read the table; numbers are parsed by pandas' C reader when that is safe.
+
+    The fast path reads a long-form table's numeric columns as floats.  If any
+    of them is not a plain finite number everywhere (an empty cell, text), the
+    table is read again as text, so that validation can tell an empty cell from
+    a bad one and name its line.
+    """
+    def as_text() -> pd.DataFrame:
+        try:
+            return pd.read_csv(io.StringIO(body), dtype=str, keep_default_na=False, skipinitialspace=True)
+        except (pd.errors.ParserError, ValueError) as exc:
+            raise _fail(source, None, f"cannot read as CSV: {str(exc).strip()}") from None
+
+    header = [h.strip() for h in body.split("\n", 1)[0].split(",")]
+    ours = {theirs: mine for mine, theirs in (columns or {}).items()}
+    named = [ours.get(h, h) for h in header]
+    if "star" not in named or len(set(header)) != len(header):
+        return as_text()
+    numeric = {h: float for h, n in zip(header, named) if n in _LONG_NUMERIC}
+    try:
+        df = pd.read_csv(io.StringIO(body), dtype={h: (numeric.get(h, str)) for h in header}, skipinitialspace=True, keep_default_na=False, na_values={h: [""] for h in numeric})
+    except (pd.errors.ParserError, ValueError, TypeError):
+        return as_text()
+    if not all(np.isfinite(df[h].to_numpy()).all() for h in numeric):
+        return as_text()
+    return df
 
 
 def parse_measurements(
@@ -122,15 +173,12 @@ def parse_measurements(
         raise _fail(source, None, f"not UTF-8 text (bad byte at offset {exc.start})") from None
     if "\x00" in text:
         raise _fail(source, None, "contains NUL bytes: not a text table")
-    kept, numbers = _split_lines(text)
-    if not kept:
+    body, numbers = _split_lines(text)
+    if not body.strip():
         raise _fail(source, None, "empty table (no header line)")
-    try:
-        df = pd.read_csv(io.StringIO("\n".join(kept)), dtype=str, keep_default_na=False, skipinitialspace=True)
-    except (pd.errors.ParserError, ValueError) as exc:
-        raise _fail(source, None, f"cannot read as CSV: {str(exc).strip()}") from None
-    header_line = numbers[0]
-    lines = np.asarray(numbers[1:], dtype=np.int64)
+    df = _read_csv(body, source, columns)
+    header_line = int(numbers[0])
+    lines = numbers[1:]
     if len(df) != len(lines):  # pragma: no cover - read_csv keeps one row per line here
         raise _fail(source, None, "could not match rows to lines")
     df.columns = [str(c).strip() for c in df.columns]
@@ -204,15 +252,15 @@ def _wide_form(df: pd.DataFrame, lines: np.ndarray, source: str, header_line: in
 def _validate(df: pd.DataFrame, source: str, ids: list[str]) -> pd.DataFrame:
     lines = df["line"].to_numpy(dtype=np.int64)
     n = len(df)
-    band = df["band"].astype(str).str.strip()
+    band = _stripped(df["band"])
     if (band == "").any():
-        i = int(np.flatnonzero((band == "").to_numpy())[0])
+        i = int(np.flatnonzero(band == "")[0])
         raise _fail(source, int(lines[i]), "column 'band' is empty")
-    star = df["star"].astype(str).str.strip()
-    unknown = ~star.isin(ids)
+    star = _stripped(df["star"])
+    unknown = ~np.isin(star, ids)
     if unknown.any():
-        i = int(np.flatnonzero(unknown.to_numpy())[0])
-        raise _fail(source, int(lines[i]), f"unknown star id {star.iloc[i]!r} (the target file lists {', '.join(ids)})")
+        i = int(np.flatnonzero(unknown)[0])
+        raise _fail(source, int(lines[i]), f"unknown star id {star[i]!r} (the target file lists {', '.join(ids)})")
 
     jd = _numeric(df, "jd", lines, source, allow_empty=False)
     _check_range(jd, lines, source, "jd", JD_MIN, JD_MAX, _jd_hint(jd))
@@ -249,21 +297,22 @@ def _validate(df: pd.DataFrame, source: str, ids: list[str]) -> pd.DataFrame:
         raise _fail(source, int(lines[i]), f"column 'exptime': {exptime[i]:g} s is outside the plausible range (0, {EXPTIME_MAX_S:g}] s")
 
     if "frame" in df.columns:
-        frame = df["frame"].astype(str).str.strip()
+        frame = _stripped(df["frame"])
         if (frame == "").any():
-            i = int(np.flatnonzero((frame == "").to_numpy())[0])
+            i = int(np.flatnonzero(frame == "")[0])
             raise _fail(source, int(lines[i]), "column 'frame' is empty")
     else:
-        frame = pd.Series([f"{v:.6f}" for v in jd], index=df.index)
+        codes, uniq = pd.factorize(jd)
+        frame = np.asarray([f"{v:.6f}" for v in uniq], dtype=object)[codes]
 
     out = pd.DataFrame(
         {
             "source": source,
             "line": lines,
-            "frame": frame.to_numpy(dtype=object),
+            "frame": frame,
             "jd": jd,
-            "band": band.to_numpy(dtype=object),
-            "star": star.to_numpy(dtype=object),
+            "band": band,
+            "star": star,
             "mag": mag,
             "mag_err": err,
             "airmass": airmass,

@@ -142,8 +142,9 @@ def reduce_night(
     roles = np.array([s.role for s in target.stars])
 
     # Exposures: one per (frame, band), ordered by time.
-    key = table["frame"].astype(str) + "\x1f" + table["band"].astype(str)
-    codes, _ = pd.factorize(key)
+    frame_code, _ = pd.factorize(table["frame"])
+    band_code, band_names = pd.factorize(table["band"])
+    codes, _ = pd.factorize(frame_code * len(band_names) + band_code)
     _, first = np.unique(codes, return_index=True)
     exp = table.iloc[first][["frame", "band", "jd", "airmass", "exptime_s"]].reset_index(drop=True)
     order = np.argsort(exp["jd"].to_numpy(), kind="stable")
@@ -399,8 +400,8 @@ def ingest(
     for lab in nights:
         if lab in labels_before:
             raise InputError(
-                f"night {lab} is already in {arch.path}; ingest all files of a night together, "
-                f"or take the night out first with 'varstar remove-night'"
+                f"night {lab} is already in {arch.path}; ingest all files of a night together "
+                f"(the archive never changes a night once stored)"
             )
     reductions = [reduce_night(target, t, settings, label=lab) for lab, t in sorted(nights.items())]
     _add_history_notes(arch.comparisons(), reductions)

@@ -1227,6 +1227,8 @@ def synthetic_night(
     # A flagged measurement is bad: here clipped (saturated-like), fainter by 0.02-0.3 mag.
     mag = np.where(flag == 1, mag + rng.uniform(0.02, 0.3, flag.shape), mag)
     keep = (rng.random((n_frames, n_stars)) >= missing_fraction).ravel()
+    # Below a signal-to-noise of 5 the upstream photometry reports no measurement.
+    keep &= (mag_err <= mag_err_from_snr(5.0)).ravel()
 
     # --- table --------------------------------------------------------------------
     date = night_label(np.array([jd[0]]), longitude_deg)[0].replace("-", "")

@@ -9,6 +9,7 @@ here at the millisecond level at most).
 from __future__ import annotations
 
 import contextlib
+import functools
 import warnings
 from collections.abc import Iterator
 from dataclasses import dataclass
@@ -16,12 +17,21 @@ from dataclasses import dataclass
 import numpy as np
 
 # Spacing of the exact evaluations when a night has many exposures.  The
-# barycentric correction is smooth (annual term ~ 500 s, diurnal term ~ 20 ms),
-# so a cubic spline through nodes 15 minutes apart reproduces it to far below a
-# microsecond; astropy's own evaluation costs ~0.1 ms per time, which would be
+# barycentric correction is smooth (annual term ~ 500 s, diurnal term ~ 20 ms):
+# linear interpolation between nodes h apart errs by A (omega h)^2 / 8, under a
+# microsecond for h = 2 min, and the direction to the target (for airmass) by
+# ~1e-5 rad.  astropy's own evaluation costs ~0.1 ms per time, which would be
 # the largest cost of ingesting a long night.
-_NODE_SPACING_D = 15.0 / 1440.0
+_NODE_SPACING_D = 2.0 / 1440.0
 _EXACT_BELOW = 64
+
+
+@functools.lru_cache(maxsize=1)
+def _bundled_iers_a():
+    """The IERS-A table shipped with astropy, read once per process (it never changes)."""
+    from astropy.utils import iers
+
+    return iers.IERS_A.open(iers.IERS_A_FILE)
 
 
 @contextlib.contextmanager
@@ -38,6 +48,11 @@ def offline_astropy() -> Iterator[None]:
         iers.conf.set_temp("auto_max_age", None),
         iers.conf.set_temp("iers_degraded_accuracy", "ignore"),
         warnings.catch_warnings(),
+        # The bundled IERS-A table alone (1973 on, with predictions a year ahead):
+        # loading it takes a third of the time of the merged A+B table astropy
+        # would otherwise build on every start, and UT1 and polar motion change
+        # BJD by microseconds at most.
+        iers.earth_orientation_table.set(_bundled_iers_a()),
     ):
         warnings.filterwarnings("ignore", module="erfa")
         warnings.filterwarnings("ignore", message=".*(IERS|polar motion|leap.second|dubious year).*")
@@ -131,8 +146,6 @@ def exposure_times(
         built-in ephemeris).  HJD is in UTC, as it is traditionally quoted.
         Airmass is Hardie (1962) from the geometric altitude.
     """
-    from scipy.interpolate import CubicSpline
-
     jd = np.asarray(jd_utc, dtype=float)
     flat = jd.ravel()
     if flat.size == 0:
@@ -140,17 +153,17 @@ def exposure_times(
         return ExposureTimes(jd, empty, empty.copy(), empty.copy(), empty.copy())
     loc, coord = _location_and_coord(ra_deg, dec_deg, latitude_deg, longitude_deg, elevation_m)
     uniq, inverse = np.unique(flat, return_inverse=True)
+    span = uniq[-1] - uniq[0]
+    n_nodes = int(np.ceil(span / _NODE_SPACING_D)) + 1
     with offline_astropy():
-        span = uniq[-1] - uniq[0]
-        if uniq.size <= _EXACT_BELOW or span > 2.0:
+        if uniq.size <= max(_EXACT_BELOW, 2 * n_nodes) or span > 2.0:
             d_bary, d_helio, xyz = _exact(uniq, loc, coord)
         else:
-            n_nodes = max(8, int(np.ceil(span / _NODE_SPACING_D)) + 1)
             nodes = np.linspace(uniq[0], uniq[-1], n_nodes)
             bary_n, helio_n, xyz_n = _exact(nodes, loc, coord)
-            d_bary = CubicSpline(nodes, bary_n)(uniq)
-            d_helio = CubicSpline(nodes, helio_n)(uniq)
-            xyz = CubicSpline(nodes, xyz_n, axis=1)(uniq)
+            d_bary = np.interp(uniq, nodes, bary_n)
+            d_helio = np.interp(uniq, nodes, helio_n)
+            xyz = np.stack([np.interp(uniq, nodes, comp) for comp in xyz_n])
     alt = np.degrees(np.arctan2(xyz[2], np.hypot(xyz[0], xyz[1])))
     bjd = uniq + d_bary
     hjd = uniq + d_helio
