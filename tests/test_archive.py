@@ -158,3 +158,8 @@ def test_lightcurve_selection_and_errors(empty):
     s = arch.summary()
     assert s["bands"]["V"]["n_points"] == len(v)
     assert s["nights"][0]["label"] == "2026-09-19"
+
+
+def test_comparison_star_light_curve_is_refused_with_a_reason(empty):
+    with pytest.raises(ArchiveError, match="'C1' is a comparison star"):
+        varstar.open_archive(empty).lightcurve(star="C1")

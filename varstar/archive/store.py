@@ -153,10 +153,15 @@ class Archive:
             stars = tables.read(f, "stars", ["id"])["id"]
             bands = tables.read(f, "bands", ["name"])["name"]
             if star is None:
-                roles = tables.read(f, "stars", ["role"])["role"]
-                star = str(stars[list(roles).index("target")])
+                star = str(stars[list(tables.read(f, "stars", ["role"])["role"]).index("target")])
             if star not in stars:
                 raise ArchiveError(f"{self.path}: no star '{star}' (stars: {', '.join(stars)})")
+            roles = tables.read(f, "stars", ["role"])["role"]
+            if roles[list(stars).index(star)] == "comparison":
+                raise ArchiveError(
+                    f"{self.path}: '{star}' is a comparison star; light curves are kept for the target and "
+                    f"check stars (a comparison star's behaviour is in 'varstar report')"
+                )
             p = tables.read(f, "points")
             keep = p["star"] == list(stars).index(star)
             if band is not None:
