@@ -6,7 +6,8 @@ Usage::
 
 Writes ``target.toml``, one measurement table per night (``night-YYYY-MM-DD.csv``,
 long form; one night as ``night-YYYY-MM-DD-wide.csv``, wide form), ``truth.csv``
-and ``truth.json`` into OUTDIR (default: this folder).  The scenario and its seed
+and ``truth.json``, and the invented standard field (``standards.toml``,
+``standards.csv``) into OUTDIR (default: this folder).  The scenario and its seed
 are fixed in :func:`varstar.simulate.demo_scenario`, so the files come out byte
 for byte the same every time.  The field and its stars are invented.
 """
@@ -19,10 +20,10 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 
 try:
-    from varstar.simulate import demo_scenario, simulate, write_series
+    from varstar.simulate import demo_files
 except ModuleNotFoundError:  # run from a source checkout without installing
     sys.path.insert(0, str(HERE.parent))
-    from varstar.simulate import demo_scenario, simulate, write_series
+    from varstar.simulate import demo_files
 
 
 def main(argv: list[str]) -> int:
@@ -30,10 +31,10 @@ def main(argv: list[str]) -> int:
         sys.stderr.write("usage: python demo_series/make_demo.py [OUTDIR]\n")
         return 0 if argv and argv[0] in ("-h", "--help") else 2
     outdir = Path(argv[0]) if argv else HERE
-    scenario = demo_scenario()
-    series = simulate(scenario)
-    for path in write_series(series, scenario, outdir):
-        sys.stdout.write(f"{path}\n")
+    outdir.mkdir(parents=True, exist_ok=True)
+    for name, text in demo_files().items():
+        (outdir / name).write_bytes(text.encode("utf-8"))
+        sys.stdout.write(f"{outdir / name}\n")
     return 0
 
 

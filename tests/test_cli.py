@@ -373,7 +373,11 @@ def test_summary_text_and_json(capsys, series, full_archive):
     for n in obj["nights"]:
         assert f"  {n['label']}: {n['n_exposures']} exposures, {n['n_flagged']} flagged" in text
     for band, b in obj["bands"].items():
-        assert f"  {band}: {b['n_points']} points ({b['n_flagged']} flagged left out), {b['mag_min']:.3f} .. {b['mag_max']:.3f} mag" in text
+        assert b["n_standard"] == 0  # no coefficients in this archive: nothing on the standard system
+        assert (
+            f"  {band}: {b['n_points']} points ({b['n_standard']} on the standard system; {b['n_flagged']} flagged left out), "
+            f"{b['mag_min']:.3f} .. {b['mag_max']:.3f} mag" in text
+        )
     assert sha256(path) == before  # reading never changes the archive
 
 
@@ -653,7 +657,14 @@ def _check_demo_folder(folder: Path, demo_truth) -> dict:
     assert {p.name for p in (folder / "data").iterdir()} == shipped
     for name in shipped:
         assert (folder / "data" / name).read_bytes() == (DEMO / name).read_bytes(), name
-    summary = strict_loads((folder / "summary.json").read_text())
+    result = strict_loads((folder / "summary.json").read_text())
+    summary = result["summary"]
+    # The standard-system steps ran: coefficients fitted from the standard field, a colour summary.
+    assert {"coefficients.png", "colour.png", "setups.toml"} <= files
+    assert any(f.startswith("colour-magnitude-") and f.endswith(".png") for f in files)
+    assert abs(result["coefficients"]["mu_bv"] - demo_truth["transformation"]["mu"]) < 0.03
+    assert result["colour"]["teff_min_k"] < result["colour"]["teff_max_k"]
+    assert all(b["n_standard"] > 0.9 * b["n_points"] for b in summary["bands"].values())
     labels = sorted(demo_truth["files"]["nights"])
     assert sorted(n["label"] for n in summary["nights"]) == labels
     obs = pd.read_csv(folder / "observations.csv")

@@ -142,6 +142,8 @@ def test_demo_is_deterministic_and_matches_committed_files(demo, tmp_path):
     g2 = S.simulate(scenario, np.random.default_rng(7))
     pd.testing.assert_frame_equal(g1.nights[0], g2.nights[0])
     # The shipped files are exactly a fresh generation (byte compare).
+    first = S.demo_files()
+    assert set(first) >= {"standards.toml", "standards.csv", "target.toml", "truth.json"}
     for name, text in first.items():
         assert (DEMO_DIR / name).read_bytes() == text.encode("utf-8"), f"demo_series/{name} is stale: run make_demo.py"
     shipped = {p.name for p in DEMO_DIR.glob("night-*.csv")}
@@ -156,7 +158,7 @@ def test_make_demo_script_writes_the_same_bytes(demo, tmp_path):
     out = tmp_path / "demo"
     subprocess.run([sys.executable, str(DEMO_DIR / "make_demo.py"), str(out)], check=True, capture_output=True,
                    env={"PYTHONPATH": str(REPO), "PATH": "/usr/bin:/bin"}, timeout=120)
-    for name, text in S.series_files(series, scenario).items():
+    for name, text in S.demo_files().items():
         assert (out / name).read_bytes() == text.encode("utf-8")
 
 

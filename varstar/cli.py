@@ -91,7 +91,8 @@ def format_summary(s: dict[str, Any]) -> str:
         lines.append(f"  {n['label']}: {n['n_exposures']} exposures, {n['n_flagged']} flagged (ingested {n['ingested_utc']})")
     for band, b in s["bands"].items():
         lines.append(
-            f"  {band}: {b['n_points']} points ({b['n_flagged']} flagged left out), {b['mag_min']:.3f} .. {b['mag_max']:.3f} mag, "
+            f"  {band}: {b['n_points']} points ({b['n_standard']} on the standard system; {b['n_flagged']} flagged left out), "
+            f"{b['mag_min']:.3f} .. {b['mag_max']:.3f} mag, "
             f"median error {b['median_mag_err']:.3f}, BJD_TDB {b['bjd_first']:.4f} .. {b['bjd_last']:.4f}"
         )
     return "\n".join(lines)
@@ -166,6 +167,125 @@ def cmd_export(args: argparse.Namespace) -> int:
     return 0
 
 
+def format_coefficients(fit: dict[str, Any], k2_bv: float) -> str:
+    lines = [
+        f"Transformation coefficients from {fit['n_stars']} standard stars (B - V span {fit['colour_range']:.2f} mag):",
+        f"  epsilon_v = {fit['epsilon_v']:+.4f} ± {fit['epsilon_v_err']:.4f}   (V - v = eps (B - V) + const; rms {fit['rms_v']:.4f} mag)",
+        f"  mu_bv     = {fit['mu_bv']:.4f} ± {fit['mu_bv_err']:.4f}    ((B - V) = mu (b - v) + const; rms {fit['rms_bv']:.4f} mag)",
+        f"  k2_bv     = {k2_bv:+.4f} (given, removed from b before the fit)",
+    ]
+    for sid, why in fit.get("rejected", []):
+        lines.append(f"  rejected {sid}: {why}")
+    for w in fit.get("warnings", []):
+        lines.append(f"  warning: {w}")
+    return "\n".join(lines)
+
+
+def cmd_coefficients(args: argparse.Namespace) -> int:
+    from .plots import coefficient_figure, save
+    from .setups import save_setup
+    from .standards import fit_standard_field
+
+    if args.setup and not args.save:
+        from .errors import InputError
+
+        raise InputError("--setup names the setup to write with --save FILE; give --save too")
+    fit = fit_standard_field(args.files, args.standards, columns=_parse_columns(args.column), k2_bv=args.k2_bv)
+    coeffs = fit.coefficients(f"{Path(args.standards).name} fit", k2_bv=args.k2_bv, k2_bv_err=args.k2_bv_err)
+    payload = fit.to_dict()
+    payload["k2_bv"] = args.k2_bv
+    payload["k2_bv_err"] = args.k2_bv_err
+    text = format_coefficients(payload, args.k2_bv)
+    if args.output:
+        save(coefficient_figure(fit), args.output)
+        payload["plot"] = str(args.output)
+        text += f"\nwrote {args.output}"
+    if args.save:
+        name = args.setup or "default"
+        save_setup(args.save, name, coeffs, {"fitted from": Path(args.standards).name, "stars": fit.n_stars})
+        payload["saved"] = {"file": str(args.save), "setup": name}
+        text += f"\nsaved as setup '{name}' in {args.save}"
+    _emit(args, payload, text)
+    return 0
+
+
+def cmd_transform(args: argparse.Namespace) -> int:
+    from .archive import open_archive
+    from .errors import InputError
+    from .night import active_transformation, transform_archive
+    from .setups import read_setup
+
+    if args.coefficients:
+        coeffs, gap = read_setup(args.coefficients, args.setup)
+    else:
+        if args.setup:
+            raise InputError("--setup needs --coefficients FILE")
+        with open_archive(args.archive)._open() as f:
+            active = active_transformation(f)
+        if active is None:
+            raise InputError(f"{args.archive}: no coefficients yet: give --coefficients FILE (a setups file or a TOML with [transformation])")
+        _, coeffs, gap = active
+    if args.max_gap is not None:
+        if not 0 < args.max_gap <= 240:
+            raise InputError(f"--max-gap {args.max_gap:g}: give minutes in (0, 240]")
+        gap = args.max_gap / 1440.0
+    res = transform_archive(args.archive, coeffs, gap, timeout_s=args.wait)
+    c = res["coefficients"]
+    lines = [f"applied epsilon_v = {c['epsilon_v']:+.4f} ± {c['epsilon_v_err']:.4f}, mu_bv = {c['mu_bv']:.4f} ± {c['mu_bv_err']:.4f}, "
+             f"k2_bv = {c['k2_bv']:+.4f} (from {c['source']}; pairs within {res['max_gap_minutes']:.0f} min)"]
+    for n in res["nights"]:
+        lines.append(f"  {n['night']}: {n['n_transformed']} of {n['n_points']} points transformed")
+        lines += [f"      {note}" for note in n["notes"]]
+    _emit(args, res, "\n".join(lines))
+    return 0
+
+
+def format_colour(s: dict[str, Any]) -> str:
+    ebv = f", dereddened with E(B-V) = {s['ebv']:.3f}" if s["dereddened"] else ""
+    lines = [
+        f"{s['star']}: standard B - V from {s['bv_min']:.3f} ± {s['bv_min_err']:.3f} to {s['bv_max']:.3f} ± {s['bv_max_err']:.3f} "
+        f"(weighted mean {s['bv_mean']:.3f} ± {s['bv_mean_err']:.3f} incl. calibration; {s['n_points']} points)",
+        f"  effective temperature ({s['temperature_method']}{ebv}):",
+        f"    hottest {s['teff_max_k']:.0f} ± {s['teff_max_err_k']:.0f} K, coolest {s['teff_min_k']:.0f} ± {s['teff_min_err_k']:.0f} K, "
+        f"at the mean colour {s['teff_mean_k']:.0f} ± {s['teff_mean_err_k']:.0f} K",
+    ]
+    if "caution" in s:
+        lines.append(f"  caution: {s['caution']}")
+    return "\n".join(lines)
+
+
+def cmd_colour(args: argparse.Namespace) -> int:
+    from .archive import open_archive
+    from .colour import colour_summary, field_diagram, phases
+    from .errors import ArchiveError
+    from .plots import colour_figure, colour_magnitude_figure, save
+
+    arch = open_archive(args.archive)
+    target = arch.target
+    lc = arch.lightcurve(star=args.star)
+    if args.night:
+        if args.night not in set(arch.nights()["label"]):
+            raise ArchiveError(f"{arch.path}: no night '{args.night}' (see 'varstar summary')")
+        lc = lc[lc["night"] == args.night]
+    summary = colour_summary(lc, target)
+    text = format_colour(summary)
+    if args.output:
+        ph = phases(lc["bjd_tdb"].to_numpy(), target)
+        eph = summary.get("ephemeris")
+        save(colour_figure(lc, title=f"{target.name}: {summary['star']}", phase=ph,
+                           period_d=eph["period"] if eph else None), args.output)
+        summary["plot"] = str(args.output)
+        text += f"\nwrote {args.output}"
+    if args.diagram:
+        night = args.night or str(arch.nights()["label"].iloc[-1])
+        field, track = field_diagram(arch, night)
+        save(colour_magnitude_figure(field, track, title=f"{target.name}, night {night}"), args.diagram)
+        summary["diagram"] = {"file": str(args.diagram), "night": night, "stars": field.to_dict(orient="records")}
+        text += f"\nwrote {args.diagram} (night {night})"
+    _emit(args, summary, text)
+    return 0
+
+
 def cmd_demo(args: argparse.Namespace) -> int:
     from .demo import run_demo
 
@@ -221,6 +341,30 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--band", help="only this band")
     sp.add_argument("--star", help="star id (default: the target)")
     sp.add_argument("--include-flagged", action="store_true", help="also write flagged points (see the quality and flags columns)")
+
+    sp = add("coefficients", cmd_coefficients, "fit transformation coefficients (epsilon_v, mu_bv) from a standard field")
+    sp.add_argument("files", type=Path, nargs="+", metavar="STANDARDS.csv", help="measurement tables of the standard field (B and V)")
+    sp.add_argument("standards", type=Path, metavar="STANDARDS.toml", help="the standard stars with their catalogue B and V")
+    sp.add_argument("-o", "--output", type=Path, help="plot of the two fits (png, pdf, svg)")
+    sp.add_argument("--k2-bv", type=float, default=0.0, metavar="K", help="second-order extinction of b - v to remove (mag per airmass per mag; default 0)")
+    sp.add_argument("--k2-bv-err", type=float, default=0.0, metavar="K", help="its 1-sigma (default 0)")
+    sp.add_argument("--save", type=Path, metavar="SETUPS.toml", help="add or replace the result as a setup in this setups file")
+    sp.add_argument("--setup", metavar="NAME", help="setup name to save under (default 'default')")
+    sp.add_argument("--column", action="append", metavar="NAME=FILE_COLUMN", help="read varstar column NAME from the file's FILE_COLUMN (repeatable)")
+
+    sp = add("transform", cmd_transform, "apply transformation coefficients to every night of the archive (standard B, V and B - V)")
+    sp.add_argument("archive", type=Path)
+    sp.add_argument("--coefficients", type=Path, metavar="FILE", help="a setups file or a TOML with a [transformation] table (default: the archive's current set)")
+    sp.add_argument("--setup", metavar="NAME", help="which setup of the setups file")
+    sp.add_argument("--max-gap", type=float, metavar="MINUTES", help="largest time between paired V and B exposures")
+    sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
+
+    sp = add("colour", cmd_colour, "standard B - V of the target: range, temperature, plots")
+    sp.add_argument("archive", type=Path)
+    sp.add_argument("--star", help="star id (default: the target)")
+    sp.add_argument("--night", help="only this night (evening date, YYYY-MM-DD)")
+    sp.add_argument("-o", "--output", type=Path, help="plot of B - V against time (and phase, with an [ephemeris])")
+    sp.add_argument("--diagram", type=Path, metavar="FILE", help="colour-magnitude diagram of the field for the night (default: the last night)")
 
     sp = add("demo", cmd_demo, "run the whole pipeline on the shipped invented demo field")
     sp.add_argument("--out", type=Path, default=None, help="folder for the results (default: a new folder here)")

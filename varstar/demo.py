@@ -43,55 +43,89 @@ def _new_folder(out: Path | None) -> Path:
 def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print) -> dict[str, Any]:
     """Run the demo into ``out`` (default: a new ``varstar-demo`` folder here).
 
-    Returns a JSON-ready dict: the folder, the files written and the archive summary.
+    The steps are those of an observer: fit transformation coefficients from a
+    standard field, create the target's archive, ingest each night, put the
+    archive on the standard system, then look at the light curve and colours.
+    Returns a JSON-ready dict: the folder, the files written and the summaries.
     """
-    from .archive import create_archive
-    from .cli import format_night_report, format_summary
+    from .archive import create_archive, open_archive
+    from .cli import format_coefficients, format_colour, format_night_report, format_summary
+    from .colour import colour_summary, field_diagram, phases
     from .export import lightcurve_table, safe_filename, to_json, write_atomic, write_csv
-    from .night import ingest
-    from .plots import lightcurve_figure, save
-    from .simulate import demo_scenario, simulate, write_series
+    from .night import ingest, transform_archive
+    from .plots import coefficient_figure, colour_figure, colour_magnitude_figure, lightcurve_figure, save
+    from .setups import read_setup, save_setup
+    from .simulate import demo_files
+    from .standards import fit_standard_field
     from .target import read_target
 
     say = echo or (lambda _s: None)
     folder = _new_folder(out)
     data = folder / "data"
-    scenario = demo_scenario()
-    write_series(simulate(scenario), scenario, data)
-    say(f"Demo field written to {data} (invented stars, simulated with a fixed seed)")
+    data.mkdir()
+    for name, text in demo_files().items():
+        (data / name).write_bytes(text.encode("utf-8"))
+    say(f"Demo data written to {data} (an invented field and standard field, simulated with a fixed seed)\n")
 
+    # 1. Transformation coefficients from the standard field; k''_bv is the usual value
+    #    for B - V (common practice), as an observer without their own measurement would take.
+    k2_bv = -0.03
+    fit = fit_standard_field([data / "standards.csv"], data / "standards.toml", k2_bv=k2_bv)
+    setups = folder / "setups.toml"
+    save_setup(setups, "demo-camera", fit.coefficients("standards.toml fit", k2_bv=k2_bv), {"fitted from": "standards.toml"})
+    fits_png = folder / "coefficients.png"
+    save(coefficient_figure(fit), fits_png)
+    say(format_coefficients({**fit.to_dict(), "k2_bv": k2_bv}, k2_bv) + f"\n  saved in {setups}\n")
+
+    # 2. The target's archive, night by night.
     target = read_target(data / "target.toml")
     archive = folder / f"{safe_filename(target.name)}.h5"
     create_archive(archive, target)
     say(f"created {archive}\n")
-    nights = sorted(p for p in data.glob("night-*.csv"))
     reports = []
-    for p in nights:
-        res = ingest(archive, [p])
-        for rep in res.nights:
+    for p in sorted(data.glob("night-*.csv")):
+        for rep in ingest(archive, [p]).nights:
             reports.append(rep)
             say(format_night_report(rep) + "\n")
 
-    from .archive import open_archive
+    # 3. Onto the standard system.
+    coeffs, gap = read_setup(setups, "demo-camera")
+    trans = transform_archive(archive, coeffs, gap)
+    n_done = sum(n["n_transformed"] for n in trans["nights"])
+    say(f"transformed {n_done} of {sum(n['n_points'] for n in trans['nights'])} points to the standard system\n")
 
+    # 4. Look at it.
     arch = open_archive(archive)
     summary = arch.summary()
     say(format_summary(summary))
-    lc = arch.lightcurve(include_flagged=True)
+    lc_all = arch.lightcurve(include_flagged=True)
     plot = folder / "lightcurve.png"
-    save(lightcurve_figure(lc, title=f"{target.name}: {target.target_star.id}", show_flagged=True), plot)
-    files = [archive, plot]
+    save(lightcurve_figure(lc_all, title=f"{target.name}: {target.target_star.id}", show_flagged=True), plot)
+    files = [archive, setups, fits_png, plot]
     nights_df = arch.nights()
     if int(nights_df["n_flagged"].max()) > 0:  # zoom on the night with passing clouds
         label = str(nights_df.loc[nights_df["n_flagged"].idxmax(), "label"])
         zoom = folder / f"night-{label}.png"
-        save(lightcurve_figure(lc[lc["night"] == label], title=f"{target.name}: {target.target_star.id}, night {label}", show_flagged=True), zoom)
+        save(lightcurve_figure(lc_all[lc_all["night"] == label], title=f"{target.name}: {target.target_star.id}, night {label}", show_flagged=True), zoom)
         files.append(zoom)
-    csv = write_csv(lightcurve_table(arch.lightcurve()), folder / "observations.csv")
-    js = write_atomic(folder / "summary.json", (to_json(summary, indent=2) + "\n").encode("utf-8"))
+    lc = arch.lightcurve()
+    colour = colour_summary(lc, target)
+    say("\n" + format_colour(colour))
+    colour_png = folder / "colour.png"
+    eph = colour.get("ephemeris")
+    save(colour_figure(lc, title=f"{target.name}: {target.target_star.id}", phase=phases(lc["bjd_tdb"].to_numpy(), target),
+                       period_d=eph["period"] if eph else None), colour_png)
+    last = str(nights_df["label"].iloc[-1])
+    field, track = field_diagram(arch, last)
+    cmd_png = folder / f"colour-magnitude-{last}.png"
+    save(colour_magnitude_figure(field, track, title=f"{target.name}, night {last}"), cmd_png)
+    files += [colour_png, cmd_png]
+    csv = write_csv(lightcurve_table(lc), folder / "observations.csv")
+    result = {"summary": summary, "coefficients": fit.to_dict(), "colour": colour}
+    js = write_atomic(folder / "summary.json", (to_json(result, indent=2) + "\n").encode("utf-8"))
     return {
         "folder": str(folder),
         "files": [str(p) for p in (*files, csv, js)],
         "nights": [r["night"] for r in reports],
-        "summary": summary,
+        **result,
     }

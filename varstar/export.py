@@ -24,7 +24,9 @@ _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
 #: Columns of the exported light curve, in order.
 LIGHTCURVE_COLUMNS = (
-    "bjd_tdb", "hjd_utc", "jd_utc", "band", "star", "mag", "mag_err", "cal_err", "airmass", "night", "frame", "quality", "flags",
+    "bjd_tdb", "hjd_utc", "jd_utc", "band", "star", "mag", "mag_err", "cal_err", "transformed", "bv", "bv_err",
+    "mag_untransformed", "mag_untransformed_err", "epsilon_v", "mu_bv", "k2_bv", "airmass", "night", "frame",
+    "quality", "flags",
 )
 
 

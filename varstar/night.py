@@ -13,7 +13,7 @@ import json
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -23,6 +23,14 @@ from .errors import InputError
 from .measurements import parse_measurements, read_bytes
 from .target import Target
 from .timescale import exposure_times, night_label
+
+#: Standard-system columns of a light-curve point (NaN / -1 until transformed).
+STD_COLUMNS = ("mag_std", "mag_std_err", "cal_std_err", "bv_std", "bv_std_err", "bv_std_sys_err", "colour_gap_d", "transformation")
+COMPARISON_COLUMNS = ("band", "star", "status", "reason", "offset", "excess", "chi2_dof", "tie_weight", "mean_err")
+ENSEMBLE_COLUMNS = ("band", "calibration_err", "colour_extinction", "colour_extinction_err", "colour_reference", "n_kept")
+
+if TYPE_CHECKING:  # pragma: no cover
+    from .transform import Coefficients, NightReference
 
 # Difference between a table's own airmass and ours that deserves a warning
 # (wrong coordinates, site or time zone upstream): common practice.
@@ -44,6 +52,7 @@ class NightReduction:
     raw: pd.DataFrame
     points: pd.DataFrame
     comparisons: pd.DataFrame
+    ensembles: pd.DataFrame
     report: dict[str, Any]
 
     def to_dict(self) -> dict[str, Any]:
@@ -180,6 +189,7 @@ def reduce_night(
     excluded = excluded_stars(target)
     is_comp = (roles == "comparison") & ~np.isin(star_ids, excluded)
     comp_rows = []
+    ens_rows = []
     band_reports: dict[str, Any] = {}
     exp_band = exp["band"].to_numpy()
 
@@ -216,6 +226,21 @@ def reduce_night(
         flags[in_band] = np.asarray(sol.exposure_flags, dtype=object)
         mag_cal[rows] = sol.mag
         err_cal[rows] = sol.mag_err
+        # Error of each comparison star's mean magnitude: 1/sqrt(sum of its weights).
+        used = sol.used
+        w = 1.0 / (table["mag_err"].to_numpy()[rows][used] ** 2 + np.nan_to_num(sol.star_excess)[star_idx[rows][used]] ** 2)
+        with np.errstate(divide="ignore"):
+            mean_err = 1.0 / np.sqrt(np.bincount(star_idx[rows][used], w, minlength=len(star_ids)))
+        ens_rows.append(
+            {
+                "band": band,
+                "calibration_err": float(sol.calibration_err),
+                "colour_extinction": float(sol.colour_extinction),
+                "colour_extinction_err": float(sol.colour_extinction_err),
+                "colour_reference": float(sol.colour_reference),
+                "n_kept": int(sum(st == "kept" for st in sol.star_status)),
+            }
+        )
         for i, sid in enumerate(star_ids):
             if roles[i] == "comparison":
                 out = sid in excluded
@@ -228,6 +253,8 @@ def reduce_night(
                         "offset": float(sol.star_offset[i]),
                         "excess": float(sol.star_excess[i]),
                         "chi2_dof": float(sol.star_chi2_dof[i]),
+                        "tie_weight": float(sol.tie_weight[i]),
+                        "mean_err": float(mean_err[i]),
                     }
                 )
         band_reports[band] = {"ensemble": sol.to_dict()}
@@ -271,11 +298,13 @@ def reduce_night(
             "mag_err": err_cal[measured],
             "cal_err": cal_err[e_rows],
             "quality": quality,
+            **{k: np.full(int(measured.sum()), -1 if k == "transformation" else np.nan) for k in STD_COLUMNS},
         }
     )
-    comparisons = pd.DataFrame(comp_rows, columns=["band", "star", "status", "reason", "offset", "excess", "chi2_dof"])
+    comparisons = pd.DataFrame(comp_rows, columns=list(COMPARISON_COLUMNS))
+    ensembles = pd.DataFrame(ens_rows, columns=list(ENSEMBLE_COLUMNS))
     report = _night_report(target, label, table, exposures, points, comparisons, band_reports, warnings)
-    return NightReduction(label, exposures, raw, points, comparisons, report)
+    return NightReduction(label, exposures, raw, points, comparisons, ensembles, report)
 
 
 def _stats(mag: np.ndarray, err: np.ndarray) -> dict[str, float]:
@@ -405,6 +434,11 @@ def ingest(
             )
     reductions = [reduce_night(target, t, settings, label=lab) for lab, t in sorted(nights.items())]
     _add_history_notes(arch.comparisons(), reductions)
+    with arch._open() as f:
+        active = active_transformation(f)
+    if active is not None:
+        for red in reductions:
+            _apply_to_reduction(target, red, active)
     sha_of = {str(p): h for p, _, h in fresh}
 
     with transaction(arch.path, timeout_s=timeout_s) as f:
@@ -414,6 +448,9 @@ def ingest(
             raise InputError(f"{arch.path}: another process ingested some of these files meanwhile; nothing was written")
         if set(tables.read(f, "nights", ["label"])["label"]) & set(nights):
             raise InputError(f"{arch.path}: another process ingested one of these nights meanwhile; nothing was written")
+        now_active = active_transformation(f)
+        if (now_active and now_active[0]) != (active and active[0]):
+            raise InputError(f"{arch.path}: another process changed the transformation meanwhile; nothing was written, ingest again")
         for red in reductions:
             _write_night(f, red, sha_of, utc_now())
     return IngestResult(str(arch.path), tuple(r.report for r in reductions), tuple(skipped))
@@ -508,6 +545,7 @@ def _write_night(f, red: NightReduction, sha_of: Mapping[str, str], now: str) ->
             "mag_err": p["mag_err"].to_numpy(),
             "cal_err": p["cal_err"].to_numpy(),
             "quality": p["quality"].to_numpy(),
+            **{k: p[k].to_numpy() for k in STD_COLUMNS},
         },
     )
     c = red.comparisons
@@ -518,7 +556,17 @@ def _write_night(f, red: NightReduction, sha_of: Mapping[str, str], now: str) ->
             "night": np.full(len(c), night_id),
             "band": c["band"].map(band_code).to_numpy(),
             "star": pd.Index(stars).get_indexer(c["star"]),
-            **{k: c[k].to_numpy() for k in ("status", "reason", "offset", "excess", "chi2_dof")},
+            **{k: c[k].to_numpy() for k in COMPARISON_COLUMNS[2:]},
+        },
+    )
+    en = red.ensembles
+    tables.append(
+        f,
+        "ensembles",
+        {
+            "night": np.full(len(en), night_id),
+            "band": en["band"].map(band_code).to_numpy(),
+            **{k: en[k].to_numpy() for k in ENSEMBLE_COLUMNS[1:]},
         },
     )
     tables.append(
@@ -537,3 +585,262 @@ def _write_night(f, red: NightReduction, sha_of: Mapping[str, str], now: str) ->
             "report": [json.dumps(red.report, allow_nan=True)],
         },
     )
+
+
+# -- transformation to the standard system ---------------------------------------------
+
+
+def night_reference_from_tables(
+    target: Target,
+    coeffs: "Coefficients",
+    comparisons: pd.DataFrame,
+    ensembles: pd.DataFrame,
+) -> "NightReference":
+    """The colour reference of one night from its comparison-star and ensemble tables.
+
+    ``comparisons`` and ``ensembles`` hold one night (columns as
+    :data:`COMPARISON_COLUMNS` and :data:`ENSEMBLE_COLUMNS`); both bands must be there.
+    """
+    from .transform import night_reference
+
+    comps = target.stars_with_role("comparison")
+    ids = [s.id for s in comps]
+
+    def band_values(band: str, col: str) -> np.ndarray:
+        sub = comparisons[comparisons["band"] == band].set_index("star")
+        return sub[col].reindex(ids).to_numpy(dtype=float)
+
+    def cat(band: str, err: bool = False) -> np.ndarray:
+        return np.array([(s.catalog_err if err else s.catalog).get(band, np.nan) for s in comps], dtype=float)
+
+    ens = ensembles.set_index("band")
+    return night_reference(
+        cat("B"), cat("B", True), cat("V"), cat("V", True),
+        cat("B") + band_values("B", "offset"), band_values("B", "mean_err"),
+        cat("V") + band_values("V", "offset"), band_values("V", "mean_err"),
+        band_values("V", "tie_weight"),
+        coeffs,
+        kappa_b=float(ens.loc["B", "colour_extinction"]),
+        kappa_b_err=float(ens.loc["B", "colour_extinction_err"]),
+        kappa_v=float(ens.loc["V", "colour_extinction"]),
+        kappa_v_err=float(ens.loc["V", "colour_extinction_err"]),
+        cref_b=float(ens.loc["B", "colour_reference"]),
+        cref_v=float(ens.loc["V", "colour_reference"]),
+        cal_err_b=float(ens.loc["B", "calibration_err"]),
+        cal_err_v=float(ens.loc["V", "calibration_err"]),
+    )
+
+
+def standardise_night(
+    target: Target,
+    coeffs: "Coefficients",
+    max_gap_d: float,
+    points: pd.DataFrame,
+    airmass: np.ndarray,
+    comparisons: pd.DataFrame,
+    ensembles: pd.DataFrame,
+) -> tuple[dict[str, np.ndarray], list[str]]:
+    """Standard-system values for the points of one night.
+
+    Parameters
+    ----------
+    points
+        The night's light-curve points (columns ``star, band, bjd_tdb, mag,
+        mag_err, cal_err, quality``), any order.
+    airmass
+        Airmass of each point's exposure (same order as ``points``).
+
+    Returns
+    -------
+    (columns, notes)
+        ``columns`` maps each of :data:`STD_COLUMNS` but ``transformation`` to an
+        array aligned with ``points`` (NaN where not transformed); ``notes`` says
+        why points were left untransformed.  Only good points (quality 0) are
+        transformed and serve as the other band's samples.
+    """
+    from .transform import transform_target
+
+    n = len(points)
+    out = {k: np.full(n, np.nan) for k in STD_COLUMNS if k != "transformation"}
+    bands = set(ensembles["band"])
+    if not {"B", "V"} <= bands:
+        missing = " and ".join(sorted({"B", "V"} - bands))
+        return out, [f"not transformed: no {missing} exposures this night (the transformation needs both B and V)"]
+    ref = night_reference_from_tables(target, coeffs, comparisons, ensembles)
+    notes: list[str] = []
+    star = points["star"].to_numpy()
+    band = points["band"].to_numpy()
+    good = points["quality"].to_numpy() == 0
+    t = points["bjd_tdb"].to_numpy()
+    mag = points["mag"].to_numpy()
+    err = points["mag_err"].to_numpy()
+    for sid in pd.unique(star):
+        iv = np.flatnonzero((star == sid) & (band == "V") & good)
+        ib = np.flatnonzero((star == sid) & (band == "B") & good)
+        if iv.size == 0 or ib.size == 0:
+            continue
+        res = transform_target(t[iv], mag[iv], err[iv], airmass[iv], t[ib], mag[ib], err[ib], airmass[ib], ref, coeffs, max_gap_d=max_gap_d)
+        for idx, tb in ((iv, res.V), (ib, res.B)):
+            out["mag_std"][idx] = tb.mag
+            out["mag_std_err"][idx] = tb.mag_err
+            # The night's systematic part: calibration tie, reference colour, coefficients.
+            out["cal_std_err"][idx] = tb.sys_err
+            out["bv_std"][idx] = tb.colour
+            out["bv_std_err"][idx] = tb.colour_err
+            out["bv_std_sys_err"][idx] = tb.colour_sys_err
+            out["colour_gap_d"][idx] = np.where(tb.ok, tb.gap_d, np.nan)
+        refused = int((~res.V.ok).sum() + (~res.B.ok).sum())
+        if refused:
+            notes.append(
+                f"{sid}: {refused} exposure(s) not transformed: no exposure of the other band within "
+                f"{max_gap_d * 1440:.0f} min"
+            )
+        if not (res.V.ok.any() or res.B.ok.any()):
+            notes.append(f"{sid}: B and V exposures never come within {max_gap_d * 1440:.0f} min of each other")
+    return out, notes
+
+
+def active_transformation(f) -> tuple[int, "Coefficients", float] | None:
+    """The archive's current coefficients (the last ``/transformations`` row), if any."""
+    from .archive import tables
+    from .transform import Coefficients
+
+    rows = tables.read(f, "transformations")
+    if rows["transformation"].size == 0:
+        return None
+    k = -1
+    coeffs = Coefficients(
+        epsilon_v=float(rows["epsilon_v"][k]),
+        epsilon_v_err=float(rows["epsilon_v_err"][k]),
+        mu_bv=float(rows["mu_bv"][k]),
+        mu_bv_err=float(rows["mu_bv_err"][k]),
+        k2_bv=float(rows["k2_bv"][k]),
+        k2_bv_err=float(rows["k2_bv_err"][k]),
+        source=str(rows["source"][k]),
+    )
+    return int(rows["transformation"][k]), coeffs, float(rows["max_gap_d"][k])
+
+
+def add_transformation(f, coeffs: "Coefficients", max_gap_d: float, now: str) -> int:
+    """Append a coefficient set to ``/transformations``; return its id."""
+    from .archive import tables
+
+    tid = tables.n_rows(f, "transformations")
+    tables.append(
+        f,
+        "transformations",
+        {
+            "transformation": [tid],
+            "set_utc": [now],
+            "source": [coeffs.source],
+            **{k: [float(getattr(coeffs, k))] for k in ("epsilon_v", "epsilon_v_err", "mu_bv", "mu_bv_err", "k2_bv", "k2_bv_err")},
+            "max_gap_d": [max_gap_d],
+        },
+    )
+    return tid
+
+
+def _apply_to_reduction(target: Target, red: NightReduction, active: tuple[int, "Coefficients", float]) -> None:
+    """Fill the standard-system columns of a fresh night (at ingest)."""
+    tid, coeffs, gap = active
+    p = red.points
+    airmass = red.exposures["airmass"].to_numpy()[p["exposure"].to_numpy()]
+    cols, notes = standardise_night(target, coeffs, gap, p, airmass, red.comparisons, red.ensembles)
+    if {"B", "V"} <= set(red.ensembles["band"]) and not np.isfinite(cols["mag_std"]).any():
+        raise InputError(
+            f"night {red.label}: the B and V exposures never come within {gap * 1440:.0f} min of each other, so no "
+            f"colour can be paired for the transformation; check that the files belong to the same night, or raise "
+            f"[transformation] max_gap_minutes"
+        )
+    for k, v in cols.items():
+        p[k] = v
+    p["transformation"] = np.where(np.isfinite(cols["mag_std"]), tid, -1)
+    red.report["transformation"] = _transformation_summary(coeffs, gap, p, notes, target)
+
+
+def _transformation_summary(coeffs: "Coefficients", gap: float, p: pd.DataFrame, notes: list[str], target: Target) -> dict[str, Any]:
+    done = np.isfinite(p["mag_std"].to_numpy())
+    tid = target.target_star.id
+    tgt = p[(p["star"] == tid) & done]
+    summary: dict[str, Any] = {
+        "coefficients": coeffs.to_dict(),
+        "max_gap_minutes": gap * 1440.0,
+        "n_transformed": int(done.sum()),
+        "n_points": int(len(p)),
+        "notes": notes,
+    }
+    if len(tgt):
+        summary["target"] = {
+            "bv_min": float(tgt["bv_std"].min()),
+            "bv_max": float(tgt["bv_std"].max()),
+            "median_bv_err": float(tgt["bv_std_err"].median()),
+            "by_band": {
+                str(b): {"mag_min": float(g["mag_std"].min()), "mag_max": float(g["mag_std"].max()),
+                         "mean_shift": float((g["mag_std"] - g["mag"]).mean())}
+                for b, g in tgt.groupby("band")
+            },
+        }
+    return summary
+
+
+def transform_archive(
+    archive_path: str | Path,
+    coeffs: "Coefficients",
+    max_gap_d: float,
+    *,
+    timeout_s: float = 30.0,
+) -> dict[str, Any]:
+    """Apply (new) coefficients to every night of an archive, all or nothing.
+
+    The coefficient set is added to the archive's transformation history and
+    every light-curve point's standard-system columns are recomputed with it;
+    the untransformed values are never touched.
+    """
+    from .archive import open_archive, tables, transaction
+    from .archive.store import check_root, utc_now
+
+    arch = open_archive(archive_path)
+    target = arch.target
+    per_night: list[dict[str, Any]] = []
+    with transaction(arch.path, timeout_s=timeout_s) as f:
+        check_root(f, arch.path)
+        nights = tables.read(f, "nights", ["night", "label"])
+        if nights["night"].size == 0:
+            raise InputError(f"{arch.path}: no nights to transform yet; ingest some first")
+        stars = tables.read(f, "stars", ["id"])["id"]
+        bands = tables.read(f, "bands", ["name"])["name"]
+        p = tables.read(f, "points")
+        e_air = tables.read(f, "exposures", ["airmass"])["airmass"]
+        c = tables.read(f, "comparisons")
+        en = tables.read(f, "ensembles")
+        pts = pd.DataFrame({
+            "night": p["night"], "star": stars[p["star"]] if p["star"].size else [], "band": bands[p["band"]] if p["band"].size else [],
+            "bjd_tdb": p["bjd_tdb"], "mag": p["mag"], "mag_err": p["mag_err"], "cal_err": p["cal_err"], "quality": p["quality"],
+        })
+        comps = pd.DataFrame({**{k: c[k] for k in COMPARISON_COLUMNS[2:]}, "night": c["night"],
+                              "band": bands[c["band"]] if c["band"].size else [], "star": stars[c["star"]] if c["star"].size else []})
+        ens = pd.DataFrame({**{k: en[k] for k in ENSEMBLE_COLUMNS[1:]}, "night": en["night"],
+                            "band": bands[en["band"]] if en["band"].size else []})
+        tid = add_transformation(f, coeffs, max_gap_d, utc_now())
+        new = {k: np.full(len(pts), -1 if k == "transformation" else np.nan) for k in STD_COLUMNS}
+        for night_id, label in zip(nights["night"], nights["label"]):
+            rows = np.flatnonzero(p["night"] == night_id)
+            sub = pts.iloc[rows]
+            cols, notes = standardise_night(
+                target, coeffs, max_gap_d, sub, e_air[p["exposure"][rows]],
+                comps[comps["night"] == night_id], ens[ens["night"] == night_id],
+            )
+            for k, v in cols.items():
+                new[k][rows] = v
+            new["transformation"][rows] = np.where(np.isfinite(cols["mag_std"]), tid, -1)
+            per_night.append({"night": str(label), "n_points": int(rows.size),
+                              "n_transformed": int(np.isfinite(cols["mag_std"]).sum()), "notes": notes})
+        if not np.isfinite(new["mag_std"]).any():
+            raise InputError(
+                f"{arch.path}: no night has B and V exposures that can be paired within {max_gap_d * 1440:.0f} min; "
+                f"nothing was transformed and the archive is unchanged"
+            )
+        for k, v in new.items():
+            f["points"][k][...] = v
+    return {"archive": str(arch.path), "transformation": tid, "coefficients": coeffs.to_dict(),
+            "max_gap_minutes": max_gap_d * 1440.0, "nights": per_night}

@@ -97,3 +97,147 @@ def save(fig: "Figure", path) -> None:
     except ValueError:
         raise OutputError(f"{path}: unknown image format '{fmt}' (use .png, .pdf or .svg)") from None
     write_atomic(path, buf.getvalue())
+
+
+def coefficient_figure(fit) -> "Figure":
+    """The two straight-line fits of a standard field: V - v against B - V, and B - V against b - v.
+
+    Parameters
+    ----------
+    fit
+        A :class:`varstar.transform.CoefficientFit`.  Rejected stars are drawn
+        as crosses, used stars with error-free markers and the fitted line.
+    """
+    fig = _figure(1, width=10.0, height_per=4.2)
+    ax1, ax2 = fig.subplots(1, 2)
+    used = np.asarray(fit.used, dtype=bool)
+    panels = (
+        (ax1, fit.x_v, fit.y_v, fit.xerr_v, fit.yerr_v, fit.epsilon_v, fit.zeta_v, "catalogue B − V (mag)",
+         "V − v (mag)", f"ε = {fit.epsilon_v:+.4f} ± {fit.epsilon_v_err:.4f}"),
+        (ax2, fit.x_bv, fit.y_bv, fit.xerr_bv, fit.yerr_bv, fit.mu_bv, fit.zeta_bv, "instrumental b − v (mag)",
+         "catalogue B − V (mag)", f"μ = {fit.mu_bv:.4f} ± {fit.mu_bv_err:.4f}"),
+    )
+    for ax, x, y, xe, ye, slope, zero, xl, yl, label in panels:
+        x, y, xe, ye = (np.asarray(a, float) for a in (x, y, xe, ye))
+        ax.errorbar(x[used], y[used], xerr=xe[used], yerr=ye[used], fmt="o", color=PALETTE[0], ms=6,
+                    elinewidth=0.8, capsize=0, label="standard stars")
+        bad = ~used & np.isfinite(x) & np.isfinite(y)
+        if bad.any():
+            ax.errorbar(x[bad], y[bad], xerr=xe[bad], yerr=ye[bad], fmt="x", color=PALETTE[5], ms=8, mew=2,
+                        elinewidth=0.8, capsize=0, label="rejected")
+        if np.isfinite(x[used]).any():
+            xs = np.linspace(np.nanmin(x[used]) - 0.1, np.nanmax(x[used]) + 0.1, 50)
+            ax.plot(xs, slope * xs + zero, "-", color="black", lw=1.2, label=label)
+        for sid, xi, yi in zip(fit.star_ids, x, y):
+            if np.isfinite(xi) and np.isfinite(yi):
+                ax.annotate(str(sid), (xi, yi), textcoords="offset points", xytext=(4, 3), fontsize=7, color="0.3")
+        ax.set_xlabel(xl)
+        ax.set_ylabel(yl)
+        ax.grid(alpha=0.3)
+        ax.legend(fontsize="small")
+    fig.suptitle(f"Transformation coefficients from {fit.n_stars} standard stars")
+    return fig
+
+
+def colour_figure(lc: pd.DataFrame, *, title: str = "", phase: np.ndarray | None = None, period_d: float | None = None) -> "Figure":
+    """The star's standard B − V against BJD_TDB (and against phase when given).
+
+    A second axis gives the Ballesteros (2012) temperature of the colour (before
+    any dereddening), so a reader sees how hot the star gets.
+    """
+    from .transform import ballesteros_temperature
+
+    n = 2 if phase is not None else 1
+    fig = _figure(n)
+    axes = fig.subplots(n, 1, squeeze=False)[:, 0]
+    sel = np.isfinite(lc["bv"].to_numpy()) if len(lc) else np.zeros(0, bool)
+    d = lc[sel]
+    t0 = _time_offset(d["bjd_tdb"].to_numpy()) if len(d) else 0.0
+    nights = sorted(pd.unique(d["night"])) if len(d) else []
+    style = {nt: (PALETTE[k % len(PALETTE)], MARKERS[(k // len(PALETTE) + k) % len(MARKERS)]) for k, nt in enumerate(nights)}
+    xs = [(axes[0], d["bjd_tdb"].to_numpy() - t0, f"BJD_TDB − {t0:.0f} (d)")]
+    if phase is not None:
+        xs.append((axes[1], np.asarray(phase)[sel], f"phase (period {period_d:.6f} d)" if period_d else "phase"))
+    for ax, x, xlabel in xs:
+        for nt in nights:
+            m = (d["night"] == nt).to_numpy()
+            colour, marker = style[nt]
+            ax.errorbar(x[m], d["bv"].to_numpy()[m], yerr=d["bv_err"].to_numpy()[m], fmt=marker, ms=3.5,
+                        color=colour, elinewidth=0.7, capsize=0, label=str(nt))
+        ax.set_xlabel(xlabel)
+        ax.set_ylabel("B − V (mag)")
+        ax.grid(alpha=0.3)
+        if len(d):
+            lo, hi = ax.get_ylim()
+            sec = ax.secondary_yaxis(
+                "right",
+                functions=(lambda c: ballesteros_temperature(np.clip(c, -0.39, 1.99))[0] / 1000.0,
+                           lambda tk: _bv_of_temperature(tk * 1000.0)),
+            )
+            sec.set_ylabel("T_eff, Ballesteros 2012 (kK)")
+    if len(d) == 0:
+        axes[0].text(0.5, 0.5, "no transformed points (no colour)", ha="center", va="center", transform=axes[0].transAxes)
+    elif nights:
+        handles, labels = axes[0].get_legend_handles_labels()
+        fig.legend(handles, labels, loc="outside right upper", title="night", fontsize="small")
+    if title:
+        fig.suptitle(title)
+    return fig
+
+
+def _bv_of_temperature(t_k: np.ndarray) -> np.ndarray:
+    """Inverse of the Ballesteros relation on its monotonic range (for the axis only)."""
+    from .transform import ballesteros_temperature
+
+    grid = np.linspace(-0.39, 1.99, 800)
+    temps = ballesteros_temperature(grid)[0]
+    return np.interp(np.asarray(t_k, float), temps[::-1], grid[::-1])
+
+
+def colour_magnitude_figure(field: pd.DataFrame, track: pd.DataFrame, *, title: str = "") -> "Figure":
+    """Colour–magnitude diagram of the field: V against B − V, bright up.
+
+    Parameters
+    ----------
+    field
+        One row per star (``star, role, status, V, V_err, bv, bv_err``): the
+        comparison and check stars' standard values for the night.
+    track
+        The target's transformed points of the night (``bv, bv_err, mag,
+        mag_err, bjd_tdb``), V band, drawn as a path coloured by time.
+    """
+    fig = _figure(1, width=7.5, height_per=6.0)
+    ax = fig.subplots()
+    kinds = (
+        ("comparison", "kept", "o", PALETTE[0], "comparison stars"),
+        ("comparison", "rejected", "X", PALETTE[5], "comparison stars, rejected"),
+        ("check", None, "D", PALETTE[2], "check stars"),
+    )
+    for role, status, marker, colour, label in kinds:
+        m = field["role"] == role
+        if status == "kept":
+            m &= field["status"] == "kept"
+        elif status == "rejected":
+            m &= field["status"] != "kept"
+        sub = field[m]
+        if len(sub):
+            ax.errorbar(sub["bv"], sub["V"], xerr=sub["bv_err"], yerr=sub["V_err"], fmt=marker, ms=7, color=colour,
+                        elinewidth=0.8, capsize=0, label=label)
+            for r in sub.itertuples():
+                ax.annotate(str(r.star), (r.bv, r.V), textcoords="offset points", xytext=(5, 4), fontsize=8, color="0.3")
+    if len(track):
+        t = track["bjd_tdb"].to_numpy()
+        ax.errorbar(track["bv"], track["mag"], xerr=track["bv_err"], yerr=track["mag_err"], fmt="none",
+                    ecolor="0.7", elinewidth=0.5, capsize=0, zorder=1)
+        ax.plot(track["bv"], track["mag"], "-", color="0.6", lw=0.6, zorder=2)
+        sc = ax.scatter(track["bv"], track["mag"], c=(t - t.min()) * 24.0, cmap="cividis", s=14, zorder=3,
+                        label="target over the night")
+        fig.colorbar(sc, ax=ax, label="hours since first point (BJD_TDB)")
+    ax.invert_yaxis()
+    ax.set_xlabel("B − V (mag)")
+    ax.set_ylabel("V (mag)")
+    ax.grid(alpha=0.3)
+    ax.legend(fontsize="small", loc="best")
+    if title:
+        ax.set_title(title)
+    return fig

@@ -37,6 +37,7 @@ seed gives the same tables bit for bit.  Only :func:`write_series` touches files
 from __future__ import annotations
 
 import functools
+import dataclasses
 import json
 import math
 from collections.abc import Mapping, Sequence
@@ -497,13 +498,16 @@ class Scenario:
     missing_fraction: float = 0.004
     n_cosmic: int = 4
     wide_form_night: int | None = None
+    #: A "published" ephemeris of the target written into its TOML: (epoch BJD_TDB, period d,
+    #: "maximum" or "minimum").  Invented like everything else; it may differ from the truth.
+    published_ephemeris: tuple[float, float, str] | None = None
 
     def to_dict(self) -> dict[str, Any]:
         out: dict[str, Any] = {}
         for k in self.__dataclass_fields__:
             v = getattr(self, k)
             if isinstance(v, tuple):
-                out[k] = [x.to_dict() for x in v]
+                out[k] = [x.to_dict() if hasattr(x, "to_dict") else x for x in v]
             elif hasattr(v, "to_dict"):
                 out[k] = v.to_dict()
             else:
@@ -626,6 +630,7 @@ def demo_scenario() -> Scenario:
         clouds=clouds,
         seed=20260911,
         wide_form_night=5,
+        published_ephemeris=(2461295.3861, 0.4617140, "maximum"),
     )
 
 
@@ -708,8 +713,15 @@ def target_toml(scenario: Scenario) -> str:
         f"{scenario.field_name}: simulated data from varstar.simulate (seed {scenario.seed}).\n"
         "The field and its stars are invented; catalogue values = truth + simulated catalogue error."
     )
-    return _toml_text(scenario.field_name, scenario.ra_deg, scenario.dec_deg, scenario.latitude_deg,
+    text = _toml_text(scenario.field_name, scenario.ra_deg, scenario.dec_deg, scenario.latitude_deg,
                       scenario.longitude_deg, scenario.elevation_m, entries, header)
+    if scenario.published_ephemeris is not None:
+        epoch, period, kind = scenario.published_ephemeris
+        text += (
+            "\n# An older ephemeris of the target (invented, like the field; not exactly the truth)\n"
+            f"[ephemeris]\nepoch = {epoch:.5f}\nperiod = {period:.7f}\nkind = {json.dumps(kind)}\n"
+        )
+    return text
 
 
 # ----------------------------------------------------------------------------
@@ -1376,3 +1388,75 @@ def write_series(series: SimulatedSeries, scenario: Scenario, directory: str | P
         p.write_bytes(text.encode("utf-8"))
         written.append(p)
     return written
+
+
+# ----------------------------------------------------------------------------
+# A standard field for fitting transformation coefficients (invented)
+# ----------------------------------------------------------------------------
+
+
+def standard_field_scenario() -> Scenario:
+    """An invented field of twelve standard stars, observed with the demo telescope.
+
+    "Lantern Cluster" is made up.  Its stars span B-V from about 0 to 1.6 (the
+    trade wants at least ~1 mag of colour to pin down the slopes, common
+    practice) with small catalogue errors, as standard-star catalogues have.
+    It is observed for half an hour at the start of the demo's first night, with
+    the same filters, camera and colour terms as the demo field, so the fitted
+    coefficients apply to the demo series.
+    """
+    demo = demo_scenario()
+    V = (10.62, 11.05, 11.48, 11.90, 12.21, 12.57, 12.83, 13.12, 13.40, 13.66, 13.95, 14.22)
+    BV = (0.02, 1.48, 0.35, 0.91, 0.18, 1.21, 0.64, 1.59, 0.47, 0.08, 1.03, 0.76)
+    errs = {"V": 0.006, "B": 0.008}
+    stars = tuple(
+        SimStar(f"S{k + 1:02d}", "target" if k == 0 else "comparison", V=v, BV=c, catalog_err=errs)
+        for k, (v, c) in enumerate(zip(V, BV))
+    )
+    return dataclasses.replace(
+        demo,
+        field_name="Lantern Cluster (invented standard field)",
+        ra_deg=318.40,
+        dec_deg=9.75,
+        stars=stars,
+        nights=(NightPlan("2026-09-11", start_delay_h=0.0, max_hours=0.5, seeing_arcsec=2.5),),
+        clouds=(),
+        seed=demo.seed + 101,
+        n_cosmic=0,
+        missing_fraction=0.0,
+        wide_form_night=None,
+        published_ephemeris=None,
+    )
+
+
+def standards_toml(scenario: Scenario) -> str:
+    """The standard field's star list (``[field]`` and ``[[stars]]`` with B and V) as TOML."""
+    cat = catalogue(scenario)
+    lines = [
+        f"# {scenario.field_name}: invented standard stars for varstar's demo (seed {scenario.seed}).",
+        "# Catalogue values = truth + simulated catalogue error.",
+        "",
+        "[field]",
+        f"name = {json.dumps(scenario.field_name)}",
+    ]
+    for s in scenario.stars:
+        sub = cat[cat["star"] == s.id].set_index("band")
+        lines += ["", "[[stars]]", f"id = {json.dumps(s.id)}"]
+        lines += [f"{b} = {_fmt(sub.loc[b, 'catalog'], 3)}" for b in ("V", "B")]
+        lines += [f"{b}_err = {_fmt(sub.loc[b, 'catalog_err'], 3)}" for b in ("V", "B")]
+    return "\n".join(lines) + "\n"
+
+
+def standard_field_files(scenario: Scenario | None = None) -> dict[str, str]:
+    """``standards.toml`` and ``standards.csv`` (one half-hour run) of the invented standard field."""
+    scenario = scenario or standard_field_scenario()
+    series = simulate(scenario)
+    return {"standards.toml": standards_toml(scenario), "standards.csv": measurements_csv(series.nights[0])}
+
+
+def demo_files() -> dict[str, str]:
+    """Every file of the shipped demo series: the demo field's nights and truth, and the standard field."""
+    scenario = demo_scenario()
+    files = series_files(simulate(scenario), scenario)
+    files.update(standard_field_files())
+    return files

@@ -61,6 +61,9 @@ class Target:
     extra: Mapping[str, Any] = field(default_factory=dict)
     source_text: str = ""
     source: str = "<string>"
+    #: Interstellar colour excess E(B-V) and its error (``[target] ebv``), None if not given.
+    ebv: float | None = None
+    ebv_err: float = 0.0
 
     @property
     def star_ids(self) -> tuple[str, ...]:
@@ -148,6 +151,51 @@ def _number(table: Mapping[str, Any], key: str, where: str, lo: float, hi: float
     return float(v)
 
 
+def _parse_stars(stars_t: list, source: str, roles: tuple[str, ...]) -> list[Star]:
+    """The ``[[stars]]`` tables: ids, roles and catalogue magnitudes by band."""
+    stars: list[Star] = []
+    seen: set[str] = set()
+    for k, st in enumerate(stars_t, start=1):
+        w = f"{source}: [[stars]] #{k}"
+        if not isinstance(st, dict):
+            raise InputError(f"{w}: expected a table")
+        sid = st.get("id")
+        if not isinstance(sid, str) or not sid.strip():
+            raise InputError(f"{w}: 'id' must be a non-empty string")
+        sid = sid.strip()
+        w = f"{source}: star '{sid}'"
+        if sid in seen:
+            raise InputError(f"{w}: id is used twice")
+        seen.add(sid)
+        role = st.get("role", roles[0] if len(roles) == 1 else None)
+        if role not in roles:
+            raise InputError(f"{w}: role must be one of {', '.join(roles)}, got {role!r}")
+        cat: dict[str, float] = {}
+        cat_err: dict[str, float] = {}
+        for key, val in st.items():
+            if key in _STAR_KEYS:
+                continue
+            band, is_err = (key[:-4], True) if key.endswith("_err") else (key, False)
+            if not _BAND_RE.match(band):
+                raise InputError(f"{w}: unknown key '{key}' (expected a band name like V or B, or V_err)")
+            if isinstance(val, bool) or not isinstance(val, (int, float)) or not math.isfinite(val):
+                raise InputError(f"{w}.{key}: expected a finite number, got {val!r}")
+            if is_err:
+                if not 0 <= val < 5:
+                    raise InputError(f"{w}.{key}: uncertainty must be in [0, 5) mag, got {val}")
+                cat_err[band] = float(val)
+            else:
+                if not -30 < val < 40:
+                    raise InputError(f"{w}.{key}: magnitude {val} is not plausible")
+                cat[band] = float(val)
+        orphan = set(cat_err) - set(cat)
+        if orphan:
+            b = sorted(orphan)[0]
+            raise InputError(f"{w}: '{b}_err' given without '{b}'")
+        stars.append(Star(sid, role, cat, cat_err))
+    return stars
+
+
 def parse_target(text: str, source: str = "<string>") -> Target:
     """Parse the text of a target TOML file.
 
@@ -172,6 +220,11 @@ def parse_target(text: str, source: str = "<string>") -> Target:
             raise InputError(f"{source}: [target] is missing '{key}'")
     ra = parse_angle(tgt["ra"], kind="ra", where=f"{source}: [target].ra")
     dec = parse_angle(tgt["dec"], kind="dec", where=f"{source}: [target].dec")
+    for key, hi in (("ebv", 5.0), ("ebv_err", 1.0)):
+        if key in tgt:
+            _number(tgt, key, f"{source}: [target]", 0.0, hi)
+    if "ebv_err" in tgt and "ebv" not in tgt:
+        raise InputError(f"{source}: [target].ebv_err given without ebv")
 
     site_t = doc.get("site")
     if not isinstance(site_t, dict):
@@ -188,46 +241,7 @@ def parse_target(text: str, source: str = "<string>") -> Target:
     stars_t = doc.get("stars")
     if not isinstance(stars_t, list) or not stars_t:
         raise InputError(f"{source}: no [[stars]] tables: list the target and at least two comparison stars")
-    stars: list[Star] = []
-    seen: set[str] = set()
-    for k, st in enumerate(stars_t, start=1):
-        w = f"{source}: [[stars]] #{k}"
-        if not isinstance(st, dict):
-            raise InputError(f"{w}: expected a table")
-        sid = st.get("id")
-        if not isinstance(sid, str) or not sid.strip():
-            raise InputError(f"{w}: 'id' must be a non-empty string")
-        sid = sid.strip()
-        w = f"{source}: star '{sid}'"
-        if sid in seen:
-            raise InputError(f"{w}: id is used twice")
-        seen.add(sid)
-        role = st.get("role")
-        if role not in ROLES:
-            raise InputError(f"{w}: role must be one of {', '.join(ROLES)}, got {role!r}")
-        cat: dict[str, float] = {}
-        cat_err: dict[str, float] = {}
-        for key, val in st.items():
-            if key in _STAR_KEYS:
-                continue
-            band, is_err = (key[:-4], True) if key.endswith("_err") else (key, False)
-            if not _BAND_RE.match(band):
-                raise InputError(f"{w}: unknown key '{key}' (expected a band name like V or B, or V_err)")
-            if isinstance(val, bool) or not isinstance(val, (int, float)) or not math.isfinite(val):
-                raise InputError(f"{w}.{key}: expected a finite number, got {val!r}")
-            if is_err:
-                if not 0 <= val < 5:
-                    raise InputError(f"{w}.{key}: uncertainty must be in [0, 5) mag, got {val}")
-                cat_err[band] = float(val)
-            else:
-                if not -30 < val < 40:
-                    raise InputError(f"{w}.{key}: magnitude {val} is not plausible")
-                cat[band] = float(val)
-        orphan = set(cat_err) - set(cat)
-        if orphan:
-            b = sorted(orphan)[0]
-            raise InputError(f"{w}: '{b}_err' given without '{b}'")
-        stars.append(Star(sid, role, cat, cat_err))
+    stars = _parse_stars(stars_t, source, ROLES)
 
     n_target = sum(s.role == "target" for s in stars)
     if n_target != 1:
@@ -248,12 +262,12 @@ def parse_target(text: str, source: str = "<string>") -> Target:
         extra=extra,
         source_text=text,
         source=source,
+        ebv=float(tgt["ebv"]) if "ebv" in tgt else None,
+        ebv_err=float(tgt.get("ebv_err", 0.0)),
     )
 
 
-def read_target(path: str | Path) -> Target:
-    """Read and validate a target TOML file."""
-    p = Path(path)
+def _read_text(p: Path) -> str:
     try:
         raw = p.read_bytes()
     except FileNotFoundError:
@@ -261,7 +275,53 @@ def read_target(path: str | Path) -> Target:
     except OSError as exc:
         raise InputError(f"{p}: cannot read: {exc.strerror}") from None
     try:
-        text = raw.decode("utf-8")
+        return raw.decode("utf-8")
     except UnicodeDecodeError as exc:
         raise InputError(f"{p}: not UTF-8 text (byte {exc.start})") from None
-    return parse_target(text, source=str(p))
+
+
+def read_target(path: str | Path) -> Target:
+    """Read and validate a target TOML file."""
+    p = Path(path)
+    return parse_target(_read_text(p), source=str(p))
+
+
+@dataclass(frozen=True)
+class StandardField:
+    """A field of standard stars (catalogue B and V) used to fit transformation coefficients."""
+
+    name: str
+    stars: tuple[Star, ...]
+    source: str = "<string>"
+
+    @property
+    def star_ids(self) -> tuple[str, ...]:
+        return tuple(s.id for s in self.stars)
+
+
+def parse_standards(text: str, source: str = "<string>") -> StandardField:
+    """Parse a standard-field TOML: ``[field] name`` and ``[[stars]]`` with ``id``, ``B``, ``V`` (and errors)."""
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"{source}: not valid TOML: {exc}") from None
+    field_t = doc.get("field", {})
+    if not isinstance(field_t, dict):
+        raise InputError(f"{source}: [field] must be a table")
+    name = field_t.get("name", "standard field")
+    if not isinstance(name, str):
+        raise InputError(f"{source}: [field].name must be a string")
+    stars_t = doc.get("stars")
+    if not isinstance(stars_t, list) or not stars_t:
+        raise InputError(f"{source}: no [[stars]] tables: list the standard stars with their B and V")
+    stars = _parse_stars(stars_t, source, ("standard",))
+    for st in stars:
+        if not {"B", "V"} <= set(st.catalog):
+            raise InputError(f"{source}: star '{st.id}' needs both B and V standard magnitudes")
+    return StandardField(name=name, stars=tuple(stars), source=source)
+
+
+def read_standards(path: str | Path) -> StandardField:
+    """Read and validate a standard-field TOML file."""
+    p = Path(path)
+    return parse_standards(_read_text(p), source=str(p))

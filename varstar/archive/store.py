@@ -23,8 +23,19 @@ def utc_now() -> str:
 
 
 def create_archive(path: str | Path, target: Target) -> "Archive":
-    """Create a new, empty archive for ``target`` at ``path`` (never overwrites)."""
+    """Create a new, empty archive for ``target`` at ``path`` (never overwrites).
+
+    A ``[transformation]`` table in the target description (values, or a
+    reference to a setups file relative to the target file) becomes the
+    archive's first coefficient set.
+    """
+    from ..night import add_transformation
+    from ..setups import resolve_transformation
     from .transaction import create_new
+
+    coeffs = None
+    if "transformation" in target.extra:
+        coeffs = resolve_transformation(target.extra["transformation"], Path(target.source))
 
     def build(f: h5py.File) -> None:
         f.attrs["format"] = FORMAT_NAME
@@ -38,6 +49,8 @@ def create_archive(path: str | Path, target: Target) -> "Archive":
         g.attrs["dec_deg"] = target.dec_deg
         tables.create_tables(f)
         tables.append(f, "stars", {"id": [s.id for s in target.stars], "role": [s.role for s in target.stars]})
+        if coeffs is not None:
+            add_transformation(f, coeffs[0], coeffs[1], utc_now())
 
     create_new(Path(path), build)
     return Archive(path)
@@ -121,12 +134,25 @@ class Archive:
         df.insert(1, "night_label", _labels(labels, df["night"].to_numpy()))
         return df
 
+    def ensembles(self) -> pd.DataFrame:
+        """Per night and band: calibration error and fitted colour extinction of the ensemble."""
+        with self._open() as f:
+            d = tables.read(f, "ensembles")
+            bands = tables.read(f, "bands", ["name"])["name"]
+            labels = tables.read(f, "nights", ["night", "label"])
+        df = pd.DataFrame(d)
+        if len(df):
+            df["band"] = bands[df["band"].to_numpy()]
+        df.insert(1, "night_label", _labels(labels, df["night"].to_numpy()))
+        return df
+
     def lightcurve(
         self,
         band: str | None = None,
         star: str | None = None,
         *,
         include_flagged: bool = False,
+        standard: bool = True,
     ) -> pd.DataFrame:
         """The calibrated light curve as a DataFrame, sorted by time.
 
@@ -139,15 +165,25 @@ class Archive:
         include_flagged
             Also return points of flagged exposures and upstream-flagged
             measurements (column ``quality`` says why: 0 = good).
+        standard
+            Give standard-system (transformed) magnitudes where they exist
+            (default); False gives the untransformed ones everywhere.
 
         Returns
         -------
         pandas.DataFrame
             Columns ``bjd_tdb, hjd_utc, jd_utc, band, star, mag, mag_err,
-            cal_err, airmass, night, frame, quality, flags``.  ``mag_err`` is
-            the point's own 1-sigma (measurement and exposure zero point);
-            ``cal_err`` is the night's calibration uncertainty shared by all
-            its points in that band.
+            cal_err, transformed, bv, bv_err, bv_sys_err, mag_untransformed,
+            mag_untransformed_err, cal_untransformed_err, colour_gap_d,
+            epsilon_v, mu_bv, k2_bv, airmass, night, frame, quality, flags``.
+            ``mag_err`` is the point's own 1-sigma (measurement, exposure zero
+            point and, when transformed, the other band's interpolated
+            magnitude); ``cal_err`` is the night's systematic uncertainty shared
+            by all its points in that band (catalogue tie and, when
+            transformed, the coefficients).  ``bv`` is the star's standard
+            B - V at that time (transformed points only; ``bv_sys_err`` its
+            systematic 1-sigma for the night); ``epsilon_v``,
+            ``mu_bv``, ``k2_bv`` are the coefficients used (NaN if none).
         """
         with self._open() as f:
             stars = tables.read(f, "stars", ["id"])["id"]
@@ -174,6 +210,16 @@ class Archive:
             exp_idx = p["exposure"]
             e = tables.read(f, "exposures", ["jd_utc", "hjd_utc", "airmass", "frame", "flags"])
             labels = tables.read(f, "nights", ["night", "label"])
+            trans = tables.read(f, "transformations")
+        done = p["transformation"] >= 0
+        use = done & standard
+        tid = np.where(done, p["transformation"], 0)
+
+        def coeff(name: str) -> np.ndarray:
+            if trans["transformation"].size == 0:
+                return np.full(len(tid), np.nan)
+            return np.where(done, trans[name][tid], np.nan)
+
         df = pd.DataFrame(
             {
                 "bjd_tdb": p["bjd_tdb"],
@@ -181,9 +227,20 @@ class Archive:
                 "jd_utc": e["jd_utc"][exp_idx],
                 "band": bands[p["band"]] if len(exp_idx) else np.array([], dtype=object),
                 "star": star,
-                "mag": p["mag"],
-                "mag_err": p["mag_err"],
-                "cal_err": p["cal_err"],
+                "mag": np.where(use, p["mag_std"], p["mag"]),
+                "mag_err": np.where(use, p["mag_std_err"], p["mag_err"]),
+                "cal_err": np.where(use, p["cal_std_err"], p["cal_err"]),
+                "transformed": use,
+                "bv": p["bv_std"],
+                "bv_err": p["bv_std_err"],
+                "bv_sys_err": p["bv_std_sys_err"],
+                "mag_untransformed": p["mag"],
+                "mag_untransformed_err": p["mag_err"],
+                "cal_untransformed_err": p["cal_err"],
+                "colour_gap_d": p["colour_gap_d"],
+                "epsilon_v": coeff("epsilon_v"),
+                "mu_bv": coeff("mu_bv"),
+                "k2_bv": coeff("k2_bv"),
                 "airmass": e["airmass"][exp_idx],
                 "night": _labels(labels, p["night"]),
                 "frame": e["frame"][exp_idx],
@@ -192,6 +249,11 @@ class Archive:
             }
         )
         return df.sort_values(["bjd_tdb", "band"], kind="stable").reset_index(drop=True)
+
+    def transformations(self) -> pd.DataFrame:
+        """Every coefficient set the archive has used, oldest first (the last is in force)."""
+        with self._open() as f:
+            return pd.DataFrame(tables.read(f, "transformations"))
 
     def raw(self) -> pd.DataFrame:
         """The measurements exactly as ingested, one row per star per exposure."""
@@ -230,6 +292,7 @@ class Archive:
             bands[str(b)] = {
                 "n_points": int(len(g)),
                 "n_flagged": int(((lc["band"] == b) & (lc["quality"] != 0)).sum()),
+                "n_standard": int(g["transformed"].sum()),
                 "mag_min": float(g["mag"].min()),
                 "mag_max": float(g["mag"].max()),
                 "median_mag_err": float(g["mag_err"].median()),
