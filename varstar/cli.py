@@ -76,6 +76,18 @@ def format_night_report(rep: dict[str, Any]) -> str:
             )
         for w in b["ensemble"].get("warnings", []):
             lines.append(f"      note: {w}")
+    tr = rep.get("transformation")
+    if tr:
+        c = tr["coefficients"]
+        lines.append(
+            f"  standard system: {tr['n_transformed']} of {tr['n_points']} points transformed "
+            f"(epsilon_v {c['epsilon_v']:+.4f}, mu_bv {c['mu_bv']:.4f}, from {c['source']})"
+        )
+        t = tr.get("target")
+        if t:
+            shifts = ", ".join(f"{b} {v['mean_shift']:+.3f}" for b, v in sorted(t["by_band"].items()))
+            lines.append(f"      target B - V {t['bv_min']:.3f} .. {t['bv_max']:.3f}; mean change from transformation: {shifts} mag")
+        lines += [f"      note: {n}" for n in tr["notes"]]
     for w in rep.get("warnings", []):
         lines.append(f"  warning: {w}")
     return "\n".join(lines)
