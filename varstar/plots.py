@@ -241,3 +241,105 @@ def colour_magnitude_figure(field: pd.DataFrame, track: pd.DataFrame, *, title: 
     if title:
         ax.set_title(title)
     return fig
+
+
+def periodogram_figure(
+    freq: np.ndarray,
+    power: np.ndarray,
+    *,
+    best_frequency: float,
+    fap_levels: dict[float, float] | None = None,
+    peaks: list[dict] | None = None,
+    theta: np.ndarray | None = None,
+    title: str = "",
+    ylabel: str = "power (generalised Lomb–Scargle)",
+) -> "Figure":
+    """Periodogram against frequency, with false-alarm levels and the alias peaks marked.
+
+    ``fap_levels`` maps a false-alarm probability to the power it needs;
+    ``peaks`` are dicts with ``frequency``, ``power``, ``relation`` (the
+    strongest peaks and how they relate to the best one); ``theta`` (same grid)
+    adds a panel with the phase-dispersion statistic of the second method.
+    """
+    n = 2 if theta is not None else 1
+    fig = _figure(n, width=10.0, height_per=3.4)
+    axes = fig.subplots(n, 1, sharex=True, squeeze=False)[:, 0]
+    ax = axes[0]
+    ax.plot(freq, power, "-", color=PALETTE[0], lw=0.7)
+    styles = ("--", ":", "-.")
+    for k, (fap, level) in enumerate(sorted((fap_levels or {}).items())):
+        ax.axhline(level, ls=styles[k % len(styles)], color="0.35", lw=0.9, label=f"false-alarm probability {fap:g}")
+    for pk in peaks or []:
+        best = abs(pk["frequency"] - best_frequency) < 1e-12
+        ax.plot(pk["frequency"], pk["power"], "v" if best else "^", color=PALETTE[5] if best else PALETTE[1], ms=8,
+                label="best peak" if best else "other strong peaks")
+        ax.annotate(("best" if best else pk.get("relation", "")) + f"\nP = {1 / pk['frequency']:.5f} d",
+                    (pk["frequency"], pk["power"]), textcoords="offset points", xytext=(4, 6), fontsize=7, color="0.25")
+    ax.set_ylabel(ylabel)
+    ax.set_ylim(bottom=0)
+    ax.grid(alpha=0.3)
+    handles, labels = ax.get_legend_handles_labels()
+    seen = {}
+    for h, lab in zip(handles, labels):
+        seen.setdefault(lab, h)
+    ax.legend(list(seen.values()), list(seen.keys()), fontsize="small", loc="upper right")
+    if theta is not None:
+        axes[1].plot(freq, theta, "-", color=PALETTE[2], lw=0.7)
+        axes[1].axvline(best_frequency, color=PALETTE[5], lw=0.8, ls="--")
+        axes[1].set_ylabel("PDM θ (Stellingwerf 1978)")
+        axes[1].grid(alpha=0.3)
+    axes[-1].set_xlabel("frequency (cycles per day)")
+    if title:
+        fig.suptitle(title)
+    return fig
+
+
+def phased_figure(
+    lc: pd.DataFrame,
+    *,
+    period_d: float,
+    epoch_bjd: float,
+    model: dict[str, tuple[np.ndarray, np.ndarray]],
+    residuals: np.ndarray,
+    title: str = "",
+) -> "Figure":
+    """Phased light curve over two cycles with the fitted model, and the residuals below.
+
+    Parameters
+    ----------
+    lc
+        Points with ``bjd_tdb, mag, mag_err, band``.
+    model
+        Per band: (phase grid in [0, 1), model magnitudes).
+    residuals
+        Data minus model, aligned with ``lc``.
+    """
+    fig = _figure(2, width=9.0, height_per=3.0)
+    ax, axr = fig.subplots(2, 1, sharex=True, gridspec_kw={"height_ratios": [3, 1]})
+    phase = np.mod((lc["bjd_tdb"].to_numpy() - epoch_bjd) / period_d, 1.0)
+    for k, band in enumerate(sorted(pd.unique(lc["band"]))):
+        m = (lc["band"] == band).to_numpy()
+        colour, marker = PALETTE[k % len(PALETTE)], MARKERS[k % len(MARKERS)]
+        for shift in (0.0, 1.0):
+            ax.errorbar(phase[m] + shift, lc["mag"].to_numpy()[m], yerr=lc["mag_err"].to_numpy()[m], fmt=marker, ms=2.5,
+                        color=colour, elinewidth=0.5, capsize=0, alpha=0.8, label=f"{band}" if shift == 0 else None)
+            axr.errorbar(phase[m] + shift, residuals[m], yerr=lc["mag_err"].to_numpy()[m], fmt=marker, ms=2.5,
+                         color=colour, elinewidth=0.5, capsize=0, alpha=0.8)
+        if band in model:
+            ph, mag = model[band]
+            order = np.argsort(ph)
+            for shift in (0.0, 1.0):
+                ax.plot(ph[order] + shift, mag[order], "-", color="black", lw=1.1,
+                        label="harmonic fit" if (shift == 0 and k == 0) else None)
+    ax.invert_yaxis()
+    ax.set_ylabel("magnitude")
+    ax.grid(alpha=0.3)
+    ax.legend(fontsize="small", loc="best")
+    axr.axhline(0.0, color="black", lw=0.8)
+    axr.invert_yaxis()
+    axr.set_ylabel("O − C (mag)")
+    axr.set_xlabel(f"phase (P = {period_d:.6f} d, epoch BJD_TDB {epoch_bjd:.5f}); two cycles shown")
+    axr.grid(alpha=0.3)
+    if title:
+        fig.suptitle(title)
+    return fig

@@ -1,0 +1,1 @@
+"""Period analysis: periodograms, phase dispersion, aliases, harmonic fits and prewhitening."""

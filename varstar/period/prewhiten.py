@@ -1,0 +1,421 @@
+"""Iterative prewhitening of multiperiodic light curves.
+
+Each round takes the highest peak of a periodogram of the residuals, fits ALL
+frequencies found so far together with it (weighted non-linear least squares:
+every frequency free, each with its own amplitude and phase per harmonic, one
+common mean), subtracts that model from the data and starts again.  A candidate is
+accepted while its amplitude signal-to-noise ratio is at least ``snr_limit``
+(4, Breger et al. 1993, A&A 271, 482).
+
+Amplitude and noise.  The candidate's amplitude is the semi-amplitude ``A`` of its
+first harmonic from the simultaneous fit (not converted from periodogram power).
+The noise is the mean of the residuals' amplitude spectrum, computed directly by a
+weighted discrete Fourier transform
+
+.. math::
+
+    A(\\nu) = \\frac{2 \\left| \\sum_j w_j (r_j - \\bar r) e^{-2\\pi i \\nu t_j} \\right|}{\\sum_j w_j},
+    \\qquad w_j = 1/dy_j^2,
+
+on a grid of step ``1/(10 T)`` over a window ``noise_window`` c/d wide centred on
+the candidate, with the residuals taken after fitting the candidate too.  A
+sinusoid of semi-amplitude ``A`` gives ``A(nu) ~ A`` at its frequency, so signal
+and noise are on the same scale.  For white noise of rms ``sigma`` and equal
+weights the mean of ``A(nu)`` is ``sigma sqrt(pi / N)`` (a Rayleigh variable).
+
+Frequencies closer than ``1.5/T`` (the resolution with a margin) to one already
+found are not separated: prewhitening stops there and says so.  Errors come from
+the final simultaneous fit, its covariance scaled by chi2/dof as in
+:mod:`varstar.period.refine`; phases follow that module's cosine convention.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+import numpy as np
+
+from varstar.errors import InputError, ReductionError
+from varstar.period.refine import (
+    _amp_phase,
+    _check_freq,
+    _check_series,
+    _err,
+    _fit_sinusoids,
+    _jf,
+    _model_jac,
+)
+
+__all__ = ["amplitude_spectrum", "FoundFrequency", "PrewhiteningResult", "prewhiten"]
+
+_CHUNK_ELEMENTS = 2_000_000
+
+
+def amplitude_spectrum(t: Any, y: Any, dy: Any, freq: Any) -> np.ndarray:
+    """Weighted DFT amplitude spectrum (semi-amplitude scale; see the module docstring).
+
+    Parameters
+    ----------
+    t, y, dy : array_like
+        Times (days), magnitudes (or residuals) and errors (``None``: equal weights).
+    freq : array_like
+        Frequencies (cycles/day).
+    """
+    t, y, dy = _check_series(t, y, dy, min_points=2, what="amplitude spectrum")
+    freq = _check_freq(freq)
+    w = 1.0 / dy**2
+    wr = w * (y - np.sum(w * y) / np.sum(w))
+    tt = t - t.mean()
+    out = np.empty(freq.size)
+    chunk = max(1, _CHUNK_ELEMENTS // t.size)
+    for start in range(0, freq.size, chunk):
+        arg = 2.0 * math.pi * np.multiply.outer(freq[start : start + chunk], tt)
+        out[start : start + chunk] = np.hypot(np.cos(arg) @ wr, np.sin(arg) @ wr)
+    return 2.0 * out / np.sum(w)
+
+
+def _noise(t, r, dy, f0, window, step) -> float:
+    lo = max(f0 - 0.5 * window, 0.0)
+    grid = np.arange(lo, f0 + 0.5 * window + 0.5 * step, step)
+    return float(np.mean(amplitude_spectrum(t, r, dy, grid)))
+
+
+@dataclass(frozen=True)
+class FoundFrequency:
+    """One frequency of a prewhitening solution (errors are 1 sigma).
+
+    ``amplitude``/``phase`` belong to the first harmonic in the convention
+    ``A cos(2 pi f (t - t_ref) + phase)``; ``harmonic_amplitudes`` lists all
+    ``nterms`` of them.  ``snr`` is amplitude / ``noise`` (mean residual amplitude
+    spectrum around the frequency).  ``relation`` names a harmonic or combination
+    of earlier frequencies (``"2 f1"``, ``"f1 + f2"``, ``"f2 - f1"``) or is empty.
+    """
+
+    label: str
+    frequency: float
+    frequency_err: float
+    period: float
+    period_err: float
+    amplitude: float
+    amplitude_err: float
+    phase: float
+    phase_err: float
+    snr: float
+    noise: float
+    harmonic_amplitudes: tuple[float, ...]
+    relation: str
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-safe plain dict."""
+        return {
+            "label": self.label,
+            "frequency": _jf(self.frequency),
+            "frequency_err": _jf(self.frequency_err),
+            "period": _jf(self.period),
+            "period_err": _jf(self.period_err),
+            "amplitude": _jf(self.amplitude),
+            "amplitude_err": _jf(self.amplitude_err),
+            "phase": _jf(self.phase),
+            "phase_err": _jf(self.phase_err),
+            "snr": _jf(self.snr),
+            "noise": _jf(self.noise),
+            "harmonic_amplitudes": [_jf(v) for v in self.harmonic_amplitudes],
+            "relation": self.relation,
+        }
+
+
+@dataclass(frozen=True, eq=False)
+class PrewhiteningResult:
+    """Frequencies found by prewhitening, their errors, and why the search stopped.
+
+    Attributes
+    ----------
+    frequencies : tuple of FoundFrequency
+        In the order found.
+    mean_mag, mean_mag_err, t_ref : float
+        Common mean of the final fit and the phase reference time.
+    nterms : int
+        Harmonics fitted per frequency.
+    chi2, dof, reduced_chi2, rms : float, int, float, float
+        Of the final simultaneous fit (rms unweighted, mag).
+    stop_reason : str
+        Plain words: why no further frequency was accepted.
+    stop_frequency, stop_amplitude, stop_noise, stop_snr : float
+        The rejected candidate (NaN if the search ended for another reason).
+    relations : tuple of str
+        Harmonics and combinations noticed, e.g. ``"f3 = f1 + f2"``.
+    snr_limit, noise_window : float
+        Settings used.
+    warnings : tuple of str
+    params, covariance : np.ndarray
+        Final parameter vector ``[m, f_1, a_11, b_11, ...]`` and scaled covariance.
+    """
+
+    frequencies: tuple[FoundFrequency, ...]
+    mean_mag: float
+    mean_mag_err: float
+    t_ref: float
+    nterms: int
+    chi2: float
+    dof: int
+    reduced_chi2: float
+    rms: float
+    stop_reason: str
+    stop_frequency: float
+    stop_amplitude: float
+    stop_noise: float
+    stop_snr: float
+    relations: tuple[str, ...]
+    snr_limit: float
+    noise_window: float
+    warnings: tuple[str, ...]
+    params: np.ndarray = field(repr=False)
+    covariance: np.ndarray = field(repr=False)
+
+    def model(self, t: Any) -> np.ndarray:
+        """The fitted multi-frequency model at times ``t``."""
+        tau = np.asarray(t, dtype=float) - self.t_ref
+        mod, _ = _model_jac(self.params, tau.ravel(), len(self.frequencies), self.nterms, want_jac=False)
+        return mod.reshape(tau.shape)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-safe plain dict (NaN becomes None)."""
+        return {
+            "method": (
+                "iterative prewhitening: periodogram peak, simultaneous non-linear least squares of all "
+                "frequencies, amplitude S/N against the mean residual amplitude spectrum (Breger et al. 1993)"
+            ),
+            "phase_convention": "y = mean_mag + sum_i sum_k A_ik cos(2 pi k f_i (t - t_ref) + phi_ik)",
+            "frequencies": [f.to_dict() for f in self.frequencies],
+            "mean_mag": _jf(self.mean_mag),
+            "mean_mag_err": _jf(self.mean_mag_err),
+            "t_ref": _jf(self.t_ref),
+            "nterms": int(self.nterms),
+            "chi2": _jf(self.chi2),
+            "dof": int(self.dof),
+            "reduced_chi2": _jf(self.reduced_chi2),
+            "rms": _jf(self.rms),
+            "stop_reason": self.stop_reason,
+            "stop_frequency": _jf(self.stop_frequency),
+            "stop_amplitude": _jf(self.stop_amplitude),
+            "stop_noise": _jf(self.stop_noise),
+            "stop_snr": _jf(self.stop_snr),
+            "relations": list(self.relations),
+            "snr_limit": float(self.snr_limit),
+            "noise_window": float(self.noise_window),
+            "warnings": list(self.warnings),
+        }
+
+
+def _relations(freqs: np.ndarray, tol: float) -> list[str]:
+    """Per frequency: a harmonic or two-term combination of earlier (stronger) ones, or ''."""
+    out = []
+    for j, fj in enumerate(freqs):
+        rel, best = "", math.inf
+        for i in range(j):  # loops over the few found frequencies only
+            for k in range(2, 6):
+                d = abs(fj - k * freqs[i]) / (k * tol)
+                if d <= 1 and d < best:
+                    rel, best = f"{k} f{i + 1}", d
+            for l in range(i + 1, j):
+                d = abs(fj - (freqs[i] + freqs[l])) / (2 * tol)
+                if d <= 1 and d < best:
+                    rel, best = f"f{i + 1} + f{l + 1}", d
+                hi, lo = (l, i) if freqs[l] > freqs[i] else (i, l)
+                d = abs(fj - (freqs[hi] - freqs[lo])) / (2 * tol)
+                if d <= 1 and d < best:
+                    rel, best = f"f{hi + 1} - f{lo + 1}", d
+        out.append(rel)
+    return out
+
+
+def prewhiten(
+    t: Any,
+    y: Any,
+    dy: Any,
+    freq: Any,
+    periodogram: Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray], np.ndarray],
+    *,
+    nterms: int = 1,
+    snr_limit: float = 4.0,
+    max_frequencies: int = 10,
+    noise_window: float = 1.0,
+    relation_tolerance: float | None = None,
+) -> PrewhiteningResult:
+    """Find the frequencies of a multiperiodic light curve by iterative prewhitening.
+
+    Parameters
+    ----------
+    t, y, dy : array_like
+        Times (days), magnitudes and 1-sigma errors.
+    freq : array_like
+        Frequency grid (cycles/day) searched for each new peak.
+    periodogram : callable
+        ``periodogram(t, y, dy, freq) -> power`` (larger = stronger), used only to
+        locate the highest peak of the residuals.
+    nterms : int
+        Harmonics fitted with each frequency (1 = pure sinusoids; found harmonics
+        are then reported as relations).
+    snr_limit : float
+        Minimum amplitude S/N of an accepted frequency (4: Breger et al. 1993).
+    max_frequencies : int
+        Upper bound on the number of frequencies.
+    noise_window : float
+        Width (cycles/day) of the window, centred on a frequency, where the noise is
+        averaged.
+    relation_tolerance : float, optional
+        Tolerance (cycles/day) for naming harmonics/combinations; default ``1/T``.
+
+    Returns
+    -------
+    PrewhiteningResult
+    """
+    t, y, dy = _check_series(t, y, dy, what="prewhitening")
+    freq = _check_freq(freq)
+    if not callable(periodogram):
+        raise InputError("prewhitening: 'periodogram' must be a function periodogram(t, y, dy, freq) -> power")
+    nterms = int(nterms)
+    if nterms < 1:
+        raise InputError(f"prewhitening: nterms must be at least 1 (got {nterms})")
+    if not snr_limit > 0 or not noise_window > 0 or int(max_frequencies) < 1:
+        raise InputError("prewhitening: snr_limit and noise_window must be positive and max_frequencies >= 1")
+    baseline = float(t.max() - t.min())
+    if baseline <= 0:
+        raise InputError("prewhitening: all times are equal; a time span is needed")
+    w = 1.0 / dy**2
+    t_ref = float(np.sum(w * t) / np.sum(w))
+    step = 1.0 / (10.0 * baseline)
+    resolution = 1.5 / baseline
+    width = 1 + 2 * nterms
+
+    accepted: np.ndarray = np.zeros(0)
+    fit = None
+    resid = y - np.sum(w * y) / np.sum(w)
+    warnings: list[str] = []
+    stop = dict(reason="", f=math.nan, amp=math.nan, noise=math.nan, snr=math.nan)
+    while True:
+        if accepted.size >= int(max_frequencies):
+            stop["reason"] = f"stopped at max_frequencies = {int(max_frequencies)}"
+            break
+        power = np.asarray(periodogram(t, resid, dy, freq), dtype=float)
+        if power.shape != freq.shape:
+            raise InputError(
+                f"prewhitening: the periodogram returned {power.size} values for {freq.size} frequencies"
+            )
+        if not np.any(np.isfinite(power)):
+            stop["reason"] = "the periodogram of the residuals has no finite value"
+            break
+        f_new = float(freq[np.nanargmax(power)])
+        close = np.abs(accepted - f_new) < resolution
+        if close.any():
+            near = int(np.flatnonzero(close)[0])
+            stop.update(
+                reason=(
+                    f"the next peak at {f_new:.6f} c/d lies within 1.5/T = {resolution:.5f} c/d of "
+                    f"f{near + 1}: unresolved (amplitude or phase change?); a longer time span would separate them"
+                ),
+                f=f_new,
+            )
+            break
+        try:
+            trial = _fit_sinusoids(t, y, dy, np.append(accepted, f_new), nterms, t_ref)
+        except ReductionError as exc:  # degenerate sampling for this set: reported as the stop reason
+            stop.update(reason=f"the fit with the candidate at {f_new:.6f} c/d failed: {exc}", f=f_new)
+            break
+        k_new = accepted.size
+        base = 1 + k_new * width
+        f_fit = float(trial.params[base])
+        amp = math.hypot(trial.params[base + 1], trial.params[base + 2])
+        noise = _noise(t, trial.resid, dy, f_fit, noise_window, step)
+        snr = amp / noise if noise > 0 else math.inf
+        if snr < snr_limit:
+            stop.update(
+                reason=f"the next peak at {f_fit:.6f} c/d has amplitude S/N {snr:.2f} < {snr_limit:g}",
+                f=f_fit,
+                amp=amp,
+                noise=noise,
+                snr=snr,
+            )
+            break
+        if not trial.success:
+            warnings.append(f"fit with {k_new + 1} frequencies: solver did not report convergence ({trial.message})")
+        if abs(f_fit - f_new) > 0.5 / baseline:
+            warnings.append(
+                f"f{k_new + 1} moved from the peak at {f_new:.6f} to {f_fit:.6f} c/d during the fit"
+            )
+        fit = trial
+        accepted = trial.params[1 + np.arange(k_new + 1) * width].copy()
+        resid = trial.resid
+
+    if fit is None:  # nothing accepted: report the constant model
+        n = t.size
+        mean = float(np.sum(w * y) / np.sum(w))
+        chi2 = float(np.sum(w * (y - mean) ** 2))
+        dof = n - 1
+        mean_err = math.sqrt(chi2 / dof / np.sum(w)) if dof > 0 else math.nan
+        params = np.array([mean])
+        cov = np.array([[mean_err**2]])
+        return PrewhiteningResult(
+            (), mean, mean_err, t_ref, nterms, chi2, dof, chi2 / dof if dof else math.nan,
+            float(np.sqrt(np.mean((y - mean) ** 2))), stop["reason"], stop["f"], stop["amp"],
+            stop["noise"], stop["snr"], (), float(snr_limit), float(noise_window), tuple(warnings), params, cov,
+        )
+
+    p, cov = fit.params, fit.cov
+    tol = 1.0 / baseline if relation_tolerance is None else float(relation_tolerance)
+    rels = _relations(accepted, tol)
+    found = []
+    for i, f_i in enumerate(accepted):
+        base = 1 + i * width
+        amp, phi, g_a, g_p = _amp_phase(p[base + 1], p[base + 2])
+        ga = np.zeros(p.size)
+        gp = np.zeros(p.size)
+        ga[base + 1 : base + 3] = g_a
+        gp[base + 1 : base + 3] = g_p
+        f_err = math.sqrt(cov[base, base])
+        noise = _noise(t, fit.resid, dy, f_i, noise_window, step)
+        harm = tuple(
+            float(math.hypot(p[base + 1 + 2 * k], p[base + 2 + 2 * k])) for k in range(nterms)
+        )
+        found.append(
+            FoundFrequency(
+                label=f"f{i + 1}",
+                frequency=float(f_i),
+                frequency_err=f_err,
+                period=1.0 / f_i,
+                period_err=f_err / f_i**2,
+                amplitude=amp,
+                amplitude_err=_err(ga, cov),
+                phase=phi,
+                phase_err=_err(gp, cov),
+                snr=amp / noise if noise > 0 else math.inf,
+                noise=noise,
+                harmonic_amplitudes=harm,
+                relation=rels[i],
+            )
+        )
+    relations = tuple(f"{ff.label} = {ff.relation}" for ff in found if ff.relation)
+    return PrewhiteningResult(
+        frequencies=tuple(found),
+        mean_mag=float(p[0]),
+        mean_mag_err=math.sqrt(cov[0, 0]),
+        t_ref=t_ref,
+        nterms=nterms,
+        chi2=fit.chi2,
+        dof=fit.dof,
+        reduced_chi2=fit.chi2 / fit.dof if fit.dof > 0 else math.nan,
+        rms=float(np.sqrt(np.mean(fit.resid**2))),
+        stop_reason=stop["reason"],
+        stop_frequency=float(stop["f"]),
+        stop_amplitude=float(stop["amp"]),
+        stop_noise=float(stop["noise"]),
+        stop_snr=float(stop["snr"]),
+        relations=relations,
+        snr_limit=float(snr_limit),
+        noise_window=float(noise_window),
+        warnings=tuple(warnings),
+        params=p.copy(),
+        covariance=cov.copy(),
+    )

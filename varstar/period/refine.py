@@ -1,0 +1,583 @@
+"""Non-linear harmonic fits: period, amplitudes, phases, epochs and Fourier parameters.
+
+The model of one periodic signal with ``nterms`` harmonics is
+
+.. math::
+
+    y(t) = m + \\sum_{k=1}^{K} a_k \\cos(2\\pi k f \\tau) + b_k \\sin(2\\pi k f \\tau),
+    \\qquad \\tau = t - t_{ref},
+
+fitted by weighted non-linear least squares (:func:`scipy.optimize.least_squares`,
+weights ``1/dy**2``) with the frequency ``f`` free, starting from a periodogram's
+frequency.  ``t_ref`` is the weighted mean time of the data: at that reference the
+frequency is (to first order) uncorrelated with the phases, so their errors are
+independent and the fit converges quickly.
+
+Phase convention (used for every phase this module reports)::
+
+    y(t) = m + sum_k A_k cos(2 pi k f (t - t_ref) + phi_k),
+    A_k = hypot(a_k, b_k),   phi_k = atan2(-b_k, a_k)  in [0, 2 pi).
+
+The Fourier parameters of Simon & Lee (1981, ApJ 248, 291) are ``R21 = A2/A1`` and
+``phi21 = phi2 - 2 phi1`` (mod 2 pi); both are independent of ``t_ref``.  Both a
+cosine and a sine series appear in the literature; for a sine series
+``y = m + sum A_k sin(... + psi_k)`` one has ``psi_k = phi_k + pi/2``, so
+``phi21_sine = phi21 - pi/2`` and ``phi31_sine = phi31 - pi`` (mod 2 pi).  Both are
+reported.
+
+Uncertainties: the covariance is ``(J^T W J)^-1`` at the solution (``J`` the
+Jacobian of the model) **always multiplied by the reduced chi-square**
+``chi2/dof``.  Scaling always (not only when ``chi2/dof > 1``) makes the errors
+reflect the scatter actually seen about the model, whatever the quality of the
+supplied ``dy``; with honest ``dy`` the factor is ``1 +- sqrt(2/dof)``.  Derived
+quantities (period, amplitudes, phases, R21, phi21, peak-to-peak amplitude,
+epochs of extrema) get their errors by linear propagation of that covariance;
+``period_err = frequency_err / f**2``.
+
+Magnitudes: the brightest point of the curve is its SMALLEST magnitude, so the
+"epoch of maximum light" is the time of the model's minimum value.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from varstar.errors import InputError, ReductionError
+
+TWO_PI = 2.0 * math.pi
+
+__all__ = ["HarmonicFit", "fit_harmonics"]
+
+
+# --------------------------------------------------------------------------- input checks
+
+
+def _check_series(
+    t: Any, y: Any, dy: Any, *, min_points: int = 3, what: str = "light curve"
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Return ``t, y, dy`` as finite 1-D float arrays of equal length, or raise InputError.
+
+    ``dy=None`` means equal weights (all errors 1).
+    """
+    t = np.asarray(t, dtype=float)
+    y = np.asarray(y, dtype=float)
+    dy = np.ones_like(y) if dy is None else np.asarray(dy, dtype=float)
+    if dy.ndim == 0:
+        dy = np.full_like(y, float(dy))
+    if t.ndim != 1 or y.ndim != 1 or dy.ndim != 1:
+        raise InputError(f"{what}: times, magnitudes and errors must be 1-D arrays")
+    if not (t.size == y.size == dy.size):
+        raise InputError(
+            f"{what}: times ({t.size}), magnitudes ({y.size}) and errors ({dy.size}) "
+            "must have the same length"
+        )
+    if t.size < min_points:
+        raise InputError(f"{what}: {t.size} points given, at least {min_points} are needed")
+    bad = ~(np.isfinite(t) & np.isfinite(y) & np.isfinite(dy))
+    if bad.any():
+        raise InputError(
+            f"{what}: {int(bad.sum())} points have a non-finite time, magnitude or error; "
+            "drop them before the period analysis"
+        )
+    if np.any(dy <= 0):
+        raise InputError(f"{what}: every magnitude error must be positive (got {dy.min():g})")
+    return t, y, dy
+
+
+def _check_freq(freq: Any, *, what: str = "frequency grid") -> np.ndarray:
+    freq = np.asarray(freq, dtype=float)
+    if freq.ndim == 0:
+        freq = freq.reshape(1)
+    if freq.ndim != 1 or freq.size == 0:
+        raise InputError(f"{what}: give a non-empty 1-D array of frequencies (cycles/day)")
+    if not np.all(np.isfinite(freq)):
+        raise InputError(f"{what}: frequencies must be finite")
+    return freq
+
+
+# --------------------------------------------------------------------------- model core
+
+
+def _n_params(n_freq: int, nterms: int) -> int:
+    return 1 + n_freq * (1 + 2 * nterms)
+
+
+def _model_jac(p: np.ndarray, tau: np.ndarray, n_freq: int, nterms: int, want_jac: bool = True):
+    """Model values and Jacobian (N x P) of the multi-frequency harmonic model.
+
+    Parameter layout: ``[m, f_1, a_11, b_11, ..., a_1K, b_1K, f_2, a_21, ...]``.
+    The loop runs over frequencies (a handful), never over measurements.
+    """
+    k = np.arange(1, nterms + 1, dtype=float)
+    model = np.full(tau.shape, p[0])
+    jac = np.empty((tau.size, p.size)) if want_jac else None
+    if want_jac:
+        jac[:, 0] = 1.0
+    width = 1 + 2 * nterms
+    for i in range(n_freq):
+        base = 1 + i * width
+        f = p[base]
+        a = p[base + 1 : base + width : 2]
+        b = p[base + 2 : base + width : 2]
+        arg = TWO_PI * f * np.outer(tau, k)
+        c, s = np.cos(arg), np.sin(arg)
+        model += c @ a + s @ b
+        if want_jac:
+            jac[:, base + 1 : base + width : 2] = c
+            jac[:, base + 2 : base + width : 2] = s
+            jac[:, base] = (TWO_PI * tau) * ((s * (-a) + c * b) @ k)
+    return model, jac
+
+
+@dataclass(frozen=True, eq=False)
+class _Fit:
+    params: np.ndarray
+    cov: np.ndarray
+    chi2: float
+    dof: int
+    resid: np.ndarray
+    success: bool
+    message: str
+
+
+def _linear_start(t, y, w, tau, freqs, nterms) -> np.ndarray:
+    """Amplitudes and mean by weighted linear least squares at fixed frequencies."""
+    n_freq = len(freqs)
+    p = np.zeros(_n_params(n_freq, nterms))
+    width = 1 + 2 * nterms
+    for i, f in enumerate(freqs):
+        p[1 + i * width] = f
+    _, jac = _model_jac(p, tau, n_freq, nterms)
+    lin = np.ones(p.size, dtype=bool)
+    lin[1 + np.arange(n_freq) * width] = False
+    sw = np.sqrt(w)
+    coef, *_ = np.linalg.lstsq(jac[:, lin] * sw[:, None], y * sw, rcond=None)
+    p[lin] = coef
+    return p
+
+
+def _fit_sinusoids(
+    t: np.ndarray,
+    y: np.ndarray,
+    dy: np.ndarray,
+    freqs: Any,
+    nterms: int,
+    t_ref: float,
+    *,
+    refine: bool = True,
+    p0: np.ndarray | None = None,
+) -> _Fit:
+    """Weighted (non-)linear least squares of the multi-frequency harmonic model.
+
+    The covariance is always scaled by chi2/dof (see the module docstring).  With
+    ``refine=False`` the frequencies are held fixed and their rows/columns of the
+    covariance are zero.
+    """
+    freqs = np.atleast_1d(np.asarray(freqs, dtype=float))
+    n_freq = freqs.size
+    w = 1.0 / dy**2
+    sw = 1.0 / dy
+    tau = t - t_ref
+    n_par = _n_params(n_freq, nterms)
+    if t.size <= n_par - (0 if refine else n_freq):
+        raise ReductionError(
+            f"harmonic fit: {t.size} points cannot constrain {n_par} parameters "
+            f"({n_freq} frequencies x {nterms} harmonics); use fewer harmonics or more data"
+        )
+    p = _linear_start(t, y, w, tau, freqs, nterms) if p0 is None else np.array(p0, dtype=float)
+    success, message = True, "linear fit at fixed frequency"
+    width = 1 + 2 * nterms
+    fidx = 1 + np.arange(n_freq) * width
+    if refine:
+        from scipy.optimize import least_squares
+
+        def fun(q):
+            mod, _ = _model_jac(q, tau, n_freq, nterms, want_jac=False)
+            return (y - mod) * sw
+
+        def jac(q):
+            _, jm = _model_jac(q, tau, n_freq, nterms)
+            return -jm * sw[:, None]
+
+        res = least_squares(fun, p, jac=jac, method="lm", x_scale="jac", xtol=1e-12, ftol=1e-12, gtol=1e-12)
+        p = res.x
+        success, message = bool(res.success), str(res.message)
+    model, jm = _model_jac(p, tau, n_freq, nterms)
+    resid = y - model
+    chi2 = float(np.sum(w * resid**2))
+    free = np.ones(n_par, dtype=bool)
+    if not refine:
+        free[fidx] = False
+    dof = int(t.size - free.sum())
+    jw = jm[:, free] * sw[:, None]
+    fisher = jw.T @ jw
+    try:
+        cov_free = np.linalg.inv(fisher)
+    except np.linalg.LinAlgError as exc:  # pragma: no cover - degenerate sampling
+        raise ReductionError(
+            "harmonic fit: the normal matrix is singular; the sampling cannot separate "
+            "these frequencies/harmonics (too few phases covered?)"
+        ) from exc
+    scale = chi2 / dof if dof > 0 else float("nan")
+    cov = np.zeros((n_par, n_par))
+    cov[np.ix_(free, free)] = cov_free * scale
+    return _Fit(p, cov, chi2, dof, resid, success, message)
+
+
+# --------------------------------------------------------------------------- derived quantities
+
+
+def _amp_phase(a: float, b: float) -> tuple[float, float, np.ndarray, np.ndarray]:
+    """A, phi (cosine convention) and their gradients w.r.t. (a, b)."""
+    amp = math.hypot(a, b)
+    phi = math.atan2(-b, a) % TWO_PI
+    if amp == 0.0:
+        return amp, phi, np.array([np.nan, np.nan]), np.array([np.nan, np.nan])
+    g_amp = np.array([a / amp, b / amp])
+    g_phi = np.array([b / amp**2, -a / amp**2])
+    return amp, phi, g_amp, g_phi
+
+
+def _shape(x: np.ndarray, a: np.ndarray, b: np.ndarray, deriv: int = 0) -> np.ndarray:
+    """Harmonic sum (without mean) or its derivatives in the phase angle x (radians)."""
+    k = np.arange(1, a.size + 1, dtype=float)
+    arg = np.outer(x, k)
+    c, s = np.cos(arg), np.sin(arg)
+    if deriv == 0:
+        return c @ a + s @ b
+    if deriv == 1:
+        return (-s * k) @ a + (c * k) @ b
+    return (-c * k**2) @ a + (-s * k**2) @ b
+
+
+def _extremum(a: np.ndarray, b: np.ndarray, which: str) -> float:
+    """Phase angle in [-pi, pi) of the global minimum ('min') or maximum ('max') of the shape."""
+    grid = np.linspace(-math.pi, math.pi, 2048, endpoint=False)
+    vals = _shape(grid, a, b)
+    x = grid[np.argmin(vals) if which == "min" else np.argmax(vals)]
+    for _ in range(30):  # Newton polish on the analytic derivatives
+        d1 = _shape(np.array([x]), a, b, 1)[0]
+        d2 = _shape(np.array([x]), a, b, 2)[0]
+        if d2 == 0.0:
+            break
+        step = d1 / d2
+        step = max(min(step, grid[1] - grid[0]), -(grid[1] - grid[0]))
+        x -= step
+        if abs(step) < 1e-13:
+            break
+    return (x + math.pi) % TWO_PI - math.pi
+
+
+def _extremum_grad(x: float, a: np.ndarray, b: np.ndarray) -> tuple[float, np.ndarray]:
+    """Second derivative at an extremum x and dx/d(a_1, b_1, ..., a_K, b_K) (implicit function)."""
+    k = np.arange(1, a.size + 1, dtype=float)
+    d2 = float(_shape(np.array([x]), a, b, 2)[0])
+    g = np.empty(2 * a.size)
+    # y'(x) = sum k(-a sin kx + b cos kx) = 0  ->  dx/dtheta = -(d y'/d theta) / y''
+    g[0::2] = -(-k * np.sin(k * x)) / d2
+    g[1::2] = -(k * np.cos(k * x)) / d2
+    return d2, g
+
+
+def _err(g: np.ndarray, cov: np.ndarray) -> float:
+    v = float(g @ cov @ g)
+    return math.sqrt(v) if v >= 0 else float("nan")
+
+
+def _wrap(x: float) -> float:
+    return x % TWO_PI
+
+
+def _jf(x: float) -> float | None:
+    """JSON-safe float (NaN/inf become None)."""
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+# --------------------------------------------------------------------------- result
+
+
+@dataclass(frozen=True, eq=False)
+class HarmonicFit:
+    """A harmonic (Fourier-series) fit of one periodic signal with its uncertainties.
+
+    Attributes
+    ----------
+    frequency, frequency_err : float
+        Fitted frequency (cycles/day) and its 1-sigma error (NaN if ``refine=False``).
+    period, period_err : float
+        ``1/frequency`` (days) and ``frequency_err / frequency**2``.
+    t_ref : float
+        Reference time of the phases (weighted mean time of the data).
+    mean_mag, mean_mag_err : float
+        Constant term ``m``.
+    nterms : int
+        Number of harmonics.
+    amplitudes, amplitude_errs, phases, phase_errs : tuple of float
+        ``A_k`` (semi-amplitudes, mag) and ``phi_k`` (radians, in [0, 2 pi)) in the
+        convention ``y = m + sum A_k cos(2 pi k f (t - t_ref) + phi_k)``.
+    ptp_amplitude, ptp_amplitude_err : float
+        Peak-to-peak amplitude of the model (faintest minus brightest magnitude),
+        found numerically; error by linear propagation (envelope theorem).
+    epoch_max_light, epoch_max_light_err : float
+        Time of maximum light (the model's SMALLEST magnitude) nearest ``t_ref``.
+    epoch_min_light, epoch_min_light_err : float
+        Time of minimum light (largest magnitude) nearest ``t_ref``.
+    r21, r21_err, phi21, phi21_err, phi21_sine : float
+        Simon & Lee (1981) parameters (NaN when ``nterms < 2``); ``phi21`` in this
+        module's cosine convention, ``phi21_sine`` for a sine series.
+    r31, r31_err, phi31, phi31_err, phi31_sine : float
+        The same with the third harmonic (NaN when ``nterms < 3``).
+    chi2, dof, reduced_chi2, rms : float, int, float, float
+        Weighted chi-square, degrees of freedom, chi2/dof (the factor applied to the
+        covariance) and the unweighted rms of the residuals (mag).
+    n_points : int
+    converged : bool
+    warnings : tuple of str
+    params, covariance : np.ndarray
+        Internal parameter vector ``[m, f, a_1, b_1, ...]`` and its scaled covariance.
+    """
+
+    frequency: float
+    frequency_err: float
+    period: float
+    period_err: float
+    t_ref: float
+    mean_mag: float
+    mean_mag_err: float
+    nterms: int
+    amplitudes: tuple[float, ...]
+    amplitude_errs: tuple[float, ...]
+    phases: tuple[float, ...]
+    phase_errs: tuple[float, ...]
+    ptp_amplitude: float
+    ptp_amplitude_err: float
+    epoch_max_light: float
+    epoch_max_light_err: float
+    epoch_min_light: float
+    epoch_min_light_err: float
+    r21: float
+    r21_err: float
+    phi21: float
+    phi21_err: float
+    phi21_sine: float
+    r31: float
+    r31_err: float
+    phi31: float
+    phi31_err: float
+    phi31_sine: float
+    chi2: float
+    dof: int
+    reduced_chi2: float
+    rms: float
+    n_points: int
+    converged: bool
+    warnings: tuple[str, ...]
+    params: np.ndarray = field(repr=False)
+    covariance: np.ndarray = field(repr=False)
+
+    def model(self, t: Any) -> np.ndarray:
+        """Model magnitudes at times ``t`` (same time system as the fitted data)."""
+        tau = np.asarray(t, dtype=float) - self.t_ref
+        shape = tau.shape
+        mod, _ = _model_jac(self.params, tau.ravel(), 1, self.nterms, want_jac=False)
+        return mod.reshape(shape)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-safe plain dict (NaN becomes None)."""
+        return {
+            "method": "weighted non-linear least-squares Fourier series; covariance scaled by reduced chi2",
+            "phase_convention": "y = mean_mag + sum_k A_k cos(2 pi k f (t - t_ref) + phi_k)",
+            "frequency": _jf(self.frequency),
+            "frequency_err": _jf(self.frequency_err),
+            "period": _jf(self.period),
+            "period_err": _jf(self.period_err),
+            "t_ref": _jf(self.t_ref),
+            "mean_mag": _jf(self.mean_mag),
+            "mean_mag_err": _jf(self.mean_mag_err),
+            "nterms": int(self.nterms),
+            "amplitudes": [_jf(v) for v in self.amplitudes],
+            "amplitude_errs": [_jf(v) for v in self.amplitude_errs],
+            "phases": [_jf(v) for v in self.phases],
+            "phase_errs": [_jf(v) for v in self.phase_errs],
+            "ptp_amplitude": _jf(self.ptp_amplitude),
+            "ptp_amplitude_err": _jf(self.ptp_amplitude_err),
+            "epoch_max_light": _jf(self.epoch_max_light),
+            "epoch_max_light_err": _jf(self.epoch_max_light_err),
+            "epoch_min_light": _jf(self.epoch_min_light),
+            "epoch_min_light_err": _jf(self.epoch_min_light_err),
+            "r21": _jf(self.r21),
+            "r21_err": _jf(self.r21_err),
+            "phi21": _jf(self.phi21),
+            "phi21_err": _jf(self.phi21_err),
+            "phi21_sine": _jf(self.phi21_sine),
+            "r31": _jf(self.r31),
+            "r31_err": _jf(self.r31_err),
+            "phi31": _jf(self.phi31),
+            "phi31_err": _jf(self.phi31_err),
+            "phi31_sine": _jf(self.phi31_sine),
+            "chi2": _jf(self.chi2),
+            "dof": int(self.dof),
+            "reduced_chi2": _jf(self.reduced_chi2),
+            "rms": _jf(self.rms),
+            "n_points": int(self.n_points),
+            "converged": bool(self.converged),
+            "warnings": list(self.warnings),
+        }
+
+
+def fit_harmonics(
+    t: Any,
+    y: Any,
+    dy: Any,
+    frequency: float,
+    *,
+    nterms: int = 3,
+    refine: bool = True,
+) -> HarmonicFit:
+    """Fit a Fourier series with free frequency to a light curve.
+
+    Parameters
+    ----------
+    t, y, dy : array_like
+        Times (days, e.g. BJD_TDB), magnitudes and their 1-sigma errors.
+    frequency : float
+        Starting frequency (cycles/day), usually a periodogram's peak.
+    nterms : int
+        Number of harmonics ``K`` (1 = pure sinusoid).
+    refine : bool
+        If True (default) the frequency is a free parameter; if False it is held at
+        ``frequency`` and ``frequency_err``/``period_err`` are NaN.
+
+    Returns
+    -------
+    HarmonicFit
+        See the class and the module docstring for conventions and error treatment.
+
+    Raises
+    ------
+    InputError
+        Bad arrays, non-positive errors, a non-positive frequency or ``nterms < 1``.
+    ReductionError
+        Too few points for the number of parameters, or a singular normal matrix.
+    """
+    t, y, dy = _check_series(t, y, dy, what="harmonic fit")
+    if not (np.isfinite(frequency) and frequency > 0):
+        raise InputError(f"harmonic fit: the starting frequency must be positive (got {frequency!r})")
+    nterms = int(nterms)
+    if nterms < 1:
+        raise InputError(f"harmonic fit: nterms must be at least 1 (got {nterms})")
+    w = 1.0 / dy**2
+    t_ref = float(np.sum(w * t) / np.sum(w))
+    fit = _fit_sinusoids(t, y, dy, [float(frequency)], nterms, t_ref, refine=refine)
+    p, cov = fit.params, fit.cov
+    n_par = p.size
+    warnings: list[str] = []
+    baseline = float(t.max() - t.min())
+    f = float(p[1])
+    if not fit.success:
+        warnings.append(f"the least-squares solver did not report convergence: {fit.message}")
+    if f <= 0:
+        raise ReductionError(
+            "harmonic fit: the frequency ran to zero or below; start from a better periodogram peak"
+        )
+    if refine and baseline > 0 and abs(f - frequency) > 0.5 / baseline:
+        warnings.append(
+            f"the frequency moved from {frequency:.6f} to {f:.6f} c/d, more than half the "
+            f"resolution 1/T = {1 / baseline:.6f} c/d: the fit may have left the starting peak"
+        )
+    f_err = math.sqrt(cov[1, 1]) if refine else float("nan")
+
+    a = p[2::2].copy()
+    b = p[3::2].copy()
+    amps, amp_errs, phis, phi_errs = [], [], [], []
+    g_amp = np.zeros((nterms, n_par))
+    g_phi = np.zeros((nterms, n_par))
+    for k in range(nterms):
+        amp, phi, ga, gp = _amp_phase(a[k], b[k])
+        g_amp[k, 2 + 2 * k : 4 + 2 * k] = ga
+        g_phi[k, 2 + 2 * k : 4 + 2 * k] = gp
+        amps.append(amp)
+        phis.append(phi)
+        amp_errs.append(_err(g_amp[k], cov))
+        phi_errs.append(_err(g_phi[k], cov))
+
+    def ratio(j: int) -> tuple[float, float, float, float, float]:
+        if nterms <= j:
+            nan = float("nan")
+            return nan, nan, nan, nan, nan
+        r = amps[j] / amps[0]
+        g_r = g_amp[j] / amps[0] - amps[j] * g_amp[0] / amps[0] ** 2
+        ph = _wrap(phis[j] - (j + 1) * phis[0])
+        g_ph = g_phi[j] - (j + 1) * g_phi[0]
+        # sine series: psi_k = phi_k + pi/2 -> psi_j1 = phi_j1 + (1 - (j+1)) pi/2
+        ph_sine = _wrap(ph + (1 - (j + 1)) * math.pi / 2)
+        return r, _err(g_r, cov), ph, _err(g_ph, cov), ph_sine
+
+    r21, r21_err, phi21, phi21_err, phi21_sine = ratio(1)
+    r31, r31_err, phi31, phi31_err, phi31_sine = ratio(2)
+
+    # extrema of the shape: brightest = smallest magnitude
+    x_bright = _extremum(a, b, "min")
+    x_faint = _extremum(a, b, "max")
+    ptp = float(_shape(np.array([x_faint]), a, b)[0] - _shape(np.array([x_bright]), a, b)[0])
+    k = np.arange(1, nterms + 1, dtype=float)
+    g_ptp = np.zeros(n_par)  # envelope theorem: extremum positions do not move to first order
+    g_ptp[2::2] = np.cos(k * x_faint) - np.cos(k * x_bright)
+    g_ptp[3::2] = np.sin(k * x_faint) - np.sin(k * x_bright)
+
+    def epoch(x: float) -> tuple[float, float]:
+        _, gx = _extremum_grad(x, a, b)
+        t_ext = t_ref + x / (TWO_PI * f)
+        g = np.zeros(n_par)
+        g[2:] = gx / (TWO_PI * f)
+        g[1] = -x / (TWO_PI * f**2)
+        return t_ext, _err(g, cov)
+
+    t_max, t_max_err = epoch(x_bright)
+    t_min, t_min_err = epoch(x_faint)
+
+    dof = fit.dof
+    return HarmonicFit(
+        frequency=f,
+        frequency_err=f_err,
+        period=1.0 / f,
+        period_err=f_err / f**2,
+        t_ref=t_ref,
+        mean_mag=float(p[0]),
+        mean_mag_err=math.sqrt(cov[0, 0]),
+        nterms=nterms,
+        amplitudes=tuple(float(v) for v in amps),
+        amplitude_errs=tuple(float(v) for v in amp_errs),
+        phases=tuple(float(v) for v in phis),
+        phase_errs=tuple(float(v) for v in phi_errs),
+        ptp_amplitude=ptp,
+        ptp_amplitude_err=_err(g_ptp, cov),
+        epoch_max_light=float(t_max),
+        epoch_max_light_err=float(t_max_err),
+        epoch_min_light=float(t_min),
+        epoch_min_light_err=float(t_min_err),
+        r21=float(r21),
+        r21_err=float(r21_err),
+        phi21=float(phi21),
+        phi21_err=float(phi21_err),
+        phi21_sine=float(phi21_sine),
+        r31=float(r31),
+        r31_err=float(r31_err),
+        phi31=float(phi31),
+        phi31_err=float(phi31_err),
+        phi31_sine=float(phi31_sine),
+        chi2=fit.chi2,
+        dof=dof,
+        reduced_chi2=fit.chi2 / dof if dof > 0 else float("nan"),
+        rms=float(np.sqrt(np.mean(fit.resid**2))),
+        n_points=int(t.size),
+        converged=bool(fit.success),
+        warnings=tuple(warnings),
+        params=p.copy(),
+        covariance=cov.copy(),
+    )
