@@ -134,36 +134,11 @@ def _check_positive(value: Any, name: str) -> float:
 
 
 def _paule_mandel(d: np.ndarray, v: np.ndarray) -> float:
-    """Excess variance of values ``d`` with variances ``v`` about their weighted mean.
+    """Excess variance of ``d`` about its weighted mean (Paule & Mandel 1982, reference
+    from memory): the ensemble's estimator, with this module's variance floor."""
+    from .ensemble import _paule_mandel as excess
 
-    Paule & Mandel (1982, J. Res. NBS 87, 377; reference from memory): solve
-    ``sum (d - dbar)^2 / (v + s2) = n - 1`` with ``dbar`` the weighted mean at the
-    same ``s2``; zero when the values agree within their errors.
-    """
-    n = d.size
-    if n < 2:
-        return 0.0
-    v = np.maximum(v, _VAR_FLOOR)
-
-    def q(s2: float) -> float:
-        w = 1.0 / (v + s2)
-        dbar = float(np.sum(w * d) / np.sum(w))
-        return float(np.sum(w * (d - dbar) ** 2)) - (n - 1)
-
-    if q(0.0) <= 0:
-        return 0.0
-    lo, hi = 0.0, float(np.var(d)) * n + float(np.max(v))
-    while q(hi) > 0:
-        hi *= 4.0
-    for _ in range(200):
-        mid = 0.5 * (lo + hi)
-        if q(mid) > 0:
-            lo = mid
-        else:
-            hi = mid
-        if hi - lo <= 1e-15 + 1e-12 * hi:
-            break
-    return 0.5 * (lo + hi)
+    return excess(d, np.maximum(v, _VAR_FLOOR))
 
 
 # --------------------------------------------------------------------------- coefficients
