@@ -306,16 +306,16 @@ def choose_p_or_2p(
     The decision is made by cross-validation: each point is predicted by the
     weighted mean of its ``n_neighbours`` nearest neighbours in phase (half before,
     half after) once in the P fold and once in the 2P fold.  If the curve repeats at
-    P, the 2P neighbours are a subset of the same cycle's phases spread twice as
-    wide, so the 2P prediction is never better on average (at most equal, for a
-    flat curve).  If the halves differ, the P prediction mixes the two halves and
-    loses.  With ``d_i = w_i (e_P,i**2 - e_2P,i**2)`` and ``w = 1/dy**2``,
-    ``z = sum d / SE``; the standard error allows for phase neighbours sharing
-    points and for a difference confined to some phases (see ``_paired_z``); the
-    factor is 2 when ``z > z_crit``.  Unlike a
-    binned F test this does not mistake the changing light curve inside a bin for
-    a difference of the halves (a pitfall for narrow eclipses and nightly
-    sampling).  ``theta_p``/``theta_2p`` are PDM values at equal bin width in time
+    P, the 2P neighbours come from half the points (cycles of one parity) and so
+    lie about twice as far away in phase: the 2P prediction is not better on
+    average (equal for a flat curve).  If the halves differ, the P prediction mixes
+    the two halves and loses.  With ``d_i = w_i (e_P,i**2 - e_2P,i**2)`` and
+    ``w = 1/dy**2``, ``z = sum d / SE``; the standard error allows for a difference
+    confined to some phases (see ``_paired_z``); the factor is 2 when
+    ``z > z_crit``.  Unlike a binned F test (tried first: 40% false choices of 2P
+    on a simulated detached binary) this does not mistake the changing light curve
+    inside a bin for a difference of the halves, a pitfall for narrow eclipses and
+    nightly sampling.  ``theta_p``/``theta_2p`` are PDM values at equal bin width in time
     (``n_bins`` at P, ``2 n_bins`` at 2P), for the record; plain PDM at equal bin
     numbers favours the shorter period, whose bins are narrower in time.
 

