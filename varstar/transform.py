@@ -133,6 +133,21 @@ def _check_positive(value: Any, name: str) -> float:
     return v
 
 
+def _finite_fields(obj: Any, names: Sequence[str], what: str, where: str = "") -> None:
+    """Turn the named fields of a frozen dataclass into finite floats; ``*_err`` must be >= 0."""
+    for name in names:
+        value = getattr(obj, name)
+        try:
+            v = float(value)
+        except (TypeError, ValueError):
+            raise InputError(f"{what} {name} must be a number, got {value!r}{where}") from None
+        if not math.isfinite(v):
+            raise InputError(f"{what} {name} must be finite, got {value!r}{where}")
+        if name.endswith("_err") and v < 0:
+            raise InputError(f"{what} {name} must be >= 0, got {v!r}{where}")
+        object.__setattr__(obj, name, v)
+
+
 def _paule_mandel(d: np.ndarray, v: np.ndarray) -> float:
     """Excess variance of ``d`` about its weighted mean (Paule & Mandel 1982, reference
     from memory): the ensemble's estimator, with this module's variance floor."""
@@ -184,17 +199,8 @@ class Coefficients:
 
     def __post_init__(self) -> None:
         where = f" (source: {self.source})" if self.source else ""
-        for name in ("epsilon_v", "mu_bv", "k2_bv", "epsilon_v_err", "mu_bv_err", "k2_bv_err"):
-            value = getattr(self, name)
-            try:
-                v = float(value)
-            except (TypeError, ValueError):
-                raise InputError(f"transformation coefficient {name} must be a number, got {value!r}{where}") from None
-            if not math.isfinite(v):
-                raise InputError(f"transformation coefficient {name} must be finite, got {value!r}{where}")
-            object.__setattr__(self, name, v)
-            if name.endswith("_err") and v < 0:
-                raise InputError(f"transformation coefficient {name} must be >= 0, got {v!r}{where}")
+        _finite_fields(self, ("epsilon_v", "mu_bv", "k2_bv", "epsilon_v_err", "mu_bv_err", "k2_bv_err"),
+                       "transformation coefficient", where)
         if not isinstance(self.source, str):
             raise InputError(f"Coefficients.source must be a string, got {self.source!r}")
         if abs(self.epsilon_v) >= EPSILON_LIMIT:
@@ -1024,20 +1030,10 @@ class NightReference:
     cal_err_v: float = 0.0
 
     def __post_init__(self) -> None:
-        for name in (
+        _finite_fields(self, (
             "tie_colour_v", "ref_colour_std", "ref_colour_std_err", "ref_colour_inst", "ref_colour_inst_err",
             "kappa_b", "kappa_b_err", "kappa_v", "kappa_v_err", "cal_err_b", "cal_err_v",
-        ):
-            value = getattr(self, name)
-            try:
-                v = float(value)
-            except (TypeError, ValueError):
-                raise InputError(f"night reference {name} must be a number, got {value!r}") from None
-            if not math.isfinite(v):
-                raise InputError(f"night reference {name} must be finite, got {value!r}")
-            if name.endswith("_err") and v < 0:
-                raise InputError(f"night reference {name} must be >= 0, got {v!r}")
-            object.__setattr__(self, name, v)
+        ), "night reference")
         for band in ("b", "v"):
             cref = float(getattr(self, f"cref_{band}"))
             object.__setattr__(self, f"cref_{band}", cref)
