@@ -298,6 +298,92 @@ def cmd_colour(args: argparse.Namespace) -> int:
     return 0
 
 
+def format_period(d: dict[str, Any]) -> str:
+    unit = "d"
+    lines = [
+        f"{d['star']}: period {d['period']:.7f} ± {_fmt(d['period_err'], '.7f')} {unit} "
+        f"(frequency {d['frequency']:.6f} c/d; {d['n_points']} points in {', '.join(d['bands'])} "
+        f"over {d['baseline_days']:.1f} d, {len(d['nights'])} nights)",
+        f"  {d['method']}; false-alarm probability of the peak {d['fap']:.2g} ({d['fap_method']})"
+        + (f", bootstrap {d['fap_bootstrap']:.3g}" if d.get("fap_bootstrap") is not None else ""),
+        f"  epoch of {d['epoch_kind']} light {_fmt(d['epoch'], '.5f')} ± {_fmt(d['epoch_err'], '.5f')} BJD_TDB; "
+        f"amplitude {_fmt(d['amplitude'])} ± {_fmt(d['amplitude_err'])} mag peak to peak "
+        f"({d['reference_band'] or 'one band'}, {d['harmonics']} harmonics)",
+        f"  second method: PDM best period {d['pdm']['best_period']:.7f} d ({d['pdm']['relation_to_period']}); "
+        f"theta at the adopted period {_fmt(d['pdm']['theta_at_period'])}",
+        f"  P or 2P: {d['period_choice']['note']}",
+        "  strongest peaks:",
+    ]
+    for a in d["aliases"]:
+        lines.append(f"    P = {a['period']:.7f} d  power {_fmt(a['power'])}  {a['relation']}")
+    for b, fit in d["fits"].items():
+        r21 = "" if fit["r21"] is None else f", R21 {fit['r21']:.3f} ± {_fmt(fit['r21_err'])}, phi21 {fit['phi21']:.3f} ± {_fmt(fit['phi21_err'])} rad"
+        lines.append(f"  {b or 'fit'}: mean {fit['mean_mag']:.3f}, amplitude {_fmt(fit['ptp_amplitude'])} mag{r21}, "
+                     f"reduced chi2 {_fmt(fit['reduced_chi2'], '.2f')}")
+    if d.get("prewhitening"):
+        lines.append(f"  prewhitening ({d['prewhitening']['stop_reason']}):")
+        for f in d["frequencies"]:
+            rel = f" = {f['relation']}" if f.get("relation") else ""
+            lines.append(f"    {f['label']}: f = {f['frequency']:.6f} ± {_fmt(f['frequency_err'], '.6f')} c/d "
+                         f"(P = {f['period']:.7f} d), amplitude {_fmt(f['amplitude'], '.4f')} mag, S/N {_fmt(f['snr'], '.1f')}{rel}")
+    for w in d["warnings"]:
+        lines.append(f"  note: {w}")
+    if d.get("analysis") is not None:
+        lines.append(f"  stored as analysis {d['analysis']} in the archive's period history")
+    return "\n".join(lines)
+
+
+def cmd_period(args: argparse.Namespace) -> int:
+    from .analyses import phased_model
+    from .archive import open_archive
+    from .plots import periodogram_figure, phased_figure, save
+
+    arch = open_archive(args.archive)
+    if args.history:
+        hist = arch.periods()
+        rows = hist.drop(columns=["result"]).to_dict(orient="records")
+        text = "\n".join(f"{r['analysis']:3d} {r['computed_utc']} {r['bands']:6s} P = {r['period']:.7f} ± {r['period_err']:.7f} d "
+                          f"({r['n_points']} points, {r['method']})" for r in rows) or "no period analyses stored yet"
+        _emit(args, {"archive": str(arch.path), "periods": rows}, text)
+        return 0
+    out = arch.period(
+        band=args.band, star=args.star, store=not args.no_store, include_flagged=args.include_flagged,
+        min_period=args.min_period, max_period=args.max_period, oversampling=args.oversampling,
+        nterms=args.terms, harmonics=args.harmonics, bootstrap=args.bootstrap, seed=args.seed,
+        prewhitening=args.prewhiten, snr_limit=args.snr, timeout_s=args.wait,
+    )
+    res, payload = out.result, out.to_dict()
+    text = format_period(payload)
+    name = arch.target.name
+    if args.output:
+        save(periodogram_figure(res.freq, res.power, best_frequency=res.aliases.best_frequency,
+                                fap_levels=res.fap_levels, peaks=payload["aliases"][:4], theta=res.theta,
+                                title=f"{name}: {payload['star']}, {res.method}",
+                                ylabel="normalised power"), args.output)
+        payload["periodogram_plot"] = str(args.output)
+        text += f"\nwrote {args.output}"
+    if args.phased:
+        lc = out.lightcurve
+        resid = lc["mag"].to_numpy() - _model_at(res, lc)
+        save(phased_figure(lc, period_d=res.period, epoch_bjd=res.epoch, model=phased_model(res), residuals=resid,
+                           title=f"{name}: {payload['star']}, P = {res.period:.7f} d, phase 0 at {res.epoch_kind} light"),
+             args.phased)
+        payload["phased_plot"] = str(args.phased)
+        text += f"\nwrote {args.phased}"
+    _emit(args, payload, text)
+    return 0
+
+
+def _model_at(res, lc):
+    import numpy as np
+
+    model = np.empty(len(lc))
+    for b in res.fits:
+        m = (lc["band"] == b).to_numpy()
+        model[m] = res.model(lc["bjd_tdb"].to_numpy()[m], b)
+    return model
+
+
 def cmd_demo(args: argparse.Namespace) -> int:
     from .demo import run_demo
 
@@ -377,6 +463,26 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--night", help="only this night (evening date, YYYY-MM-DD)")
     sp.add_argument("-o", "--output", type=Path, help="plot of B - V against time (and phase, with an [ephemeris])")
     sp.add_argument("--diagram", type=Path, metavar="FILE", help="colour-magnitude diagram of the field for the night (default: the last night)")
+
+    sp = add("period", cmd_period, "find the period: periodogram, PDM, aliases, harmonic fit; stored in the period history")
+    sp.add_argument("archive", type=Path)
+    sp.add_argument("--band", default="all", help="a band, or 'all' for one multi-band periodogram (default)")
+    sp.add_argument("--star", help="star id (default: the target)")
+    sp.add_argument("--min-period", type=float, metavar="DAYS", help="shortest trial period (default 0.05 d)")
+    sp.add_argument("--max-period", type=float, metavar="DAYS", help="longest trial period (default: half the baseline, at most 1000 d)")
+    sp.add_argument("--oversampling", type=float, default=10.0, metavar="N", help="grid points per peak width 1/baseline (default 10)")
+    sp.add_argument("--terms", type=int, default=1, metavar="K", help="harmonics of the periodogram (default 1)")
+    sp.add_argument("--harmonics", type=int, metavar="N", help="harmonics of the final fit (default: chosen by AIC)")
+    sp.add_argument("--bootstrap", type=int, default=0, metavar="N", help="also a bootstrap false-alarm probability from N resamples")
+    sp.add_argument("--seed", type=int, metavar="S", help="seed of the bootstrap (default 0)")
+    sp.add_argument("--prewhiten", action="store_true", help="look for further frequencies by iterative prewhitening")
+    sp.add_argument("--snr", type=float, default=4.0, metavar="S", help="prewhitening stops below this amplitude S/N (default 4)")
+    sp.add_argument("--include-flagged", action="store_true", help="also use points of flagged exposures")
+    sp.add_argument("--no-store", action="store_true", help="do not record the result in the archive")
+    sp.add_argument("--history", action="store_true", help="list the stored analyses instead of running one")
+    sp.add_argument("-o", "--output", type=Path, metavar="FILE", help="periodogram plot (png, pdf, svg)")
+    sp.add_argument("--phased", type=Path, metavar="FILE", help="phased light curve with the fit and residuals")
+    sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
 
     sp = add("demo", cmd_demo, "run the whole pipeline on the shipped invented demo field")
     sp.add_argument("--out", type=Path, default=None, help="folder for the results (default: a new folder here)")

@@ -337,7 +337,7 @@ def phased_figure(
     ax.legend(fontsize="small", loc="best")
     axr.axhline(0.0, color="black", lw=0.8)
     axr.invert_yaxis()
-    axr.set_ylabel("O − C (mag)")
+    axr.set_ylabel("data − fit (mag)")
     axr.set_xlabel(f"phase (P = {period_d:.6f} d, epoch BJD_TDB {epoch_bjd:.5f}); two cycles shown")
     axr.grid(alpha=0.3)
     if title:

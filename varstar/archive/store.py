@@ -250,6 +250,26 @@ class Archive:
         )
         return df.sort_values(["bjd_tdb", "band"], kind="stable").reset_index(drop=True)
 
+    def period(self, band: str = "all", star: str | None = None, *, store: bool = True, **options: Any):
+        """Period analysis of the light curve, recorded in the archive's period history.
+
+        ``band`` is a band name or ``"all"`` (multi-band); ``options`` go to
+        :func:`varstar.analyses.period_of_archive` and :func:`varstar.period.analyse`
+        (``min_period``, ``max_period``, ``oversampling``, ``nterms``, ``harmonics``,
+        ``bootstrap``, ``seed``, ``prewhitening``, ...).  Returns a
+        :class:`varstar.analyses.StoredPeriod` whose ``result`` is the
+        :class:`varstar.period.PeriodResult`.
+        """
+        from ..analyses import period_of_archive
+
+        return period_of_archive(self, band=band, star=star, store=store, **options)
+
+    def periods(self) -> pd.DataFrame:
+        """The period history: every stored analysis, oldest first (``result`` is its JSON record)."""
+        from ..analyses import period_history
+
+        return period_history(self)
+
     def transformations(self) -> pd.DataFrame:
         """Every coefficient set the archive has used, oldest first (the last is in force)."""
         with self._open() as f:
