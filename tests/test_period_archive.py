@@ -234,6 +234,10 @@ def test_period_command_on_the_demo_archive_stores_a_history(capsys, demo_archiv
     assert d["epoch_kind"] == "maximum" and d["bands"] == ["B", "V"]
     assert d["amplitude"] == pytest.approx(truth["amplitude_p2p"][d["reference_band"]], abs=0.03)
     assert {"period", "power", "relation"} <= set(d["aliases"][0])
+    # one site, six nights: the +-1 c/d aliases of the sinusoid periodogram come close to the best
+    # peak, but the light curve with its harmonics settles the choice (truth: the best peak)
+    assert d["alias_check"] and all(c["settled"] and c["delta_chi2"] > 1000 for c in d["alias_check"])
+    assert d["alias_secure"] is True
     assert len(d["nights"]) == 6 and d["software"].startswith("varstar ") and d["analysis"] == 0
     for png in ("pg.png", "ph.png"):
         assert (tmp_path / png).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"

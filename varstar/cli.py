@@ -326,6 +326,9 @@ def format_period(d: dict[str, Any]) -> str:
             rel = f" = {f['relation']}" if f.get("relation") else ""
             lines.append(f"    {f['label']}: f = {f['frequency']:.6f} ± {_fmt(f['frequency_err'], '.6f')} c/d "
                          f"(P = {f['period']:.7f} d), amplitude {_fmt(f['amplitude'], '.4f')} mag, S/N {_fmt(f['snr'], '.1f')}{rel}")
+    for c in d["alias_check"]:
+        if c["settled"]:
+            lines.append(f"  aliases: {c['note']}")
     for w in d["warnings"]:
         lines.append(f"  note: {w}")
     if d.get("analysis") is not None:

@@ -49,11 +49,20 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
     Returns a JSON-ready dict: the folder, the files written and the summaries.
     """
     from .archive import create_archive, open_archive
-    from .cli import format_coefficients, format_colour, format_night_report, format_summary
+    from .analyses import phased_model
+    from .cli import _model_at, format_coefficients, format_colour, format_night_report, format_period, format_summary
     from .colour import colour_summary, field_diagram, phases
     from .export import lightcurve_table, safe_filename, to_json, write_atomic, write_csv
     from .night import ingest, transform_archive
-    from .plots import coefficient_figure, colour_figure, colour_magnitude_figure, lightcurve_figure, save
+    from .plots import (
+        coefficient_figure,
+        colour_figure,
+        colour_magnitude_figure,
+        lightcurve_figure,
+        periodogram_figure,
+        phased_figure,
+        save,
+    )
     from .setups import read_setup, save_setup
     from .simulate import demo_files
     from .standards import fit_standard_field
@@ -120,8 +129,22 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
     cmd_png = folder / f"colour-magnitude-{last}.png"
     save(colour_magnitude_figure(field, track, title=f"{target.name}, night {last}"), cmd_png)
     files += [colour_png, cmd_png]
+
+    # 5. The period, from B and V together; recorded in the archive's period history.
+    found = arch.period()
+    res = found.result
+    say("\n" + format_period(found.to_dict()))
+    pg_png, ph_png = folder / "periodogram.png", folder / "phased.png"
+    save(periodogram_figure(res.freq, res.power, best_frequency=res.aliases.best_frequency, fap_levels=res.fap_levels,
+                            peaks=found.to_dict()["aliases"][:4], theta=res.theta,
+                            title=f"{target.name}: {target.target_star.id}, {res.method}", ylabel="normalised power"), pg_png)
+    lcp = found.lightcurve
+    save(phased_figure(lcp, period_d=res.period, epoch_bjd=res.epoch, model=phased_model(res),
+                       residuals=lcp["mag"].to_numpy() - _model_at(res, lcp),
+                       title=f"{target.name}: {target.target_star.id}, P = {res.period:.7f} d"), ph_png)
+    files += [pg_png, ph_png]
     csv = write_csv(lightcurve_table(lc), folder / "observations.csv")
-    result = {"summary": summary, "coefficients": fit.to_dict(), "colour": colour}
+    result = {"summary": summary, "coefficients": fit.to_dict(), "colour": colour, "period": found.to_dict()}
     js = write_atomic(folder / "summary.json", (to_json(result, indent=2) + "\n").encode("utf-8"))
     return {
         "folder": str(folder),

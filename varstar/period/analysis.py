@@ -36,7 +36,7 @@ from typing import Any
 
 import numpy as np
 
-from varstar.errors import InputError
+from varstar.errors import InputError, VarstarError
 from varstar.period import (
     aliases,
     gls,
@@ -102,6 +102,9 @@ class PeriodResult:
         and where it was evaluated.
     choice : PeriodChoice
         The P-or-2P verdict on the candidate frequency.
+    alias_check : tuple of dict
+        For each rival peak that made the periodogram's choice insecure: the harmonic
+        fit's chi-square excess there and whether that settles the choice.
     candidates : tuple of dict
         Periods considered (periodogram peak, PDM minimum, P and 2P) with notes.
     fits : dict of str to HarmonicFit
@@ -137,6 +140,7 @@ class PeriodResult:
     pdm: dict[str, Any]
     choice: pdm.PeriodChoice
     candidates: tuple[dict[str, Any], ...]
+    alias_check: tuple[dict[str, Any], ...]
     fits: dict[str, refine.HarmonicFit]
     prewhitening: prewhiten.PrewhiteningResult | None
     warnings: tuple[str, ...]
@@ -191,8 +195,9 @@ class PeriodResult:
                  "power_ratio": _jf(p.power_ratio), "relation": p.relation}
                 for p in self.aliases.peaks
             ],
-            "alias_secure": bool(self.aliases.secure),
+            "alias_secure": bool(self.aliases.secure or (self.alias_check and all(c["settled"] for c in self.alias_check))),
             "alias_note": self.aliases.note,
+            "alias_check": [dict(c) for c in self.alias_check],
             "pdm": dict(self.pdm),
             "period_choice": self.choice.to_dict(),
             "candidates": [dict(c) for c in self.candidates],
@@ -293,6 +298,40 @@ def _fit_by_aic(t, y, dy, f, min_harm: int) -> refine.HarmonicFit:
             if worse >= 2:
                 break
     return best
+
+
+#: Chi-square excess (in units scaled by the best fit's reduced chi2) above which the harmonic
+#: fit at a rival alias is taken as clearly worse: 25 is "5 sigma" for models with equal numbers
+#: of parameters (common practice, no published threshold).
+ALIAS_DCHI2 = 25.0
+
+
+def _check_rivals(report, t, y, dy, best: refine.HarmonicFit) -> list[dict[str, Any]]:
+    """Fit the final model at each insecure rival peak and compare chi-squares.
+
+    The periodogram's power ratio compares sinusoids; an observer's question is whether
+    the light curve, with all its harmonics, fits the alias as well.
+    """
+    out = []
+    if report.secure:
+        return out
+    for p in report.peaks[1:]:
+        if p.power_ratio < report.secure_ratio or p.relation == "same peak":
+            continue
+        try:
+            rival = refine.fit_harmonics(t, y, dy, p.frequency, nterms=best.nterms)
+        except VarstarError:
+            continue
+        d = (rival.chi2 - best.chi2) / max(best.reduced_chi2, 1e-300)
+        settled = bool(d > ALIAS_DCHI2)
+        out.append({
+            "period": rival.period, "relation": p.relation, "delta_chi2": d, "settled": settled,
+            "note": (f"the {p.relation} at P={rival.period:.6g} d fits the light curve worse by chi2 {d:.0f} "
+                     f"(with {best.nterms} harmonics): the adopted period is preferred" if settled else
+                     f"the {p.relation} at P={rival.period:.6g} d fits the light curve nearly as well (chi2 worse by "
+                     f"only {d:.1f}): the choice between them is not secure; more nights spread in time would decide"),
+        })
+    return out
 
 
 def _cv_z(t, y, dy, f_new: float, f_old: float, m: int = 5) -> float:
@@ -495,6 +534,10 @@ def analyse(
     else:
         epoch, epoch_err = ref.epoch_min_light, ref.epoch_min_light_err
 
+    alias_check = _check_rivals(report, tr, yr, dyr, fits[reference])
+    if alias_check:
+        warnings = [w for w in warnings if w != report.note] + [c["note"] for c in alias_check if not c["settled"]]
+
     theta_at = float(pdm.pdm_theta(tr, yr, dyr, [frequency], n_bins=pdm_bins)[0])
     pdm_summary = {
         "method": "phase dispersion minimisation (Stellingwerf 1978)",
@@ -529,7 +572,7 @@ def analyse(
         method=method, nterms=nterms, harmonics=n_harm,
         grid={"min_period": 1.0 / float(freq[-1]), "max_period": 1.0 / float(freq[0]),
               "oversampling": float(oversampling), "n_frequencies": int(freq.size), "step": step},
-        aliases=report, pdm=pdm_summary, choice=choice, candidates=tuple(candidates), fits=fits,
+        aliases=report, pdm=pdm_summary, choice=choice, candidates=tuple(candidates), alias_check=tuple(alias_check), fits=fits,
         prewhitening=pw, warnings=tuple(dict.fromkeys(warnings)),
         freq=freq, power=power, theta=theta,
     )
