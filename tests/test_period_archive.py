@@ -294,3 +294,19 @@ def test_period_of_an_empty_archive(capsys, tmp_path):
     before = _digest(path)
     rc, out, err = run(capsys, "period", path)
     assert rc != 0 and "no good points" in err and _digest(path) == before
+
+
+def test_pdm_restricted_to_candidates_on_long_series_finds_the_same_orbit(monkeypatch):
+    """Above MAX_PDM_ELEMENTS, PDM runs on a coarse pass plus windows; same answer as the whole grid."""
+    from varstar.period import analysis
+
+    rng = np.random.default_rng(3)
+    t = nightly(rng, 50, hours=7)
+    y = detached_eb(t) + 0.01 * rng.standard_normal(t.size)
+    full = analyse(t, y, 0.01, max_period=10)
+    monkeypatch.setattr(analysis, "MAX_PDM_ELEMENTS", t.size * 2000)
+    part = analyse(t, y, 0.01, max_period=10)
+    assert full.pdm["evaluated"] == "whole grid" and "coarse pass" in part.pdm["evaluated"]
+    assert np.isnan(part.theta).any()
+    assert part.pdm["best_period"] == pytest.approx(full.pdm["best_period"], rel=1e-9)
+    assert part.period == pytest.approx(full.period, rel=1e-9)
