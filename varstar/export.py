@@ -69,8 +69,21 @@ def safe_text_columns(df: pd.DataFrame) -> pd.DataFrame:
 
 
 def write_csv(df: pd.DataFrame, path: str | Path) -> Path:
-    """Write ``df`` as neutral CSV, atomically (a partial file never appears at ``path``)."""
-    text = safe_text_columns(df).to_csv(index=False, float_format="%.10g", lineterminator="\n")
+    """Write ``df`` as neutral CSV, atomically (a partial file never appears at ``path``).
+
+    With ``\n`` line ends the csv writer leaves a carriage return inside a cell
+    unquoted, and a spreadsheet starts a new row there (whose first cell could be
+    a formula); so when a text cell holds one, every text cell is quoted.
+    """
+    import csv
+
+    safe = safe_text_columns(df)
+    text_cols = [c for c in safe.columns if safe[c].dtype == object or pd.api.types.is_string_dtype(safe[c])]
+    has_cr = any(safe[c].astype(str).str.contains("\r", regex=False).any() for c in text_cols)
+    text = safe.to_csv(
+        index=False, float_format="%.10g", lineterminator="\n",
+        quoting=csv.QUOTE_NONNUMERIC if has_cr else csv.QUOTE_MINIMAL,
+    )
     return write_atomic(path, text.encode("utf-8"))
 
 
@@ -99,21 +112,42 @@ def lightcurve_table(lc: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
-_RESERVED = {"CON", "PRN", "AUX", "NUL", *(f"COM{i}" for i in range(1, 10)), *(f"LPT{i}" for i in range(1, 10))}
+# Windows device names, with or without an extension (Microsoft, "Naming Files, Paths, and Namespaces";
+# COM0/LPT0 and the superscript digits, which NFKD turns into 1-3, are listed there too; from memory).
+_RESERVED = {"CON", "PRN", "AUX", "NUL", *(f"COM{i}" for i in range(10)), *(f"LPT{i}" for i in range(10))}
 
 
 def safe_filename(text: str, default: str = "target") -> str:
     """A file-name stem derived from free text (e.g. a target name).
 
     Keeps letters, digits, ``-``, ``_`` and ``.``; everything else (path
-    separators, control characters, spaces) becomes ``_``.  Never returns
-    ``.``/``..``-style names, hidden names or reserved device names.
+    separators, control characters, spaces) becomes ``_`` and runs of dots
+    become one.  Never returns ``.``/``..``-style names, names containing
+    ``..``, hidden names or reserved device names.
     """
     import re
     import unicodedata
 
     norm = unicodedata.normalize("NFKD", text).encode("ascii", "ignore").decode("ascii")
-    stem = re.sub(r"[^A-Za-z0-9._-]+", "_", norm).strip("._-")[:80].strip("._-")
+    stem = re.sub(r"\.{2,}", ".", re.sub(r"[^A-Za-z0-9._-]+", "_", norm)).strip("._-")[:80].strip("._-")
     if not stem or stem.split(".")[0].upper() in _RESERVED:
         stem = f"{default}_{stem}" if stem else default
     return stem
+
+
+#: Columns of the timings CSV, in order.
+TIMINGS_COLUMNS = ("bjd_tdb", "err", "method", "band", "type", "cycle", "o_minus_c", "check_method", "check_bjd_tdb",
+                   "check_err", "disagree", "night", "n_points", "note")
+
+
+def timings_table(timings: list[dict[str, Any]]) -> pd.DataFrame:
+    """Timings (as returned by :func:`varstar.analyses.timings_of_archive`) as a neutral table, one a row.
+
+    Times are BJD_TDB, errors and O − C in days; ``disagree`` is 1 where the two
+    estimates differ by more than their errors allow.
+    """
+    df = pd.DataFrame(list(timings), columns=[*TIMINGS_COLUMNS, "new"])[list(TIMINGS_COLUMNS)]
+    df["disagree"] = df["disagree"].astype(bool).astype(int)
+    for c in ("bjd_tdb", "check_bjd_tdb"):  # full Julian Dates: fixed decimals (1e-6 d = 0.09 s), not 10 digits
+        df[c] = df[c].map(lambda v: f"{v:.6f}" if v is not None and np.isfinite(v) else "")
+    return df

@@ -14,6 +14,7 @@ and blank lines are ignored; every error names the file and the line.
 
 from __future__ import annotations
 
+import csv
 import io
 import re
 from collections.abc import Iterable, Mapping, Sequence
@@ -38,6 +39,7 @@ EXPTIME_MAX_S = 36_000.0
 MAG_ABS_MAX = 50.0
 MAG_ERR_MAX = 5.0
 AIRMASS_MAX = 40.0
+FLAG_MIN, FLAG_MAX = -(2**31), 2**31 - 1
 
 
 def _fail(source: str, line: int | None, msg: str) -> InputError:
@@ -49,13 +51,18 @@ _SKIPPED_LINE = re.compile(r"^[ \t\r]*(#|$)", re.M)
 
 
 def _split_lines(text: str) -> tuple[str, np.ndarray]:
-    """Drop blank and comment lines; return the rest and their 1-based line numbers."""
+    """Drop blank and comment lines; return the rest and their 1-based line numbers.
+
+    Lines end at ``\n`` only (``\r\n`` included), as in the fast path and in the
+    CSV reader: ``str.splitlines`` would also split at characters such as
+    ``\x1e`` or ``\u2028`` that may sit inside a free-text cell.
+    """
     body = text[:-1] if text.endswith("\n") else text
     if not _SKIPPED_LINE.search(body):  # the common case: nothing to drop
         return body, np.arange(1, body.count("\n") + 2)
     kept, numbers = [], []
-    for k, ln in enumerate(text.splitlines(), start=1):
-        s = ln.strip()
+    for k, ln in enumerate(text.split("\n"), start=1):
+        s = ln.strip(" \t\r")  # the same blanks as _SKIPPED_LINE
         if not s or s.startswith("#"):
             continue
         kept.append(ln)
@@ -63,8 +70,39 @@ def _split_lines(text: str) -> tuple[str, np.ndarray]:
     return "\n".join(kept), np.asarray(numbers, dtype=np.int64)
 
 
+def _check_fields(body: str, numbers: np.ndarray, source: str) -> None:
+    """Name the first line that is not one CSV row with as many fields as the header.
+
+    A measurement table has one row per line.  pandas would read a quoted cell
+    across a line end, take a lone carriage return for a line end and fill the
+    missing cells of a short row with empty text (which may be allowed), so the
+    lines are checked here; only on the slow path, where the table has empty or
+    unusual cells anyway, or when the rows do not match the lines.
+    """
+    n_header = None
+    for k, ln in enumerate(body.split("\n")):
+        ln = ln.strip("\r")  # at either end a carriage return is a line-end blank (pandas reads it so)
+        if "\r" in ln:
+            raise _fail(source, int(numbers[k]), "carriage return inside the line (one table row per line; save the file with ordinary line ends)")
+        if '"' in ln:
+            try:
+                n = len(next(csv.reader([ln], skipinitialspace=True, strict=True)))
+            except csv.Error:
+                raise _fail(source, int(numbers[k]), "unbalanced double quote (a quoted cell must end on the same line)") from None
+        else:
+            n = ln.count(",") + 1
+        if n_header is None:
+            n_header = n
+        elif n != n_header:
+            raise _fail(source, int(numbers[k]), f"{n} fields, but the header has {n_header} (one cell per column, separated by commas)")
+
+
 def _numeric(df: pd.DataFrame, col: str, lines: np.ndarray, source: str, *, allow_empty: bool) -> np.ndarray:
     raw = df[col]
+    if not pd.api.types.is_float_dtype(raw) and raw.astype(str).str.contains("+", regex=False).any():
+        # pandas.to_numeric rounds some numbers written with a leading '+' one unit in the last place off
+        # (e.g. '+0.015451059833479719'); without the sign they parse exactly.
+        raw = raw.astype(str).str.replace(r"^(\s*)\+(?=[0-9.])", r"\1", regex=True)
     # Fast path: parse everything at once; look closer only at what did not parse
     # into a finite number (empty cells, padded text, "nan", words).
     vals = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float, na_value=np.nan, copy=True)
@@ -108,7 +146,7 @@ def _jd_hint(vals: np.ndarray) -> str:
 _LONG_NUMERIC = ("jd", "mag", "mag_err", "airmass", "exptime", "flag")
 
 
-def _read_csv(body: str, source: str, columns: Mapping[str, str] | None) -> pd.DataFrame:
+def _read_csv(body: str, source: str, columns: Mapping[str, str] | None, numbers: np.ndarray) -> pd.DataFrame:
     """Read the table; numbers are parsed by pandas' C reader when that is safe.
 
     The fast path reads a long-form table's numeric columns as floats.  If any
@@ -117,6 +155,7 @@ def _read_csv(body: str, source: str, columns: Mapping[str, str] | None) -> pd.D
     a bad one and name its line.
     """
     def as_text() -> pd.DataFrame:
+        _check_fields(body, numbers, source)
         try:
             return pd.read_csv(io.StringIO(body), dtype=str, keep_default_na=False, skipinitialspace=True)
         except (pd.errors.ParserError, ValueError) as exc:
@@ -133,6 +172,8 @@ def _read_csv(body: str, source: str, columns: Mapping[str, str] | None) -> pd.D
     except (pd.errors.ParserError, ValueError, TypeError):
         return as_text()
     if not all(np.isfinite(df[h].to_numpy()).all() for h in numeric):
+        return as_text()
+    if not isinstance(df.index, pd.RangeIndex):  # pandas took a first row with extra fields for an index
         return as_text()
     return df
 
@@ -176,11 +217,12 @@ def parse_measurements(
     body, numbers = _split_lines(text)
     if not body.strip():
         raise _fail(source, None, "empty table (no header line)")
-    df = _read_csv(body, source, columns)
+    df = _read_csv(body, source, columns, numbers)
     header_line = int(numbers[0])
     lines = numbers[1:]
-    if len(df) != len(lines):  # pragma: no cover - read_csv keeps one row per line here
-        raise _fail(source, None, "could not match rows to lines")
+    if len(df) != len(lines):  # a quoted cell over a line end, or a lone carriage return
+        _check_fields(body, numbers, source)
+        raise _fail(source, None, "could not match rows to lines")  # pragma: no cover - _check_fields names the line
     df.columns = [str(c).strip() for c in df.columns]
     if len(set(df.columns)) != len(df.columns):
         dup = next(c for c in df.columns if list(df.columns).count(c) > 1)
@@ -234,8 +276,15 @@ def _wide_form(df: pd.DataFrame, lines: np.ndarray, source: str, header_line: in
     base = df[[c for c in PER_EXPOSURE if c in df.columns]]
     parts = []
     for s in stars:
+        for c in (s, f"{s}_err"):  # here, so that a message names the file's column, not 'mag'
+            _numeric(df, c, lines, source, allow_empty=True)
         mag = df[s].astype(str).str.strip()
         err = df[f"{s}_err"].astype(str).str.strip()
+        lonely = ((mag == "") != (err == "")).to_numpy()
+        if lonely.any() and "flag" not in df.columns:
+            i = int(np.flatnonzero(lonely)[0])
+            empty, given = (f"{s}_err", s) if err.iloc[i] == "" else (s, f"{s}_err")
+            raise _fail(source, int(lines[i]), f"column '{empty}' is empty but '{given}' is not (give both, or leave both empty)")
         present = (mag != "") | (err != "")
         part = base[present].copy()
         part["star"] = s
@@ -271,6 +320,11 @@ def _validate(df: pd.DataFrame, source: str, ids: list[str]) -> pd.DataFrame:
         if np.any(fv != np.round(fv)):
             i = int(np.flatnonzero(fv != np.round(fv))[0])
             raise _fail(source, int(lines[i]), f"column 'flag': {fv[i]:g} is not a whole number (0 = good)")
+        # The archive stores flags as 32-bit integers: a larger one would wrap (2**32 would become 0, "good").
+        big = (fv < FLAG_MIN) | (fv > FLAG_MAX)
+        if big.any():
+            i = int(np.flatnonzero(big)[0])
+            raise _fail(source, int(lines[i]), f"column 'flag': {fv[i]:g} is outside [{FLAG_MIN}, {FLAG_MAX}] (flags are stored as 32-bit integers)")
         flag = fv.astype(np.int64)
     # A measurement the upstream photometry marked bad may lack a magnitude.
     mag = _numeric(df, "mag", lines, source, allow_empty=True)
@@ -327,6 +381,9 @@ def _validate(df: pd.DataFrame, source: str, ids: list[str]) -> pd.DataFrame:
         spread = (groups[col].transform("max") - groups[col].transform("min")).to_numpy()
         with np.errstate(invalid="ignore"):
             bad = spread > (1e-7 if col == "jd" else 1e-9)
+        if col != "jd":  # the archive keeps one value per exposure: some rows giving it and some not disagree too
+            given = groups[col].transform("count").to_numpy()
+            bad |= (given > 0) & (given < groups[col].transform("size").to_numpy())
         if bad.any():
             i = int(np.flatnonzero(bad)[0])
             raise _fail(source, int(lines[i]), f"exposure '{out.frame.iloc[i]}' ({out.band.iloc[i]}) has rows with different '{col}' values")

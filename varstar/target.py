@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import math
 import re
+import unicodedata
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping
@@ -103,6 +104,25 @@ class Target:
         }
 
 
+def _finite(v: Any) -> bool:
+    """True for a TOML number (not a boolean) that is a finite float.
+
+    TOML integers may be larger than any float; ``math.isfinite`` would raise
+    OverflowError on them.
+    """
+    if isinstance(v, bool) or not isinstance(v, (int, float)):
+        return False
+    try:
+        return math.isfinite(float(v))
+    except OverflowError:
+        return False
+
+
+def _printable(text: str) -> bool:
+    """No control characters (a NUL cannot even be stored in the archive; a line end would split messages)."""
+    return not any(unicodedata.category(c) == "Cc" for c in text)
+
+
 def parse_angle(value: Any, *, kind: str, where: str) -> float:
     """Parse an angle given in degrees or sexagesimal text.
 
@@ -112,6 +132,8 @@ def parse_angle(value: Any, *, kind: str, where: str) -> float:
     if isinstance(value, bool):
         raise InputError(f"{where}: expected a number of degrees or a sexagesimal string, got {value!r}")
     if isinstance(value, (int, float)):
+        if not _finite(value):
+            raise InputError(f"{where}: angle must be finite, got {value!r}")
         deg = float(value)
     elif isinstance(value, str):
         text = value.strip()
@@ -144,7 +166,7 @@ def _number(table: Mapping[str, Any], key: str, where: str, lo: float, hi: float
     if key not in table:
         raise InputError(f"{where}: missing key '{key}'")
     v = table[key]
-    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+    if not _finite(v):
         raise InputError(f"{where}.{key}: expected a finite number, got {v!r}")
     if not lo <= v <= hi:
         raise InputError(f"{where}.{key}: {v} is outside the plausible range [{lo}, {hi}]")
@@ -162,6 +184,8 @@ def _parse_stars(stars_t: list, source: str, roles: tuple[str, ...]) -> list[Sta
         sid = st.get("id")
         if not isinstance(sid, str) or not sid.strip():
             raise InputError(f"{w}: 'id' must be a non-empty string")
+        if not _printable(sid):
+            raise InputError(f"{w}: 'id' {sid!r} contains a control character; use printable text")
         sid = sid.strip()
         w = f"{source}: star '{sid}'"
         if sid in seen:
@@ -178,7 +202,7 @@ def _parse_stars(stars_t: list, source: str, roles: tuple[str, ...]) -> list[Sta
             band, is_err = (key[:-4], True) if key.endswith("_err") else (key, False)
             if not _BAND_RE.match(band):
                 raise InputError(f"{w}: unknown key '{key}' (expected a band name like V or B, or V_err)")
-            if isinstance(val, bool) or not isinstance(val, (int, float)) or not math.isfinite(val):
+            if not _finite(val):
                 raise InputError(f"{w}.{key}: expected a finite number, got {val!r}")
             if is_err:
                 if not 0 <= val < 5:
@@ -206,7 +230,7 @@ def parse_target(text: str, source: str = "<string>") -> Target:
     """
     try:
         doc = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
+    except (tomllib.TOMLDecodeError, ValueError) as exc:  # ValueError: an integer of over 4300 digits
         raise InputError(f"{source}: not valid TOML: {exc}") from None
 
     tgt = doc.get("target")
@@ -215,6 +239,8 @@ def parse_target(text: str, source: str = "<string>") -> Target:
     name = tgt.get("name", "")
     if not isinstance(name, str) or not name.strip():
         raise InputError(f"{source}: [target].name must be a non-empty string")
+    if not _printable(name):
+        raise InputError(f"{source}: [target].name {name!r} contains a control character (tab, line end, ...); use printable text")
     for key in ("ra", "dec"):
         if key not in tgt:
             raise InputError(f"{source}: [target] is missing '{key}'")
@@ -275,7 +301,7 @@ def _read_text(p: Path) -> str:
     except OSError as exc:
         raise InputError(f"{p}: cannot read: {exc.strerror}") from None
     try:
-        return raw.decode("utf-8")
+        return raw.decode("utf-8-sig")  # a byte-order mark, as some editors write, is not part of the text
     except UnicodeDecodeError as exc:
         raise InputError(f"{p}: not UTF-8 text (byte {exc.start})") from None
 
@@ -303,7 +329,7 @@ def parse_standards(text: str, source: str = "<string>") -> StandardField:
     """Parse a standard-field TOML: ``[field] name`` and ``[[stars]]`` with ``id``, ``B``, ``V`` (and errors)."""
     try:
         doc = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
+    except (tomllib.TOMLDecodeError, ValueError) as exc:  # ValueError: an integer of over 4300 digits
         raise InputError(f"{source}: not valid TOML: {exc}") from None
     field_t = doc.get("field", {})
     if not isinstance(field_t, dict):
