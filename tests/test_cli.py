@@ -33,6 +33,7 @@ import pytest
 import varstar
 from varstar.cli import build_parser, main
 from varstar.errors import ArchiveError, InputError, OutputError
+from varstar.archive.layout import SCHEMA_VERSION
 from varstar.export import LIGHTCURVE_COLUMNS
 from varstar.simulate import demo_scenario, simulate, write_series
 
@@ -350,7 +351,7 @@ def test_summary_text_and_json(capsys, series, full_archive):
     before = sha256(path)
     obj = one_json(ok(capsys, "summary", path, "--json"))
     arch = varstar.open_archive(path)
-    assert obj["archive"] == str(path) and obj["schema_version"] == 1
+    assert obj["archive"] == str(path) and obj["schema_version"] == SCHEMA_VERSION
     assert obj["target"]["star"] == series.target_id and obj["target"]["name"] == series.field
     assert obj["n_nights"] == 2
     assert [n["label"] for n in obj["nights"]] == [series.cloudy, series.clear]  # order of ingest
@@ -369,7 +370,7 @@ def test_summary_text_and_json(capsys, series, full_archive):
 
     text = ok(capsys, "summary", path)
     assert f"{series.field}  (RA " in text and f"star {series.target_id})" in text
-    assert "schema 1, 2 night(s)" in text
+    assert f"schema {SCHEMA_VERSION}, 2 night(s)" in text
     for n in obj["nights"]:
         assert f"  {n['label']}: {n['n_exposures']} exposures, {n['n_flagged']} flagged" in text
     for band, b in obj["bands"].items():

@@ -44,7 +44,6 @@ from test_period_analysis import (
 import varstar
 from varstar.errors import InputError
 from varstar.period import analyse
-from varstar.simulate import demo_files
 
 ONE_SIGMA = math.erf(1 / math.sqrt(2))  # 0.6827, the normal distribution
 REQUIRED_KEYS = {"period", "period_err", "frequency", "amplitude", "epoch", "fap", "n_points", "baseline_days",
@@ -204,15 +203,8 @@ def test_bad_input_is_refused_with_clear_messages():
 
 
 @pytest.fixture(scope="module")
-def demo_archive(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("demo")
-    for name, text in demo_files().items():
-        (folder / name).write_text(text, encoding="utf-8")
-    path = folder / "demo.h5"
-    varstar.create_archive(path, varstar.read_target(folder / "target.toml"))
-    varstar.ingest(path, sorted(folder.glob("night-*.csv")))
-    truth = json.loads((folder / "truth.json").read_text())["target"]
-    return path, truth
+def demo_archive(demo_archive_path, demo_data):
+    return demo_archive_path, demo_data.truth
 
 
 def _digest(path: Path) -> str:
@@ -285,12 +277,9 @@ def test_period_bad_input_changes_nothing(capsys, demo_archive, tmp_path, argv, 
     assert _digest(path) == before
 
 
-def test_period_of_an_empty_archive(capsys, tmp_path):
-    folder = tmp_path
-    for name, text in demo_files().items():
-        (folder / name).write_text(text, encoding="utf-8")
-    path = folder / "x.h5"
-    varstar.create_archive(path, varstar.read_target(folder / "target.toml"))
+def test_period_of_an_empty_archive(capsys, tmp_path, demo_data):
+    path = tmp_path / "x.h5"
+    varstar.create_archive(path, varstar.read_target(demo_data.folder / "target.toml"))
     before = _digest(path)
     rc, out, err = run(capsys, "period", path)
     assert rc != 0 and "no good points" in err and _digest(path) == before

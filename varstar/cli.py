@@ -387,6 +387,125 @@ def _model_at(res, lc):
     return model
 
 
+def format_timings(d: dict[str, Any]) -> str:
+    e = d["ephemeris"]
+    lines = [f"ephemeris in force: T({e['kind']}) = {e['epoch']:.5f} + {e['period']:.7f} E"
+             + (f" + {e['quadratic']:.3e} E²" if e.get("quadratic") else "") + " (BJD_TDB)"]
+    lines.append(f"{'night':10s} {'band':4s} {'type':9s} {'E':>8s} {'BJD_TDB':>15s} {'± (d)':>8s} {'O − C (d)':>10s}  method")
+    for t in d["timings"]:
+        flag = " *" if t["new"] else ""
+        lines.append(f"{t['night']:10s} {t['band']:4s} {t['type']:9s} {t['cycle']:8.1f} {t['bjd_tdb']:15.5f} "
+                     f"{_fmt(t['err'], '.5f'):>8s} {t['o_minus_c']:+10.5f}  {t['method']}{flag}")
+        if t["note"]:
+            lines.append(f"{'':12s}note: {t['note']}")
+    lines.append(f"(* new: {d['n_new']} stored now{'' if d['stored'] else ' - not stored (--no-store)'})")
+    if d["refused"]:
+        lines.append(f"{len(d['refused'])} predicted extrema could not be timed:")
+        for r in d["refused"][:10]:
+            lines.append(f"  {r['night']} {r['band']} {r['type']} E={r['cycle']:g}: {r['reason']}")
+        if len(d["refused"]) > 10:
+            lines.append(f"  ... and {len(d['refused']) - 10} more (see --json)")
+    fit = d["fit"]
+    if fit:
+        q = f" + ({fit['quadratic']:.3e} ± {_fmt(fit['quadratic_err'], '.1e')}) E²" if fit["model"] == "quadratic" else ""
+        lines.append(f"fit of {fit['n_timings']} timings ({fit['model']}): T = {fit['epoch']:.5f} ± {_fmt(fit['epoch_err'], '.5f')} "
+                     f"+ ({fit['period']:.8f} ± {_fmt(fit['period_err'], '.8f')}) E{q}; chi2 {fit['chi2']:.1f} for {fit['dof']} dof")
+        if fit["note"]:
+            lines.append(f"  {fit['note']}")
+    if d["updated_ephemeris"]:
+        lines.append(f"the fitted ephemeris is now the archive's ephemeris (entry {d['updated_ephemeris']['entry']}; older entries kept)")
+    return "\n".join(lines)
+
+
+def cmd_timings(args: argparse.Namespace) -> int:
+    from .analyses import timings_of_archive
+    from .archive import open_archive
+    from .export import timings_table, write_csv
+    from .plots import oc_figure, save
+
+    arch = open_archive(args.archive)
+    d = timings_of_archive(arch, band=args.band, kind=args.kind, night=args.night, note=args.note or "",
+                           store=not args.no_store, update=args.update, seed=args.seed, timeout_s=args.wait)
+    text = format_timings(d)
+    if args.output and d["timings"]:
+        fit = dict(d["fit"] or {}, reference=d["ephemeris"]) if d["fit"] else None
+        save(oc_figure([t["cycle"] for t in d["timings"]], [t["o_minus_c"] for t in d["timings"]],
+                       [t["err"] for t in d["timings"]], [t["type"] for t in d["timings"]], fit=fit,
+                       reference=f"T0 = {d['ephemeris']['epoch']:.5f}, P = {d['ephemeris']['period']:.7f} d (BJD_TDB)",
+                       title=f"{arch.target.name}: O − C"), args.output)
+        d["plot"] = str(args.output)
+        text += f"\nwrote {args.output}"
+    if args.csv:
+        write_csv(timings_table(d["timings"]), args.csv)
+        d["csv"] = str(args.csv)
+        text += f"\nwrote {args.csv}"
+    _emit(args, d, text)
+    return 0
+
+
+def cmd_predict(args: argparse.Namespace) -> int:
+    from .analyses import predict_of_archive
+    from .archive import open_archive
+
+    arch = open_archive(args.archive)
+    d = predict_of_archive(arch, args.start, args.end, site_visible=args.site_visible,
+                           min_altitude_deg=args.min_altitude, max_sun_altitude_deg=args.sun_altitude)
+    lines = [f"{d['target']}: {len(d['events'])} {d['ephemeris']['kind']} predicted"
+             + (f" while it stands above {args.min_altitude:g}° with the Sun below {args.sun_altitude:g}°" if args.site_visible else "")]
+    lines.append(f"{'UTC':21s} {'BJD_TDB':>15s} {'type':9s} {'E':>8s} {'altitude':>8s} {'Sun':>6s}")
+    for e in d["events"]:
+        lines.append(f"{e['utc']:21s} {e['bjd_tdb']:15.5f} {e['type']:9s} {e['cycle']:8.1f} {e['target_altitude_deg']:7.1f}° {e['sun_altitude_deg']:5.1f}°")
+    _emit(args, d, "\n".join(lines))
+    return 0
+
+
+def cmd_verify(args: argparse.Namespace) -> int:
+    from .archive.integrity import verify
+    from .errors import ArchiveError
+
+    rep = verify(args.archive)
+    d = rep.to_dict()
+    rows = d["checked"].get("rows", {})
+    if rep.ok:
+        text = (f"{args.archive}: OK (schema {rep.schema_version}; {d['checked'].get('nights', 0)} nights, "
+                f"{rows.get('raw', 0)} raw measurements, {rows.get('points', 0)} light-curve points; "
+                f"{d['checked'].get('checksums_ok', 0)} night checksums match)")
+    else:
+        text = f"{args.archive}: {len(rep.problems)} problem(s) found:\n" + "\n".join(f"  - {p}" for p in rep.problems)
+    text += "".join(f"\n  note: {n}" for n in rep.notes)
+    if not rep.ok:
+        if args.json:
+            _emit(args, d, text)
+        else:
+            sys.stdout.write(text + "\n")
+        raise ArchiveError(f"{args.archive}: verification failed ({len(rep.problems)} problem(s), listed above)")
+    _emit(args, d, text)
+    return 0
+
+
+def cmd_upgrade(args: argparse.Namespace) -> int:
+    from .archive.integrity import upgrade
+
+    res = upgrade(args.archive, timeout_s=args.wait)
+    if res["upgraded"]:
+        text = (f"{args.archive}: upgraded from schema {res['from_schema']} to {res['schema_version']} "
+                f"(added {', '.join(res['tables_added']) or 'nothing'}; checksums of {res['nights_checksummed']} nights); "
+                f"the old file is kept as {res['backup']}")
+    else:
+        text = f"{args.archive}: already at schema {res['schema_version']}; nothing to do"
+    _emit(args, res, text)
+    return 0
+
+
+def cmd_remove_night(args: argparse.Namespace) -> int:
+    from .night import remove_night
+
+    res = remove_night(args.archive, args.night, reason=args.reason or "", timeout_s=args.wait)
+    _emit(args, res, f"removed night {res['night']} ({res['n_exposures']} exposures, {res['n_points']} points, from "
+                     f"{', '.join(res['sources']) or 'no file'}); the removal is recorded in the archive")
+    return 0
+
+
 def cmd_demo(args: argparse.Namespace) -> int:
     from .demo import run_demo
 
@@ -485,6 +604,40 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--history", action="store_true", help="list the stored analyses instead of running one")
     sp.add_argument("-o", "--output", type=Path, metavar="FILE", help="periodogram plot (png, pdf, svg)")
     sp.add_argument("--phased", type=Path, metavar="FILE", help="phased light curve with the fit and residuals")
+    sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
+
+    sp = add("timings", cmd_timings, "time the minima or maxima the nights cover; O − C and an ephemeris fit")
+    sp.add_argument("archive", type=Path)
+    sp.add_argument("--band", help="only this band (default: every band)")
+    sp.add_argument("--kind", choices=("minimum", "maximum"), help="which extrema (default: the ephemeris' kind)")
+    sp.add_argument("--night", help="only this night (evening date, YYYY-MM-DD)")
+    sp.add_argument("--note", help="a note stored with each new timing")
+    sp.add_argument("--update", action="store_true", help="make the fitted ephemeris the archive's new ephemeris (older ones are kept)")
+    sp.add_argument("--no-store", action="store_true", help="do not record new timings in the archive")
+    sp.add_argument("--seed", type=int, default=0, metavar="S", help="seed of the bootstrap errors (default 0)")
+    sp.add_argument("-o", "--output", type=Path, metavar="FILE", help="O − C diagram (png, pdf, svg)")
+    sp.add_argument("--csv", type=Path, metavar="FILE", help="write the timings as CSV, one a row")
+    sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
+
+    sp = add("predict", cmd_predict, "the coming minima or maxima from the ephemeris in force, in UTC and BJD_TDB")
+    sp.add_argument("archive", type=Path)
+    sp.add_argument("--from", dest="start", required=True, metavar="DATE", help="start, UTC: YYYY-MM-DD, YYYY-MM-DDTHH:MM or a JD")
+    sp.add_argument("--to", dest="end", required=True, metavar="DATE", help="end, UTC")
+    sp.add_argument("--site-visible", action="store_true", help="only those observable from the target's site at night")
+    sp.add_argument("--min-altitude", type=float, default=30.0, metavar="DEG", help="lowest target altitude (default 30)")
+    sp.add_argument("--sun-altitude", type=float, default=-12.0, metavar="DEG", help="highest Sun altitude (default -12, nautical twilight)")
+
+    sp = add("verify", cmd_verify, "check an archive: schema, tables, checksums of every night, points against raw data")
+    sp.add_argument("archive", type=Path)
+
+    sp = add("upgrade", cmd_upgrade, "bring an archive of an older schema up to date (keeps a backup copy)")
+    sp.add_argument("archive", type=Path)
+    sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
+
+    sp = add("remove-night", cmd_remove_night, "take a wrongly ingested night out of an archive (the removal is recorded)")
+    sp.add_argument("archive", type=Path)
+    sp.add_argument("night", help="night label (evening date, YYYY-MM-DD)")
+    sp.add_argument("--reason", help="why, for the record")
     sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
 
     sp = add("demo", cmd_demo, "run the whole pipeline on the shipped invented demo field")

@@ -28,19 +28,20 @@ REDDENING_CAUTION = (
 
 
 def ephemeris(target: "Target") -> tuple[float, float] | None:
-    """(epoch BJD_TDB, period in days) from an optional ``[ephemeris]`` table, for phasing."""
+    """(epoch BJD_TDB, period in days) from an optional ``[ephemeris]`` table, for phasing.
+
+    Read by :func:`varstar.timings.ephemeris_from_table`, so the checks (a plausible
+    BJD epoch, a positive period, known keys) are the same as for timings.
+    """
+    from .timings import ephemeris_from_table
+
     table = target.extra.get("ephemeris")
     if table is None:
         return None
     if not isinstance(table, dict):
         raise InputError(f"{target.source}: [ephemeris] must be a table")
-    for key in ("epoch", "period"):
-        v = table.get(key)
-        if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
-            raise InputError(f"{target.source}: [ephemeris].{key} must be a finite number")
-    if table["period"] <= 0:
-        raise InputError(f"{target.source}: [ephemeris].period must be positive, got {table['period']}")
-    return float(table["epoch"]), float(table["period"])
+    eph = ephemeris_from_table(table, f"{target.source}: [ephemeris]")
+    return eph.epoch, eph.period
 
 
 def colour_summary(lc: pd.DataFrame, target: "Target") -> dict[str, Any]:

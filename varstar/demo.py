@@ -45,20 +45,30 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
 
     The steps are those of an observer: fit transformation coefficients from a
     standard field, create the target's archive, ingest each night, put the
-    archive on the standard system, then look at the light curve and colours.
+    archive on the standard system, look at the light curve and colours, find
+    the period, and time the maxima against the target's older ephemeris.
     Returns a JSON-ready dict: the folder, the files written and the summaries.
     """
     from .archive import create_archive, open_archive
     from .analyses import phased_model
-    from .cli import _model_at, format_coefficients, format_colour, format_night_report, format_period, format_summary
+    from .cli import (
+        _model_at,
+        format_coefficients,
+        format_colour,
+        format_night_report,
+        format_period,
+        format_summary,
+        format_timings,
+    )
     from .colour import colour_summary, field_diagram, phases
-    from .export import lightcurve_table, safe_filename, to_json, write_atomic, write_csv
+    from .export import lightcurve_table, safe_filename, timings_table, to_json, write_atomic, write_csv
     from .night import ingest, transform_archive
     from .plots import (
         coefficient_figure,
         colour_figure,
         colour_magnitude_figure,
         lightcurve_figure,
+        oc_figure,
         periodogram_figure,
         phased_figure,
         save,
@@ -143,8 +153,21 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
                        residuals=lcp["mag"].to_numpy() - _model_at(res, lcp),
                        title=f"{target.name}: {target.target_star.id}, P = {res.period:.7f} d"), ph_png)
     files += [pg_png, ph_png]
+
+    # 6. Times of maximum light, O - C against the target's older ephemeris, and an updated ephemeris.
+    timed = arch.time_extrema(update=True)
+    say("\n" + format_timings(timed))
+    oc_png, timings_csv = folder / "o-c.png", folder / "timings.csv"
+    save(oc_figure([t["cycle"] for t in timed["timings"]], [t["o_minus_c"] for t in timed["timings"]],
+                   [t["err"] for t in timed["timings"]], [t["type"] for t in timed["timings"]],
+                   fit=dict(timed["fit"], reference=timed["ephemeris"]),
+                   reference=f"T0 = {timed['ephemeris']['epoch']:.5f}, P = {timed['ephemeris']['period']:.7f} d (BJD_TDB)",
+                   title=f"{target.name}: O − C"), oc_png)
+    write_csv(timings_table(timed["timings"]), timings_csv)
+    files += [oc_png, timings_csv]
     csv = write_csv(lightcurve_table(lc), folder / "observations.csv")
-    result = {"summary": summary, "coefficients": fit.to_dict(), "colour": colour, "period": found.to_dict()}
+    result = {"summary": summary, "coefficients": fit.to_dict(), "colour": colour, "period": found.to_dict(),
+              "timings": timed}
     js = write_atomic(folder / "summary.json", (to_json(result, indent=2) + "\n").encode("utf-8"))
     return {
         "folder": str(folder),

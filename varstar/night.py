@@ -442,7 +442,7 @@ def ingest(
     sha_of = {str(p): h for p, _, h in fresh}
 
     with transaction(arch.path, timeout_s=timeout_s) as f:
-        check_root(f, arch.path)
+        check_root(f, arch.path, writing=True)
         # Re-check under the lock: another process may have ingested meanwhile.
         if set(tables.read(f, "sources", ["sha256"])["sha256"]) & set(sha_of.values()):
             raise InputError(f"{arch.path}: another process ingested some of these files meanwhile; nothing was written")
@@ -486,9 +486,14 @@ def _write_night(f, red: NightReduction, sha_of: Mapping[str, str], now: str) ->
     from . import __version__
     from .archive import tables
 
+    from .archive.integrity import night_digests_of_range
+    from .archive.layout import DIGEST_COLUMNS
+
     stars = list(tables.read(f, "stars", ["id"])["id"])
-    existing = tables.read(f, "nights", ["night"])["night"]
-    night_id = int(existing.max()) + 1 if existing.size else 0
+    # never reuse the number of a removed night: its removal record keeps it
+    used = np.concatenate([tables.read(f, "nights", ["night"])["night"], tables.read(f, "removals", ["night"])["night"]])
+    night_id = int(used.max()) + 1 if used.size else 0
+    starts = {t: tables.n_rows(f, t) for t in DIGEST_COLUMNS}
     band_code = {b: tables.code_of(f, "bands", "name", b, add=True) for b in sorted(pd.unique(red.exposures["band"]))}
     # Sources of this night.
     src_names = sorted(pd.unique(red.raw["source"]))
@@ -585,6 +590,9 @@ def _write_night(f, red: NightReduction, sha_of: Mapping[str, str], now: str) ->
             "report": [json.dumps(red.report, allow_nan=True)],
         },
     )
+    # the night's checksums, from the rows just written (cost independent of the archive's size)
+    ranges = {t: (starts[t], tables.n_rows(f, t)) for t in DIGEST_COLUMNS}
+    tables.append(f, "digests", night_digests_of_range(f, night_id, ranges))
 
 
 # -- transformation to the standard system ---------------------------------------------
@@ -803,7 +811,7 @@ def transform_archive(
     target = arch.target
     per_night: list[dict[str, Any]] = []
     with transaction(arch.path, timeout_s=timeout_s) as f:
-        check_root(f, arch.path)
+        check_root(f, arch.path, writing=True)
         nights = tables.read(f, "nights", ["night", "label"])
         if nights["night"].size == 0:
             raise InputError(f"{arch.path}: no nights to transform yet; ingest some first")
@@ -844,3 +852,49 @@ def transform_archive(
             f["points"][k][...] = v
     return {"archive": str(arch.path), "transformation": tid, "coefficients": coeffs.to_dict(),
             "max_gap_minutes": max_gap_d * 1440.0, "nights": per_night}
+
+
+# -- undo ------------------------------------------------------------------------------
+
+
+def remove_night(archive_path: str | Path, label: str, *, reason: str = "", timeout_s: float = 30.0) -> dict[str, Any]:
+    """Take a wrongly ingested night out of an archive again, keeping a record that it was.
+
+    Every row of the night goes (sources, exposures, raw measurements, points,
+    comparison and ensemble results, timings, checksums, the night itself) in one
+    atomic change; the row numbers other tables hold into ``/exposures`` and
+    ``/sources`` are renumbered.  ``/removals`` records what was removed, when and
+    why; the night's files can then be ingested again.  Stored period analyses are
+    history and stay.
+    """
+    from . import __version__
+    from .archive import open_archive, tables, transaction
+    from .archive.store import check_root, utc_now
+
+    arch = open_archive(archive_path)
+    with transaction(arch.path, timeout_s=timeout_s) as f:
+        check_root(f, arch.path, writing=True)
+        nights = tables.read(f, "nights", ["night", "label", "n_exposures", "n_points"])
+        hit = np.flatnonzero(nights["label"] == label)
+        if hit.size == 0:
+            known = ", ".join(nights["label"].tolist()[-5:]) or "none"
+            raise InputError(f"{arch.path}: no night '{label}' (nights are evening dates YYYY-MM-DD; latest: {known}); nothing changed")
+        i = int(hit[0])
+        night_id = int(nights["night"][i])
+        src = tables.read(f, "sources", ["night", "name"])
+        names = sorted(set(src["name"][src["night"] == night_id].tolist()))
+        remap = {}
+        for ref, col in (("exposures", "exposure"), ("sources", "source")):
+            keep = f[ref]["night"][()] != night_id
+            remap[col] = np.cumsum(keep) - 1  # old row -> new row (rows that stay)
+        for t in ("raw", "points", "exposures", "sources", "comparisons", "ensembles", "timings", "digests"):
+            keep = f[t]["night"][()] != night_id
+            tables.keep_rows(f, t, keep, {c: m for c, m in remap.items() if c in tables.TABLES[t]})
+        tables.keep_rows(f, "nights", nights["night"] != night_id)
+        tables.append(f, "removals", {
+            "night": [night_id], "label": [label], "removed_utc": [utc_now()], "software": [f"varstar {__version__}"],
+            "n_exposures": [int(nights["n_exposures"][i])], "n_points": [int(nights["n_points"][i])],
+            "sources": [", ".join(names)], "reason": [reason],
+        })
+    return {"archive": str(arch.path), "night": label, "n_exposures": int(nights["n_exposures"][i]),
+            "n_points": int(nights["n_points"][i]), "sources": names, "reason": reason}

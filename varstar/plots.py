@@ -8,6 +8,7 @@ each series also differs by marker shape, so the figures read in grey too.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -340,6 +341,59 @@ def phased_figure(
     axr.set_ylabel("data − fit (mag)")
     axr.set_xlabel(f"phase (P = {period_d:.6f} d, epoch BJD_TDB {epoch_bjd:.5f}); two cycles shown")
     axr.grid(alpha=0.3)
+    if title:
+        fig.suptitle(title)
+    return fig
+
+
+#: Marker and colour of each timing type in the O − C diagram (shape alone tells them apart).
+TIMING_STYLE = {"primary": ("o", PALETTE[0]), "secondary": ("D", PALETTE[5]), "maximum": ("^", PALETTE[2])}
+
+
+def oc_figure(
+    cycle: np.ndarray,
+    o_minus_c_d: np.ndarray,
+    err_d: np.ndarray,
+    types: Sequence[str],
+    *,
+    fit: dict | None = None,
+    reference: str = "",
+    title: str = "",
+) -> "Figure":
+    """O − C diagram: timings against cycle number with error bars, by type, with the fitted ephemerides.
+
+    ``o_minus_c_d`` and ``err_d`` are in days (drawn in minutes) against the
+    reference ephemeris; ``fit`` is the dict of an ephemeris fit (its linear and
+    quadratic solutions are drawn as curves relative to the same reference).
+    """
+    fig = _figure(1, width=9.0, height_per=4.2)
+    ax = fig.subplots()
+    cycle = np.asarray(cycle, dtype=float)
+    oc_min = np.asarray(o_minus_c_d, dtype=float) * 1440.0
+    err_min = np.asarray(err_d, dtype=float) * 1440.0
+    types = np.asarray(types, dtype=object)
+    for typ, (marker, colour) in TIMING_STYLE.items():
+        m = types == typ
+        if m.any():
+            ax.errorbar(cycle[m], oc_min[m], yerr=err_min[m], fmt=marker, color=colour, ms=6, capsize=2,
+                        mfc=colour if typ != "secondary" else "white", label=f"{typ} ({int(m.sum())})")
+    if fit is not None and cycle.size:
+        e = np.linspace(cycle.min(), cycle.max(), 200)
+        ref = fit.get("reference")
+        styles = (("linear", "--", "linear ephemeris"), ("quadratic_fit", ":", "quadratic ephemeris"))
+        for key, ls, label in styles:
+            sol = fit.get(key)
+            if sol and ref:
+                model = sol["epoch"] + sol["period"] * e + sol.get("quadratic", 0.0) * e**2
+                base = ref["epoch"] + ref["period"] * e + ref.get("quadratic", 0.0) * e**2
+                ax.plot(e, (model - base) * 1440.0, ls, color="0.25", lw=1.1, label=label)
+    ax.axhline(0.0, color="0.6", lw=0.8)
+    ax.set_xlabel("cycle number E")
+    ax.set_ylabel("O − C (minutes)")
+    if reference:
+        ax.set_title(f"against {reference}", fontsize="small", loc="left")
+    ax.grid(alpha=0.3)
+    ax.legend(fontsize="small", loc="best")
     if title:
         fig.suptitle(title)
     return fig

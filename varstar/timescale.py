@@ -16,6 +16,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .errors import InputError
+
 # Spacing of the exact evaluations when a night has many exposures.  The
 # barycentric correction is smooth (annual term ~ 500 s, diurnal term ~ 20 ms):
 # linear interpolation between nodes h apart errs by A (omega h)^2 / 8, under a
@@ -191,3 +193,119 @@ def night_label(jd_utc: np.ndarray, longitude_deg: float) -> np.ndarray:
     day_number = np.floor(jd + lon / 360.0)  # JD of local noon before, as an integer day
     days = (day_number - 2440588).astype("int64")  # JD 2440587.5 = 1970-01-01 0h
     return np.datetime_as_string(days.astype("datetime64[D]"), unit="D")
+
+
+def _site_location(site) -> tuple[float, float, float]:
+    """(latitude_deg, longitude_deg, elevation_m) of a :class:`varstar.target.Site`-like object."""
+    try:
+        return float(site.latitude_deg), float(site.longitude_deg), float(site.elevation_m)
+    except AttributeError as exc:  # a programming error, not a user's
+        raise TypeError("site must have latitude_deg, longitude_deg and elevation_m (varstar.target.Site)") from exc
+
+
+def bjd_tdb_to_utc(bjd_tdb: np.ndarray, ra_deg: float, dec_deg: float, site) -> np.ndarray:
+    """Invert :func:`exposure_times`: the JD(UTC) at which the site sees a given BJD_TDB.
+
+    BJD_TDB = JD_UTC + c(JD_UTC), with c the TT - UTC, TDB - TT and barycentric
+    light-time correction of :func:`exposure_times`.  c changes by at most
+    ~1e-4 s per second (the annual term, 500 s x 2 pi / 1 yr), so the
+    fixed-point iteration ``jd = bjd - c(jd)`` gains four orders of magnitude
+    per step; three steps from ``jd = bjd`` leave an error far below the
+    float64 spacing of a JD (40 microseconds).
+
+    Parameters
+    ----------
+    bjd_tdb
+        Barycentric Julian Dates (TDB), any shape.
+    ra_deg, dec_deg
+        ICRS coordinates of the target, degrees.
+    site
+        Observing site (:class:`varstar.target.Site`).
+
+    Returns
+    -------
+    numpy.ndarray
+        JD(UTC), same shape.
+    """
+    bjd = np.asarray(bjd_tdb, dtype=float)
+    if bjd.size == 0:
+        return np.empty(bjd.shape)
+    lat, lon, elev = _site_location(site)
+    loc, coord = _location_and_coord(ra_deg, dec_deg, lat, lon, elev)
+    uniq, inverse = np.unique(bjd.ravel(), return_inverse=True)
+    jd = uniq.copy()
+    with offline_astropy():
+        for _ in range(3):
+            corr, _, _ = _exact(jd, loc, coord)
+            jd = uniq - corr
+    return jd[inverse].reshape(bjd.shape)
+
+
+def altitudes(jd_utc: np.ndarray, ra_deg: float, dec_deg: float, site) -> tuple[np.ndarray, np.ndarray]:
+    """Geometric altitudes (degrees, no refraction) of the target and of the Sun.
+
+    For planning: whether a predicted extremum is observable (target up, Sun
+    below -18 deg for astronomical darkness).  astropy ``AltAz`` with the
+    bundled Earth-orientation table; the Sun from ``get_body("sun")``
+    (topocentric, built-in ephemeris).
+
+    Parameters
+    ----------
+    jd_utc
+        Julian Dates (UTC), any shape.
+    ra_deg, dec_deg
+        ICRS coordinates of the target, degrees.
+    site
+        Observing site (:class:`varstar.target.Site`).
+
+    Returns
+    -------
+    (target_alt_deg, sun_alt_deg)
+        Arrays of the input's shape.
+    """
+    jd = np.asarray(jd_utc, dtype=float)
+    if jd.size == 0:
+        return np.empty(jd.shape), np.empty(jd.shape)
+    from astropy.coordinates import AltAz, get_body
+    from astropy.time import Time
+
+    lat, lon, elev = _site_location(site)
+    loc, coord = _location_and_coord(ra_deg, dec_deg, lat, lon, elev)
+    with offline_astropy():
+        t = Time(jd.ravel(), format="jd", scale="utc", location=loc)
+        frame = AltAz(obstime=t, location=loc)
+        target_alt = coord.transform_to(frame).alt.deg
+        sun_alt = get_body("sun", t, location=loc).transform_to(frame).alt.deg
+    return np.asarray(target_alt, float).reshape(jd.shape), np.asarray(sun_alt, float).reshape(jd.shape)
+
+
+def parse_utc(text: str, *, what: str = "date") -> float:
+    """JD(UTC) of a date or time given as text: ``YYYY-MM-DD`` (0h UTC), ISO ``YYYY-MM-DDTHH:MM[:SS]``, or a JD.
+
+    Raises InputError naming ``what`` for anything else.
+    """
+    from astropy.time import Time
+
+    s = str(text).strip()
+    try:
+        jd = float(s)
+    except ValueError:
+        jd = None
+    if jd is not None:
+        if not (2_300_000.0 < jd < 2_600_000.0):
+            raise InputError(f"{what} {s!r}: a number is read as a full Julian Date (2,300,000-2,600,000)")
+        return jd
+    try:
+        with offline_astropy():
+            return float(Time(s.replace(" ", "T"), format="isot" if "T" in s or " " in s else "iso", scale="utc").jd)
+    except ValueError:
+        raise InputError(f"{what} {s!r}: give YYYY-MM-DD, YYYY-MM-DDTHH:MM (UTC) or a Julian Date") from None
+
+
+def utc_iso(jd_utc: np.ndarray) -> list[str]:
+    """ISO 8601 UTC text (to the second, with a trailing Z) of Julian Dates in UTC."""
+    from astropy.time import Time
+
+    with offline_astropy():
+        t = Time(np.atleast_1d(np.asarray(jd_utc, dtype=float)), format="jd", scale="utc", precision=0)
+        return [s + "Z" for s in t.isot]

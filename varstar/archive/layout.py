@@ -10,7 +10,10 @@ documented for people in ``docs/archive-format.md``; keep the two in step.
 from __future__ import annotations
 
 FORMAT_NAME = "varstar-archive"
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
+
+#: Tables each older schema lacks; :mod:`.integrity` adds them on ``varstar upgrade``.
+ADDED_IN = {2: ("timings", "ephemerides", "digests", "removals")}
 
 STR = "str"  # marker for variable-length UTF-8 text
 
@@ -132,4 +135,67 @@ TABLES: dict[str, dict[str, str]] = {
         "fap": "f8",
         "result": STR,
     },
+    "timings": {
+        "timing": "i4",
+        "computed_utc": STR,
+        "software": STR,
+        "night": "i4",
+        "band": "u1",
+        "type": STR,
+        "method": STR,
+        "bjd_tdb": "f8",
+        "err": "f8",
+        "check_method": STR,
+        "check_bjd_tdb": "f8",
+        "check_err": "f8",
+        "disagree": "u1",
+        "cycle": "f8",
+        "o_minus_c": "f8",
+        "ephemeris": "i4",
+        "n_points": "i4",
+        "note": STR,
+    },
+    "ephemerides": {
+        "ephemeris": "i4",
+        "set_utc": STR,
+        "source": STR,
+        "kind": STR,
+        "epoch": "f8",
+        "epoch_err": "f8",
+        "period": "f8",
+        "period_err": "f8",
+        "quadratic": "f8",
+        "quadratic_err": "f8",
+        "chi2": "f8",
+        "dof": "i4",
+        "n_timings": "i4",
+        "note": STR,
+    },
+    "digests": {"night": "i4", "table": STR, "n_rows": "i8", "sha256": STR},
+    "removals": {
+        "night": "i4",
+        "label": STR,
+        "removed_utc": STR,
+        "software": STR,
+        "n_exposures": "i4",
+        "n_points": "i8",
+        "sources": STR,
+        "reason": STR,
+    },
 }
+
+#: What a night's checksum covers, per table: the columns that never change after
+#: ingest (``varstar transform`` rewrites only the standard-system columns of
+#: ``/points``).  Row-number columns are hashed relative to the night's first row
+#: in the table they point to, so removing another night does not change them.
+DIGEST_COLUMNS: dict[str, tuple[str, ...]] = {
+    "sources": ("night", "name", "sha256", "n_rows"),
+    "exposures": tuple(TABLES["exposures"]),
+    "raw": tuple(TABLES["raw"]),
+    "points": ("night", "exposure", "star", "band", "bjd_tdb", "mag", "mag_err", "cal_err", "quality"),
+    "comparisons": tuple(TABLES["comparisons"]),
+    "ensembles": tuple(TABLES["ensembles"]),
+}
+
+#: Row-number columns and the table whose rows they count.
+ROW_REFERENCES = {"exposure": "exposures", "source": "sources"}

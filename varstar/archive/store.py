@@ -76,12 +76,14 @@ class Archive:
 
     # -- low level -----------------------------------------------------------
     def _open(self) -> h5py.File:
-        if not self.path.exists():
-            raise ArchiveError(f"{self.path}: no such archive (create it with 'varstar init')")
-        try:
-            return h5py.File(self.path, "r", locking=False)
-        except OSError:
-            raise ArchiveError(f"{self.path}: not a readable HDF5 archive") from None
+        """The archive at its last committed state, read-only; use it in a ``with`` block.
+
+        The file holds the archive's shared read lock until it is closed, so a
+        writer never writes into it meanwhile (see :mod:`.transaction`).
+        """
+        from .transaction import open_read
+
+        return open_read(self.path)
 
     def check_format(self) -> None:
         with self._open() as f:
@@ -270,6 +272,35 @@ class Archive:
 
         return period_history(self)
 
+    def time_extrema(self, **options: Any) -> dict[str, Any]:
+        """Time the extrema the nights cover, store new timings, fit the ephemeris.
+
+        ``options`` go to :func:`varstar.analyses.timings_of_archive` (``band``,
+        ``kind``, ``night``, ``note``, ``store``, ``update``, ``seed``).  Returns the
+        JSON-ready dict ``varstar timings --json`` prints.
+        """
+        from ..analyses import timings_of_archive
+
+        return timings_of_archive(self, **options)
+
+    def timings(self) -> pd.DataFrame:
+        """Every stored timing, in time order (``night_label`` and ``band_name`` decoded)."""
+        from ..analyses import stored_timings
+
+        return stored_timings(self)
+
+    def ephemerides(self) -> pd.DataFrame:
+        """The ephemeris history, oldest first; the last entry is in force."""
+        from ..analyses import ephemeris_history
+
+        return ephemeris_history(self)
+
+    def predict(self, start: str, end: str, **options: Any) -> dict[str, Any]:
+        """Coming extrema between two UTC dates; see :func:`varstar.analyses.predict_of_archive`."""
+        from ..analyses import predict_of_archive
+
+        return predict_of_archive(self, start, end, **options)
+
     def transformations(self) -> pd.DataFrame:
         """Every coefficient set the archive has used, oldest first (the last is in force)."""
         with self._open() as f:
@@ -341,8 +372,12 @@ class Archive:
         }
 
 
-def check_root(f: h5py.File, path: Path) -> None:
-    """Refuse files that are not varstar archives of a schema this version reads."""
+def check_root(f: h5py.File, path: Path, *, writing: bool = False) -> None:
+    """Refuse files that are not varstar archives of a schema this version reads.
+
+    With ``writing``, also refuse an older schema: it must be upgraded first
+    (``varstar upgrade``, which keeps a backup), never silently.
+    """
     if f.attrs.get("format") != FORMAT_NAME:
         raise ArchiveError(f"{path}: not a varstar archive (no '{FORMAT_NAME}' format mark)")
     version = int(f.attrs.get("schema_version", -1))
@@ -352,6 +387,11 @@ def check_root(f: h5py.File, path: Path) -> None:
         )
     if version < 1:
         raise ArchiveError(f"{path}: archive has no valid schema version")
+    if writing and version < SCHEMA_VERSION:
+        raise ArchiveError(
+            f"{path}: archive schema {version} is older than this varstar's {SCHEMA_VERSION}; it can be read, but "
+            f"run 'varstar upgrade {path}' first to change it (the upgrade keeps a backup copy)"
+        )
 
 
 def _labels(nights: dict[str, np.ndarray], ids: np.ndarray) -> np.ndarray:

@@ -16,9 +16,11 @@ def _dtype(code: str):
     return h5py.string_dtype("utf-8") if code == STR else np.dtype(code)
 
 
-def create_tables(root: h5py.Group) -> None:
-    """Create every table of the layout, empty."""
+def create_tables(root: h5py.Group, only: Iterable[str] | None = None) -> None:
+    """Create every table of the layout (or those in ``only``), empty."""
     for name, cols in TABLES.items():
+        if only is not None and name not in only:
+            continue
         g = root.create_group(name)
         for col, code in cols.items():
             kw = {}
@@ -81,3 +83,30 @@ def code_of(root: h5py.Group, table: str, column: str, value: str, *, add: bool)
     row = {c: [""] for c in TABLES[table]}
     row[column] = [value]
     return append(root, table, row)
+
+
+def has_table(root: h5py.Group, table: str) -> bool:
+    """True when ``table`` exists (archives of an older schema lack the newer tables)."""
+    return table in root and isinstance(root[table], h5py.Group)
+
+
+def keep_rows(root: h5py.Group, table: str, keep: np.ndarray, remap: Mapping[str, np.ndarray] | None = None) -> int:
+    """Rewrite ``table`` with only the rows where ``keep`` is True; return the rows removed.
+
+    ``remap`` maps a row-number column (e.g. ``exposure``) to an array giving each old
+    row number its new one, for tables whose rows moved.  Used only by night removal,
+    inside a transaction.
+    """
+    keep = np.asarray(keep, dtype=bool)
+    if keep.size != n_rows(root, table):
+        raise ValueError(f"table {table}: keep mask of {keep.size} rows for {n_rows(root, table)}")
+    n_keep = int(keep.sum())
+    for col, code in TABLES[table].items():
+        ds = root[table][col]
+        data = (ds.asstr()[()] if code == STR else ds[()])[keep]
+        if remap and col in remap:
+            data = remap[col][data]
+        ds.resize((n_keep,))
+        if n_keep:
+            ds[:] = np.array([str(v) for v in data], dtype=object) if code == STR else data.astype(code, copy=False)
+    return int(keep.size - n_keep)

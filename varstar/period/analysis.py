@@ -47,6 +47,7 @@ from varstar.period import (
     refine,
     significance,
 )
+from varstar.period.refine import _jf
 
 __all__ = ["MAX_PDM_ELEMENTS", "PeriodResult", "analyse"]
 
@@ -60,11 +61,6 @@ MAX_AUTO_HARMONICS = 10
 
 #: False-alarm probabilities whose power levels are reported and drawn.
 FAP_LEVELS = (0.1, 0.01, 0.001)
-
-
-def _jf(x: Any) -> float | None:
-    x = float(x)
-    return x if math.isfinite(x) else None
 
 
 @dataclass(frozen=True, eq=False)
