@@ -32,7 +32,8 @@ Figures per checkpoint: the ingest's wall time, split into the reduction
 and the rest (reading and parsing the file, the archive reads ingest makes
 before its transaction, and the HDF5 appends into the in-memory overlay); the
 journal's size; the wall time of :meth:`varstar.archive.Archive.lightcurve` for
-the whole light curve (every band, and V alone); the archive's size against the
+the whole light curve (every band with all 24 columns, V alone, and every band with
+only the columns the period and timing analyses read, ``ANALYSIS_COLUMNS``); the archive's size against the
 measurements' size as float64 (the long table as an observer hands it over:
 ``jd, band, star, mag, mag_err, airmass, exptime, flag, frame`` = 9 values a
 row, 72 bytes) and against the measured values alone (``jd, mag, mag_err``, 24
@@ -202,7 +203,9 @@ def time_lightcurve(archive: Path) -> dict[str, float]:
 
     arch = Archive(archive)
     out = {}
-    for key, kw in (("lc_all_s", {}), ("lc_v_s", {"band": "V"})):
+    from varstar.analyses import ANALYSIS_COLUMNS
+
+    for key, kw in (("lc_all_s", {}), ("lc_v_s", {"band": "V"}), ("lc_core_s", {"columns": ANALYSIS_COLUMNS})):
         times = []
         for _ in range(2):
             t = time.perf_counter()
@@ -289,7 +292,7 @@ def main(argv: list[str] | None = None) -> int:
             # ---- fill up to the checkpoint, one transaction per night
             todo = range(i, mark)
             if args.reuse:
-                need = [k for k in todo if k < args.reuse and len(reuse) <= k]
+                need = list(range(len(reuse), args.reuse))  # reuse[j] is the reduction of night j
                 for _, red, sha, n in pool.imap(reduce_one, need):
                     reuse.append((red, sha, n))
                 source = ((k, *((shifted(reuse[k % args.reuse][0], k % args.reuse, k),) + reuse[k % args.reuse][1:])) for k in todo)
@@ -342,7 +345,7 @@ def main(argv: list[str] | None = None) -> int:
           f"load average at the end {os.getloadavg()[0]:.1f} on {os.cpu_count()} CPUs (other work inflates the times)\n")
     head = ("nights", "meas. rows", "archive MB", "x raw f8 (72 B/row)", "x values f8 (24 B/row)", "free MB",
             "ingest s", "reduce s", "rest s", "commit s", "journal KB", "new end KB", "copy-all s",
-            "light curve s (rows)", "V only s")
+            "light curve s (rows)", "V only s", "analysis columns s")
     lines = []
     for r in results:
         raw_all = r["rows"] * ROW_BYTES_ALL / 1e6
@@ -353,6 +356,7 @@ def main(argv: list[str] | None = None) -> int:
             f"{r['size_mb'] / raw_val:.2f}", f"{r['free_mb']:.1f}", f"{r['ingest_s']:.2f}", f"{r['reduce_s']:.2f}",
             f"{body:.2f}", f"{r['commit_s']:.3f}", f"{r['journal_kb']:.0f}", f"{r['tail_kb']:.0f}",
             f"{r['copy_s']:.2f}", f"{r['lc_all_s']:.2f} ({r['lc_all_rows']:,})", f"{r['lc_v_s']:.2f}",
+            f"{r['lc_core_s']:.2f}",
         ))
     widths = [max(len(h), *(len(x[k]) for x in lines)) for k, h in enumerate(head)]
     print("  ".join(h.rjust(w) for h, w in zip(head, widths)))
@@ -365,7 +369,8 @@ def main(argv: list[str] | None = None) -> int:
           if write_times else "")
     worst_ingest = max(r["ingest_s"] for r in results)
     print(f"goals: ingest < 1 s: {'met' if worst_ingest < 1 else 'MISSED'} (worst {worst_ingest:.2f} s); "
-          f"light curve < 1 s: {'met' if last['lc_all_s'] < 1 else 'MISSED'} ({last['lc_all_s']:.2f} s); "
+          f"light curve < 1 s: all 24 columns {'met' if last['lc_all_s'] < 1 else 'MISSED'} ({last['lc_all_s']:.2f} s), "
+          f"the columns an analysis reads {'met' if last['lc_core_s'] < 1 else 'MISSED'} ({last['lc_core_s']:.2f} s); "
           f"size within 2x of raw f8: {last['size_mb'] / (last['rows'] * ROW_BYTES_ALL / 1e6):.2f}x of 72 B/row, "
           f"{last['size_mb'] / (last['rows'] * ROW_BYTES_VALUES / 1e6):.2f}x of 24 B/row")
     return 0

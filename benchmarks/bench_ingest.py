@@ -14,7 +14,7 @@ resident memory is the ingest's own) creates an archive and times
   validating it (``measurements.parse_measurements``), the times (``timescale.
   exposure_times``: BJD_TDB, HJD, airmass), the whole night reduction
   (``night.reduce_night``: times + ensemble + report) and, as the remainder, the
-  archive write (lock, copy, append, fsync, rename),
+  archive write (lock, appends into the in-memory overlay, journal commit),
 * the peak of Python allocations (``tracemalloc``, which sees numpy buffers but
   not HDF5's own C allocations) during a third ingest.
 
@@ -280,7 +280,7 @@ def main(argv: list[str] | None = None) -> int:
         ("  night reduction (reduce_night)", f"{med('reduce_s'):.3f} s", ""),
         ("    of which times (BJD_TDB, HJD, airmass)", f"{med('times_s'):.3f} s", ""),
         ("    of which ensemble, vetting, report", f"{med('reduce_s') - med('times_s'):.3f} s", "(difference)"),
-        ("  archive write (lock, copy, append, rename)", f"{med('write_s'):.3f} s", "(remainder)"),
+        ("  archive write (lock, append, journal commit)", f"{med('write_s'):.3f} s", "(remainder)"),
         ("whole command 'varstar ingest' (child process)", f"{cli_wall:.2f} s", "incl. interpreter start"),
         ("peak RSS, ingest process (VmHWM)", f"{med('rss_peak_mb'):.0f} MB", f"goal < {GOAL_RSS_MB:g} MB"),
         ("  of which after imports alone", f"{med('rss_after_import_mb'):.0f} MB", ""),

@@ -8,6 +8,7 @@ from pathlib import Path
 
 import h5py
 import numpy as np
+import pandas as pd
 import pytest
 
 import varstar
@@ -163,3 +164,17 @@ def test_lightcurve_selection_and_errors(empty):
 def test_comparison_star_light_curve_is_refused_with_a_reason(empty):
     with pytest.raises(ArchiveError, match="'C1' is a comparison star"):
         varstar.open_archive(empty).lightcurve(star="C1")
+
+
+def test_lightcurve_columns_subset_equals_the_full_table(demo_archive_path):
+    """Reading only some columns gives exactly those columns of the full table, in the same order."""
+    arch = varstar.open_archive(demo_archive_path)
+    for kw in ({}, {"band": "V"}, {"include_flagged": True}, {"standard": False}):
+        full = arch.lightcurve(**kw)
+        cols = ["night", "mag", "bjd_tdb", "flags", "frame", "airmass"]
+        part = arch.lightcurve(columns=cols, **kw)
+        assert list(part.columns) == cols
+        pd.testing.assert_frame_equal(part, full[cols])
+    assert (arch.lightcurve(include_flagged=True, columns=["flags"])["flags"] != "").any()
+    with pytest.raises(ArchiveError, match="unknown light-curve column"):
+        arch.lightcurve(columns=["mag", "colour"])

@@ -433,7 +433,7 @@ def ingest(
                 f"(the archive never changes a night once stored)"
             )
     reductions = [reduce_night(target, t, settings, label=lab) for lab, t in sorted(nights.items())]
-    _add_history_notes(arch.comparisons(), reductions)
+    _add_history_notes(arch.comparisons(last_nights=HISTORY_NIGHTS), reductions)
     with arch._open() as f:
         active = active_transformation(f)
     if active is not None:
@@ -454,6 +454,11 @@ def ingest(
         for red in reductions:
             _write_night(f, red, sha_of, utc_now())
     return IngestResult(str(arch.path), tuple(r.report for r in reductions), tuple(skipped))
+
+
+#: How many of the latest stored nights the comparison-star history note looks back on:
+#: a season's worth (our choice), so its cost does not grow with the archive.
+HISTORY_NIGHTS = 100
 
 
 def _add_history_notes(history: pd.DataFrame, reductions: Sequence[NightReduction]) -> None:

@@ -5,6 +5,7 @@ from __future__ import annotations
 import datetime as _dt
 import json
 from pathlib import Path
+from collections.abc import Sequence
 from typing import Any
 
 import h5py
@@ -122,10 +123,19 @@ class Archive:
         df.insert(1, "night_label", _labels(labels, df["night"].to_numpy()))
         return df
 
-    def comparisons(self) -> pd.DataFrame:
-        """Status of every comparison star in every night and band."""
+    def comparisons(self, last_nights: int | None = None) -> pd.DataFrame:
+        """Status of every comparison star in every night and band (or in the ``last_nights`` latest nights)."""
         with self._open() as f:
-            d = tables.read(f, "comparisons")
+            start = 0
+            if last_nights is not None:
+                # rows are stored night after night: the latest nights are the table's tail
+                night = f["comparisons"]["night"][()]
+                recent = np.unique(night)[-last_nights:] if night.size else night
+                keep = np.isin(night, recent)
+                start = int(np.argmax(keep)) if keep.any() else night.size
+                if not keep[start:].all():
+                    start = 0
+            d = tables.read(f, "comparisons", start=start)
             bands = tables.read(f, "bands", ["name"])["name"]
             stars = tables.read(f, "stars", ["id"])["id"]
             labels = tables.read(f, "nights", ["night", "label"])
@@ -155,6 +165,7 @@ class Archive:
         *,
         include_flagged: bool = False,
         standard: bool = True,
+        columns: Sequence[str] | None = None,
     ) -> pd.DataFrame:
         """The calibrated light curve as a DataFrame, sorted by time.
 
@@ -186,71 +197,100 @@ class Archive:
             B - V at that time (transformed points only; ``bv_sys_err`` its
             systematic 1-sigma for the night); ``epsilon_v``,
             ``mu_bv``, ``k2_bv`` are the coefficients used (NaN if none).
+        columns
+            Only these columns (in this order); the archive then reads only what
+            they need, which matters for long archives (the text columns
+            ``frame`` and ``flags`` are the slowest to read).
         """
+        wanted = list(LIGHTCURVE_FIELDS) if columns is None else list(columns)
+        unknown = [c for c in wanted if c not in LIGHTCURVE_FIELDS]
+        if unknown:
+            raise ArchiveError(f"unknown light-curve column(s) {unknown}; choose from {', '.join(LIGHTCURVE_FIELDS)}")
+        need_p = {"star", "band", "quality", "bjd_tdb", "transformation"}
+        need_e: set[str] = set()
+        for c in wanted:
+            src = LIGHTCURVE_FIELDS[c]
+            need_p.update(src[0])
+            need_e.update(src[1])
+        if need_e:
+            need_p.add("exposure")
         with self._open() as f:
             stars = tables.read(f, "stars", ["id"])["id"]
             bands = tables.read(f, "bands", ["name"])["name"]
+            roles = tables.read(f, "stars", ["role"])["role"]
             if star is None:
-                star = str(stars[list(tables.read(f, "stars", ["role"])["role"]).index("target")])
+                star = str(stars[list(roles).index("target")])
             if star not in stars:
                 raise ArchiveError(f"{self.path}: no star '{star}' (stars: {', '.join(stars)})")
-            roles = tables.read(f, "stars", ["role"])["role"]
             if roles[list(stars).index(star)] == "comparison":
                 raise ArchiveError(
                     f"{self.path}: '{star}' is a comparison star; light curves are kept for the target and "
                     f"check stars (a comparison star's behaviour is in 'varstar report')"
                 )
-            p = tables.read(f, "points")
-            keep = p["star"] == list(stars).index(star)
+            if band is not None and band not in bands:
+                raise ArchiveError(f"{self.path}: no observations in band '{band}' (bands: {', '.join(bands) or 'none'})")
+            sel = tables.read(f, "points", ["star", "band", "quality"])
+            keep = sel["star"] == list(stars).index(star)
             if band is not None:
-                if band not in bands:
-                    raise ArchiveError(f"{self.path}: no observations in band '{band}' (bands: {', '.join(bands) or 'none'})")
-                keep &= p["band"] == list(bands).index(band)
+                keep &= sel["band"] == list(bands).index(band)
             if not include_flagged:
-                keep &= p["quality"] == 0
-            p = {k: v[keep] for k, v in p.items()}
-            exp_idx = p["exposure"]
-            e = tables.read(f, "exposures", ["jd_utc", "hjd_utc", "airmass", "frame", "flags"])
-            labels = tables.read(f, "nights", ["night", "label"])
-            trans = tables.read(f, "transformations")
+                keep &= sel["quality"] == 0
+            p = {k: v[keep] for k, v in tables.read(f, "points", sorted(need_p - {"star", "quality"} | {"band"})).items()}
+            p["quality"] = sel["quality"][keep]
+            exp_idx = p.get("exposure", np.zeros(0, dtype=np.int64))
+            e: dict[str, np.ndarray] = {}
+            for col in need_e - {"flags"}:
+                ds = f["exposures"][col]
+                e[col] = (ds.asstr()[()] if col == "frame" else ds[()])[exp_idx]
+            if "flags" in need_e:
+                # the exposure's flags matter only for flagged points: read just those rows (text is slow)
+                e["flags"] = np.full(len(exp_idx), "", dtype=object)
+                flagged = np.flatnonzero(p["quality"] != 0)
+                if flagged.size:
+                    rows, inverse = np.unique(exp_idx[flagged], return_inverse=True)
+                    e["flags"][flagged] = np.asarray(f["exposures"]["flags"].asstr()[rows], dtype=object)[inverse]
+            labels = tables.read(f, "nights", ["night", "label"]) if "night" in wanted else None
+            trans = tables.read(f, "transformations") if {"epsilon_v", "mu_bv", "k2_bv"} & set(wanted) else None
         done = p["transformation"] >= 0
         use = done & standard
         tid = np.where(done, p["transformation"], 0)
 
         def coeff(name: str) -> np.ndarray:
-            if trans["transformation"].size == 0:
+            if trans is None or trans["transformation"].size == 0:
                 return np.full(len(tid), np.nan)
             return np.where(done, trans[name][tid], np.nan)
 
-        df = pd.DataFrame(
-            {
-                "bjd_tdb": p["bjd_tdb"],
-                "hjd_utc": e["hjd_utc"][exp_idx],
-                "jd_utc": e["jd_utc"][exp_idx],
-                "band": bands[p["band"]] if len(exp_idx) else np.array([], dtype=object),
-                "star": star,
-                "mag": np.where(use, p["mag_std"], p["mag"]),
-                "mag_err": np.where(use, p["mag_std_err"], p["mag_err"]),
-                "cal_err": np.where(use, p["cal_std_err"], p["cal_err"]),
-                "transformed": use,
-                "bv": p["bv_std"],
-                "bv_err": p["bv_std_err"],
-                "bv_sys_err": p["bv_std_sys_err"],
-                "mag_untransformed": p["mag"],
-                "mag_untransformed_err": p["mag_err"],
-                "cal_untransformed_err": p["cal_err"],
-                "colour_gap_d": p["colour_gap_d"],
-                "epsilon_v": coeff("epsilon_v"),
-                "mu_bv": coeff("mu_bv"),
-                "k2_bv": coeff("k2_bv"),
-                "airmass": e["airmass"][exp_idx],
-                "night": _labels(labels, p["night"]),
-                "frame": e["frame"][exp_idx],
-                "quality": p["quality"],
-                "flags": _flag_texts(p["quality"], e["flags"], exp_idx),
-            }
-        )
-        return df.sort_values(["bjd_tdb", "band"], kind="stable").reset_index(drop=True)
+        n = int(keep.sum())
+        make = {
+            "bjd_tdb": lambda: p["bjd_tdb"],
+            "hjd_utc": lambda: e["hjd_utc"],
+            "jd_utc": lambda: e["jd_utc"],
+            "band": lambda: bands[p["band"]] if n else np.array([], dtype=object),
+            "star": lambda: np.full(n, star, dtype=object),
+            "mag": lambda: np.where(use, p["mag_std"], p["mag"]),
+            "mag_err": lambda: np.where(use, p["mag_std_err"], p["mag_err"]),
+            "cal_err": lambda: np.where(use, p["cal_std_err"], p["cal_err"]),
+            "transformed": lambda: use,
+            "bv": lambda: p["bv_std"],
+            "bv_err": lambda: p["bv_std_err"],
+            "bv_sys_err": lambda: p["bv_std_sys_err"],
+            "mag_untransformed": lambda: p["mag"],
+            "mag_untransformed_err": lambda: p["mag_err"],
+            "cal_untransformed_err": lambda: p["cal_err"],
+            "colour_gap_d": lambda: p["colour_gap_d"],
+            "epsilon_v": lambda: coeff("epsilon_v"),
+            "mu_bv": lambda: coeff("mu_bv"),
+            "k2_bv": lambda: coeff("k2_bv"),
+            "airmass": lambda: e["airmass"],
+            "night": lambda: _labels(labels, p["night"]),
+            "frame": lambda: e["frame"],
+            "quality": lambda: p["quality"],
+            "flags": lambda: _flag_texts(p["quality"], e["flags"]),
+        }
+        df = pd.DataFrame({c: make[c]() for c in wanted})
+        rank = np.argsort(np.argsort(np.asarray(bands, dtype=str))) if len(bands) else np.zeros(0, dtype=int)
+        order = np.lexsort((rank[p["band"]] if n else p["band"], p["bjd_tdb"]))  # by time, then band name
+        return df.iloc[order].reset_index(drop=True)
 
     def period(self, band: str = "all", star: str | None = None, *, store: bool = True, **options: Any):
         """Period analysis of the light curve, recorded in the archive's period history.
@@ -372,6 +412,35 @@ class Archive:
         }
 
 
+#: Light-curve columns and what each reads: (``/points`` columns, ``/exposures`` columns).
+LIGHTCURVE_FIELDS: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
+    "bjd_tdb": (("bjd_tdb",), ()),
+    "hjd_utc": ((), ("hjd_utc",)),
+    "jd_utc": ((), ("jd_utc",)),
+    "band": (("band",), ()),
+    "star": ((), ()),
+    "mag": (("mag", "mag_std"), ()),
+    "mag_err": (("mag_err", "mag_std_err"), ()),
+    "cal_err": (("cal_err", "cal_std_err"), ()),
+    "transformed": ((), ()),
+    "bv": (("bv_std",), ()),
+    "bv_err": (("bv_std_err",), ()),
+    "bv_sys_err": (("bv_std_sys_err",), ()),
+    "mag_untransformed": (("mag",), ()),
+    "mag_untransformed_err": (("mag_err",), ()),
+    "cal_untransformed_err": (("cal_err",), ()),
+    "colour_gap_d": (("colour_gap_d",), ()),
+    "epsilon_v": ((), ()),
+    "mu_bv": ((), ()),
+    "k2_bv": ((), ()),
+    "airmass": ((), ("airmass",)),
+    "night": (("night",), ()),
+    "frame": ((), ("frame",)),
+    "quality": ((), ()),
+    "flags": ((), ("flags",)),
+}
+
+
 def check_root(f: h5py.File, path: Path, *, writing: bool = False) -> None:
     """Refuse files that are not varstar archives of a schema this version reads.
 
@@ -399,10 +468,11 @@ def _labels(nights: dict[str, np.ndarray], ids: np.ndarray) -> np.ndarray:
     return np.array([lookup.get(int(i), "?") for i in np.unique(ids)], dtype=object)[np.searchsorted(np.unique(ids), ids)] if len(ids) else np.array([], dtype=object)
 
 
-def _flag_texts(quality: np.ndarray, exposure_flags: np.ndarray, exp_idx: np.ndarray) -> np.ndarray:
+def _flag_texts(quality: np.ndarray, exposure_flags: np.ndarray) -> np.ndarray:
+    """Per point: why it is flagged, in words ("" when good); ``exposure_flags`` per point."""
     out = np.full(len(quality), "", dtype=object)
     for i in np.flatnonzero(quality):  # only the (few) flagged points
-        out[i] = _quality_text(int(quality[i]), str(exposure_flags[exp_idx[i]]))
+        out[i] = _quality_text(int(quality[i]), str(exposure_flags[i]))
     return out
 
 
