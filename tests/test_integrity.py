@@ -23,7 +23,7 @@ from test_cli import one_json, run  # noqa: E402
 import varstar  # noqa: E402
 from varstar.archive import tables  # noqa: E402
 from varstar.archive.integrity import upgrade, verify  # noqa: E402
-from varstar.archive.layout import ADDED_IN, SCHEMA_VERSION  # noqa: E402
+from varstar.archive.layout import ADDED_IN, RETYPED_IN, SCHEMA_VERSION  # noqa: E402
 from varstar.errors import ArchiveError  # noqa: E402
 
 
@@ -142,6 +142,11 @@ def _make_schema_1(path: Path) -> None:
     with h5py.File(path, "r+") as f:
         for t in ADDED_IN[2]:
             del f[t]
+        for t, col in RETYPED_IN[2]:  # schema 1 kept these as variable-length text
+            values = f[t][col][()].astype(str)
+            del f[t][col]
+            f[t].create_dataset(col, data=np.array(values, dtype=object), dtype=h5py.string_dtype("utf-8"),
+                                maxshape=(None,), chunks=(1024,))
         f.attrs["schema_version"] = 1
 
 
@@ -151,6 +156,7 @@ def test_older_schema_reads_refuses_changes_and_upgrades_with_a_backup(capsys, a
     old_bytes = path.read_bytes()
     a = varstar.open_archive(path)
     assert len(a.lightcurve()) > 0  # reading works
+    labels_before = list(a.nights()["label"])
     rep = verify(path)
     assert rep.ok and any("varstar upgrade" in n for n in rep.notes)
     # any change is refused until the observer asks for the upgrade
@@ -163,6 +169,9 @@ def test_older_schema_reads_refuses_changes_and_upgrades_with_a_backup(capsys, a
     assert res["upgraded"] and res["from_schema"] == 1 and res["schema_version"] == SCHEMA_VERSION
     assert Path(res["backup"]).read_bytes() == old_bytes  # the backup is the old file exactly
     assert verify(path).ok and verify(path).checked["checksums_ok"] == 18
+    with h5py.File(path, "r") as f:
+        assert f["sources"]["sha256"].dtype == np.dtype("S64") and f["nights"]["label"].dtype == np.dtype("S10")
+    assert list(varstar.open_archive(path).nights()["label"]) == labels_before
     rc, out, _ = run(capsys, "upgrade", path)
     assert rc == 0 and "nothing to do" in out
     # a second upgrade of another old copy does not overwrite the first backup

@@ -107,6 +107,11 @@ def format_summary(s: dict[str, Any]) -> str:
             f"{b['mag_min']:.3f} .. {b['mag_max']:.3f} mag, "
             f"median error {b['median_mag_err']:.3f}, BJD_TDB {b['bjd_first']:.4f} .. {b['bjd_last']:.4f}"
         )
+    a = s.get("analyses")
+    if a:
+        last = a["last_period"]
+        lines.append(f"  period analyses: {a['n_periods']}" + (f" (latest P = {last['period']:.7f} ± {last['period_err']:.7f} d, {last['computed_utc']})" if last else ""))
+        lines.append(f"  timings: {a['n_timings']}; ephemeris entries: {a['n_ephemerides']}; nights removed: {a['n_removed']}")
     return "\n".join(lines)
 
 

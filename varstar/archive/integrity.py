@@ -29,6 +29,7 @@ from . import tables
 from .layout import (
     ADDED_IN,
     DIGEST_COLUMNS,
+    RETYPED_IN,
     FORMAT_NAME,
     ROW_REFERENCES,
     SCHEMA_VERSION,
@@ -45,6 +46,8 @@ CONSISTENCY_TOL_MAG = 1e-9
 def _column_bytes(values: np.ndarray, code: str) -> bytes:
     if code == STR:
         return "\x1f".join(str(v) for v in values).encode("utf-8")
+    if code.startswith("S"):  # fixed-length ASCII (values may come as str or bytes)
+        return np.asarray([v.encode("ascii") if isinstance(v, str) else bytes(v) for v in values], dtype=code).tobytes()
     # little-endian explicitly, so a checksum does not depend on the machine
     return np.ascontiguousarray(np.asarray(values).astype(np.dtype(code).newbyteorder("<"))).tobytes()
 
@@ -105,7 +108,7 @@ def night_digests_of_range(f: h5py.File, night: int, ranges: dict[str, tuple[int
     first = {ref: ranges[ref][0] for ref in set(ROW_REFERENCES.values())}
     for t in DIGEST_COLUMNS:
         a, b = ranges[t]
-        c = {col: (f[t][col].asstr()[a:b] if TABLES[t][col] == STR else f[t][col][a:b]) for col in DIGEST_COLUMNS[t]}
+        c = {col: (f[t][col].asstr()[a:b] if TABLES[t][col] == STR else f[t][col][a:b]) for col in DIGEST_COLUMNS[t]}  # noqa: E501
         out["night"].append(night)
         out["table"].append(t)
         out["n_rows"].append(b - a)
@@ -163,6 +166,8 @@ def verify(path: str | Path) -> VerifyReport:
             for v in range(version + 1, SCHEMA_VERSION + 1):
                 for t in ADDED_IN.get(v, ()):
                     expected.pop(t, None)
+                for t, col in RETYPED_IN.get(v, ()):
+                    expected[t] = dict(expected[t], **{col: STR})
         if "target" not in f or "toml" not in f["target"].attrs:
             problems.append("the target description (/target) is missing")
         # structure
@@ -353,6 +358,9 @@ def upgrade(path: str | Path, *, timeout_s: float = 30.0) -> dict[str, Any]:
                 if not tables.has_table(f, t):
                     tables.create_tables(f, only=(t,))
                     added.append(t)
+            for t, col in RETYPED_IN.get(v, ()):
+                if f[t][col].dtype != np.dtype(TABLES[t][col]):
+                    tables.retype_column(f, t, col)
         nights = sorted(tables.read(f, "nights", ["night"])["night"].tolist())
         if nights:
             tables.append(f, "digests", night_digests(f, nights))

@@ -14,8 +14,13 @@ SCHEMA_VERSION = 2
 
 #: Tables each older schema lacks; :mod:`.integrity` adds them on ``varstar upgrade``.
 ADDED_IN = {2: ("timings", "ephemerides", "digests", "removals")}
+#: Columns whose type a schema changed (from variable-length text to fixed ASCII).
+RETYPED_IN = {2: (("sources", "sha256"), ("nights", "label"))}
 
 STR = "str"  # marker for variable-length UTF-8 text
+# Codes "S<n>" are fixed-length ASCII text of at most n bytes, for columns that are read
+# whole on every ingest (file checksums, night labels): HDF5 reads them as one block,
+# where variable-length text costs a heap lookup per row.
 
 #: Quality bits of a light-curve point (``/points/quality``); 0 means good.
 QUALITY_EXPOSURE_FLAGGED = 1
@@ -27,7 +32,7 @@ TABLES: dict[str, dict[str, str]] = {
     "stars": {"id": STR, "role": STR},
     "nights": {
         "night": "i4",
-        "label": STR,
+        "label": "S10",
         "ingested_utc": STR,
         "software": STR,
         "n_exposures": "i4",
@@ -37,7 +42,7 @@ TABLES: dict[str, dict[str, str]] = {
         "bjd_end": "f8",
         "report": STR,
     },
-    "sources": {"night": "i4", "name": STR, "sha256": STR, "n_rows": "i8"},
+    "sources": {"night": "i4", "name": STR, "sha256": "S64", "n_rows": "i8"},
     "exposures": {
         "night": "i4",
         "frame": STR,

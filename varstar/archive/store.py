@@ -393,6 +393,14 @@ class Archive:
         with self._open() as f:
             schema = int(f.attrs["schema_version"])
             created = str(f.attrs.get("created_utc", ""))
+            counts = {t: tables.n_rows(f, t) if tables.has_table(f, t) else 0
+                      for t in ("periods", "timings", "ephemerides", "removals")}
+            last_period = None
+            if counts["periods"]:
+                k = counts["periods"] - 1
+                last_period = {c: f["periods"][c][k] for c in ("period", "period_err")}
+                last_period = {c: float(v) for c, v in last_period.items()}
+                last_period["computed_utc"] = f["periods"]["computed_utc"].asstr()[k]
         return {
             "archive": str(self.path),
             "schema_version": schema,
@@ -409,6 +417,8 @@ class Archive:
                 for r in nights.itertuples()
             ],
             "bands": bands,
+            "analyses": {"n_periods": counts["periods"], "last_period": last_period, "n_timings": counts["timings"],
+                         "n_ephemerides": counts["ephemerides"], "n_removed": counts["removals"]},
         }
 
 
