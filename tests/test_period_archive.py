@@ -299,3 +299,14 @@ def test_pdm_restricted_to_candidates_on_long_series_finds_the_same_orbit(monkey
     assert np.isnan(part.theta).any()
     assert part.pdm["best_period"] == pytest.approx(full.pdm["best_period"], rel=1e-9)
     assert part.period == pytest.approx(full.period, rel=1e-9)
+
+
+def test_multi_harmonic_periodogram_reports_the_same_periods():
+    """--terms 3: the periodogram's harmonics must not turn into a doubled or halved period."""
+    rng = np.random.default_rng(2)
+    t = nightly(rng, 15, hours=5, cadence_min=15)
+    r = analyse(t, sawtooth(t) + 0.02 * rng.standard_normal(t.size), 0.02, nterms=3, min_period=0.3, max_period=3)
+    assert abs(r.period - 0.57) < 4 * r.period_err and "3 harmonics" in r.method  # truth of the simulation
+    t = nightly(rng, 20, hours=6, cadence_min=5)
+    r = analyse(t, contact_binary(t, 0.3312) + 0.01 * rng.standard_normal(t.size), 0.01, nterms=3)
+    assert abs(r.period - 0.3312) < 4 * r.period_err and r.epoch_kind == "minimum"
