@@ -185,3 +185,11 @@ def test_newer_schema_is_refused(arch):
     with pytest.raises(ArchiveError, match="newer than this varstar"):
         upgrade(path)
     assert "newer" in verify(path).problems[0]
+
+
+def test_public_api_reaches_verify_and_remove_night(arch):
+    path, _ = arch
+    assert varstar.verify(path).ok
+    label = str(varstar.open_archive(path).nights()["label"].iloc[0])
+    assert varstar.remove_night(path, label, reason="test")["night"] == label
+    assert varstar.verify(path).ok and varstar.upgrade(path)["upgraded"] is False

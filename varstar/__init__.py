@@ -5,6 +5,8 @@ The public API is small; see the README for the command line::
     import varstar
     arch = varstar.open_archive("demo/target.h5")
     lc = arch.lightcurve(band="V")        # a pandas DataFrame
+    found = arch.period()                 # period analysis, stored in the archive's history
+    report = varstar.verify("demo/target.h5")
 
 Names are imported lazily so that ``varstar --help`` starts quickly.
 """
@@ -27,6 +29,11 @@ _API = {
     "read_measurements": "varstar.measurements",
     "ingest": "varstar.night",
     "reduce_night": "varstar.night",
+    "remove_night": "varstar.night",
+    "verify": "varstar.archive.integrity",
+    "upgrade": "varstar.archive.integrity",
+    "analyse_period": "varstar.period",
+    "Ephemeris": "varstar.timings",
     "Target": "varstar.target",
     "read_target": "varstar.target",
 }
@@ -34,9 +41,12 @@ _API = {
 __all__ = sorted(_API) + ["__version__"]
 
 
+_RENAMED = {"analyse_period": "analyse"}
+
+
 def __getattr__(name: str) -> Any:
     if name in _API:
-        return getattr(importlib.import_module(_API[name]), name)
+        return getattr(importlib.import_module(_API[name]), _RENAMED.get(name, name))
     raise AttributeError(f"module 'varstar' has no attribute {name!r}")
 
 
