@@ -56,6 +56,7 @@ import numpy as np
 from scipy import special
 
 from varstar.errors import InputError, ReductionError
+from varstar.jsonsafe import json_float as _json_float
 
 __all__ = ["EnsembleSettings", "EnsembleSolution", "solve_ensemble"]
 
@@ -320,11 +321,6 @@ class EnsembleSolution:
             "warnings": list(self.warnings),
             "settings": {k: (v.item() if isinstance(v, np.generic) else v) for k, v in asdict(self.settings).items()},
         }
-
-
-def _json_float(x: Any) -> float | None:
-    x = float(x)
-    return x if math.isfinite(x) else None
 
 
 # --------------------------------------------------------------------------- input

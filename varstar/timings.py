@@ -61,6 +61,7 @@ from typing import Any, Literal
 import numpy as np
 
 from .errors import InputError, ReductionError
+from .jsonsafe import json_float as _jf
 
 __all__ = [
     "ASYMMETRY_PVALUE",
@@ -97,12 +98,6 @@ SECONDS_PER_DAY = 86400.0
 #: Julian year in days (IAU).
 DAYS_PER_YEAR = 365.25
 _EPHEMERIS_KEYS = ("epoch", "period", "quadratic", "kind", "time_system", "epoch_err", "period_err", "quadratic_err")
-
-
-def _jf(x: float) -> float | None:
-    """A float for JSON, None when not finite."""
-    x = float(x)
-    return x if math.isfinite(x) else None
 
 
 def _check_kind(kind: str, what: str = "kind") -> str:

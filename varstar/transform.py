@@ -54,6 +54,7 @@ import numpy as np
 from scipy import special
 
 from varstar.errors import InputError
+from varstar.jsonsafe import json_float as _json_float
 
 __all__ = [
     "Coefficients",
@@ -89,11 +90,6 @@ _SLOPE_WINDOW = 4.0
 
 
 # --------------------------------------------------------------------------- helpers
-
-
-def _json_float(x: Any) -> float | None:
-    x = float(x)
-    return x if math.isfinite(x) else None
 
 
 def _json_list(a: np.ndarray) -> list:

@@ -39,6 +39,7 @@ from typing import Any
 import numpy as np
 
 from varstar.errors import InputError
+from varstar.jsonsafe import json_float as _jf
 from varstar.period.refine import _check_freq, _check_series
 
 __all__ = ["pdm_theta", "PeriodChoice", "choose_p_or_2p"]
@@ -195,20 +196,16 @@ class PeriodChoice:
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-safe plain dict."""
-
-        def jf(x: float) -> float | None:
-            return float(x) if math.isfinite(x) else None
-
         return {
             "method": "leave-one-out prediction from phase neighbours at P and 2P; PDM theta at equal bin width",
             "factor": int(self.factor),
-            "frequency": jf(self.frequency),
-            "period": jf(self.period),
-            "theta_p": jf(self.theta_p),
-            "theta_2p": jf(self.theta_2p),
-            "cv_p": jf(self.cv_p),
-            "cv_2p": jf(self.cv_2p),
-            "z": jf(self.z),
+            "frequency": _jf(self.frequency),
+            "period": _jf(self.period),
+            "theta_p": _jf(self.theta_p),
+            "theta_2p": _jf(self.theta_2p),
+            "cv_p": _jf(self.cv_p),
+            "cv_2p": _jf(self.cv_2p),
+            "z": _jf(self.z),
             "z_crit": float(self.z_crit),
             "note": self.note,
         }

@@ -47,6 +47,7 @@ from typing import Any
 import numpy as np
 
 from varstar.errors import InputError, ReductionError
+from varstar.jsonsafe import json_float as _jf
 
 TWO_PI = 2.0 * math.pi
 
@@ -290,12 +291,6 @@ def _err(g: np.ndarray, cov: np.ndarray) -> float:
 
 def _wrap(x: float) -> float:
     return x % TWO_PI
-
-
-def _jf(x: float) -> float | None:
-    """JSON-safe float (NaN/inf become None)."""
-    x = float(x)
-    return x if math.isfinite(x) else None
 
 
 # --------------------------------------------------------------------------- result
