@@ -216,26 +216,27 @@ def _ephemeris_row(number: int, eph: Any, source: str, now: str, fit: Any = None
     }
 
 
-def _mean_curves(archive: "Archive", eph: Any, band: str | None) -> dict[str, Any]:
+def _mean_curves(lc: pd.DataFrame, eph: Any) -> dict[str, Any]:
     """Per band, the star's mean light curve as a function of the time from its maximum.
 
-    A harmonic fit (free frequency, harmonics by AIC) of all the band's points,
-    started at the ephemeris period; bands too short for a fit get none (their
-    maxima are then timed by the symmetric methods alone).
+    A harmonic fit (free frequency, harmonics by AIC) of all the band's points in
+    ``lc``, started at the ephemeris period; bands too short for a fit get none
+    (their maxima are then timed by the symmetric methods alone).
     """
     from .errors import VarstarError
     from .period.analysis import _fit_by_aic
 
+    def shifted(fit):
+        return lambda x: fit.model(fit.epoch_max_light + np.asarray(x))
+
     out = {}
-    lc = archive.lightcurve(band, columns=ANALYSIS_COLUMNS)
     for b, g in lc.groupby("band", sort=True):
         try:
             fit = _fit_by_aic(g["bjd_tdb"].to_numpy(), g["mag"].to_numpy(), g["mag_err"].to_numpy(), 1.0 / eph.period, 1)
         except VarstarError:
             continue
-        if fit is None or not np.isfinite(fit.epoch_max_light):
-            continue
-        out[str(b)] = (lambda fit: lambda x: fit.model(fit.epoch_max_light + np.asarray(x)))(fit)
+        if np.isfinite(fit.epoch_max_light):
+            out[str(b)] = shifted(fit)
     return out
 
 
@@ -275,15 +276,17 @@ def timings_of_archive(
             f"{archive.path}: no ephemeris: add an [ephemeris] table (epoch = BJD_TDB, period = days, "
             f"kind = \"minimum\" or \"maximum\") to the target description"
         )
-    lc = archive.lightcurve(band, columns=ANALYSIS_COLUMNS)
+    whole = archive.lightcurve(band, columns=ANALYSIS_COLUMNS)
+    lc = whole
     if night is not None:
         if night not in set(archive.nights()["label"]):
             raise InputError(f"{archive.path}: no night '{night}' (see 'varstar summary')")
-        lc = lc[lc["night"] == night]
+        lc = whole[whole["night"] == night]
     if lc.empty:
         raise InputError(f"{archive.path}: no good light-curve points{' in band ' + band if band else ''}; nothing to time")
     gen = np.random.default_rng(seed)
-    templates = _mean_curves(archive, eph, band) if eph.kind == "maximum" else {}
+    # the mean curves come from every night, also when only one night is timed
+    templates = _mean_curves(whole, eph) if eph.kind == "maximum" else {}
     found, refused = [], []
     for (n, b), g in lc.groupby(["night", "band"], sort=True):
         ts, rs = find_timings(g["bjd_tdb"].to_numpy(), g["mag"].to_numpy(), g["mag_err"].to_numpy(), str(n), str(b),
