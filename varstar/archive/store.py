@@ -90,6 +90,18 @@ class Archive:
         with self._open() as f:
             check_root(f, self.path)
 
+    def _decoded_table(self, table: str, start: int = 0) -> pd.DataFrame:
+        """A per-night table from row ``start`` on, with band and star codes as names and a ``night_label``."""
+        with self._open() as f:
+            df = pd.DataFrame(tables.read(f, table, start=start))
+            names = {"band": tables.read(f, "bands", ["name"])["name"], "star": tables.read(f, "stars", ["id"])["id"]}
+            labels = tables.read(f, "nights", ["night", "label"])
+        for col, lookup in names.items():
+            if col in df:
+                df[col] = lookup[df[col].to_numpy()] if len(df) else pd.Series(dtype=object)
+        df.insert(1, "night_label", _labels(labels, df["night"].to_numpy()))
+        return df
+
     # -- contents --------------------------------------------------------------
     @property
     def target(self) -> Target:
@@ -114,14 +126,7 @@ class Archive:
 
     def exposures(self) -> pd.DataFrame:
         """Every exposure with its times, airmass, zero point and flags."""
-        with self._open() as f:
-            d = tables.read(f, "exposures")
-            bands = tables.read(f, "bands", ["name"])["name"]
-            labels = tables.read(f, "nights", ["night", "label"])
-        df = pd.DataFrame(d)
-        df["band"] = bands[df["band"].to_numpy()] if len(df) else pd.Series(dtype=object)
-        df.insert(1, "night_label", _labels(labels, df["night"].to_numpy()))
-        return df
+        return self._decoded_table("exposures")
 
     def comparisons(self, last_nights: int | None = None) -> pd.DataFrame:
         """Status of every comparison star in every night and band (or in the ``last_nights`` latest nights)."""
@@ -135,28 +140,11 @@ class Archive:
                 start = int(np.argmax(keep)) if keep.any() else night.size
                 if not keep[start:].all():
                     start = 0
-            d = tables.read(f, "comparisons", start=start)
-            bands = tables.read(f, "bands", ["name"])["name"]
-            stars = tables.read(f, "stars", ["id"])["id"]
-            labels = tables.read(f, "nights", ["night", "label"])
-        df = pd.DataFrame(d)
-        if len(df):
-            df["band"] = bands[df["band"].to_numpy()]
-            df["star"] = stars[df["star"].to_numpy()]
-        df.insert(1, "night_label", _labels(labels, df["night"].to_numpy()))
-        return df
+        return self._decoded_table("comparisons", start)
 
     def ensembles(self) -> pd.DataFrame:
         """Per night and band: calibration error and fitted colour extinction of the ensemble."""
-        with self._open() as f:
-            d = tables.read(f, "ensembles")
-            bands = tables.read(f, "bands", ["name"])["name"]
-            labels = tables.read(f, "nights", ["night", "label"])
-        df = pd.DataFrame(d)
-        if len(df):
-            df["band"] = bands[df["band"].to_numpy()]
-        df.insert(1, "night_label", _labels(labels, df["night"].to_numpy()))
-        return df
+        return self._decoded_table("ensembles")
 
     def lightcurve(
         self,
