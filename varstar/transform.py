@@ -413,21 +413,22 @@ def _york_batch(
     b = (mk * (x - xm[:, None]) * (y - ym[:, None])).sum(axis=1) / (mk * (x - xm[:, None]) ** 2).sum(axis=1)
     s2 = np.zeros(mask.shape[0])
 
-    def weights(b: np.ndarray, s2: np.ndarray) -> tuple[np.ndarray, ...]:
+    def state(b: np.ndarray, s2: np.ndarray) -> tuple[np.ndarray, ...]:
+        """York weights, weighted centroid, centred data and the beta terms at slope b, excess s2."""
         sx = sx2[None, :] + ax * s2[:, None]
         sy = sy2[None, :] + ay * s2[:, None]
         cc = cxy[None, :] + ac * s2[:, None]
-        var = np.maximum(sy + b[:, None] ** 2 * sx - 2.0 * b[:, None] * cc, _VAR_FLOOR)
-        return mk / var, sx, sy, cc
-
-    for _ in range(500):
-        W, sx, sy, cc = weights(b, s2)
+        W = mk / np.maximum(sy + b[:, None] ** 2 * sx - 2.0 * b[:, None] * cc, _VAR_FLOOR)
         sw = W.sum(axis=1)
         X = (W * x).sum(axis=1) / sw
         Y = (W * y).sum(axis=1) / sw
         U = x[None, :] - X[:, None]
         V = y[None, :] - Y[:, None]
         beta = W * (U * sy + b[:, None] * V * sx - (b[:, None] * U + V) * cc)
+        return W, sw, X, Y, U, V, beta
+
+    for _ in range(500):
+        W, sw, X, Y, U, V, beta = state(b, s2)
         b_new = (W * beta * V).sum(axis=1) / (W * beta * U).sum(axis=1)
         a = Y - b_new * X
         r2 = mk * (y[None, :] - a[:, None] - b_new[:, None] * x[None, :]) ** 2
@@ -462,13 +463,7 @@ def _york_batch(
         b, s2 = b_new, s2_new
         if done:
             break
-    W, sx, sy, cc = weights(b, s2)
-    sw = W.sum(axis=1)
-    X = (W * x).sum(axis=1) / sw
-    Y = (W * y).sum(axis=1) / sw
-    U = x[None, :] - X[:, None]
-    V = y[None, :] - Y[:, None]
-    beta = W * (U * sy + b[:, None] * V * sx - (b[:, None] * U + V) * cc)
+    W, sw, X, Y, U, V, beta = state(b, s2)
     a = Y - b * X
     xadj = X[:, None] + beta
     xbar = (W * xadj).sum(axis=1) / sw
