@@ -364,7 +364,7 @@ class Archive:
         """A JSON-ready overview: target, nights, points per band, magnitude ranges."""
         tgt = self.target
         nights = self.nights()
-        lc = self.lightcurve(include_flagged=True)
+        lc = self.lightcurve(include_flagged=True, columns=["bjd_tdb", "band", "mag", "mag_err", "transformed", "quality"])
         good = lc[lc["quality"] == 0]
         bands = {}
         for b, g in good.groupby("band", sort=True):
