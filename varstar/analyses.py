@@ -84,7 +84,7 @@ def period_of_archive(
     """
     from . import __version__
     from .archive import tables, transaction
-    from .archive.store import check_root, utc_now
+    from .archive.store import utc_now
     from .export import plain, to_json
     from .period import analyse
 
@@ -113,7 +113,6 @@ def period_of_archive(
     analysis = None
     if store:
         with transaction(archive.path, timeout_s=timeout_s) as f:
-            check_root(f, archive.path, writing=True)
             analysis = tables.n_rows(f, "periods")
             tables.append(f, "periods", {
                 "analysis": [analysis],
@@ -266,7 +265,7 @@ def timings_of_archive(
     """
     from . import __version__
     from .archive import tables, transaction
-    from .archive.store import check_root, utc_now
+    from .archive.store import utc_now
     from .export import plain
     from .timings import find_timings, fit_ephemeris, o_minus_c
 
@@ -319,7 +318,6 @@ def timings_of_archive(
     numbers = {"timings": [], "ephemeris": None}
     if store and (new or update):
         with transaction(archive.path, timeout_s=timeout_s) as f:
-            check_root(f, archive.path, writing=True)
             now, software = utc_now(), f"varstar {__version__}"
             if eph_no is None:  # the target's ephemeris becomes entry 0 of the history
                 eph_no = 0

@@ -395,7 +395,7 @@ def ingest(
     computed before the archive is opened for writing.
     """
     from .archive import open_archive, tables, transaction
-    from .archive.store import check_root, utc_now
+    from .archive.store import utc_now
 
     arch = open_archive(archive_path)
     target = arch.target
@@ -442,7 +442,6 @@ def ingest(
     sha_of = {str(p): h for p, _, h in fresh}
 
     with transaction(arch.path, timeout_s=timeout_s) as f:
-        check_root(f, arch.path, writing=True)
         # Re-check under the lock: another process may have ingested meanwhile.
         if set(tables.read(f, "sources", ["sha256"])["sha256"]) & set(sha_of.values()):
             raise InputError(f"{arch.path}: another process ingested some of these files meanwhile; nothing was written")
@@ -810,13 +809,12 @@ def transform_archive(
     the untransformed values are never touched.
     """
     from .archive import open_archive, tables, transaction
-    from .archive.store import check_root, utc_now
+    from .archive.store import utc_now
 
     arch = open_archive(archive_path)
     target = arch.target
     per_night: list[dict[str, Any]] = []
     with transaction(arch.path, timeout_s=timeout_s) as f:
-        check_root(f, arch.path, writing=True)
         nights = tables.read(f, "nights", ["night", "label"])
         if nights["night"].size == 0:
             raise InputError(f"{arch.path}: no nights to transform yet; ingest some first")
@@ -874,11 +872,10 @@ def remove_night(archive_path: str | Path, label: str, *, reason: str = "", time
     """
     from . import __version__
     from .archive import open_archive, tables, transaction
-    from .archive.store import check_root, utc_now
+    from .archive.store import utc_now
 
     arch = open_archive(archive_path)
     with transaction(arch.path, timeout_s=timeout_s) as f:
-        check_root(f, arch.path, writing=True)
         nights = tables.read(f, "nights", ["night", "label", "n_exposures", "n_points"])
         hit = np.flatnonzero(nights["label"] == label)
         if hit.size == 0:

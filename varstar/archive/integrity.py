@@ -339,7 +339,7 @@ def upgrade(path: str | Path, *, timeout_s: float = 30.0) -> dict[str, Any]:
     if version < 1:
         raise ArchiveError(f"{path}: archive has no valid schema version; it cannot be upgraded")
     added: list[str] = []
-    with transaction(path, timeout_s=timeout_s) as f:
+    with transaction(path, timeout_s=timeout_s, older_schema=True) as f:
         if int(f.attrs["schema_version"]) != version:
             raise ArchiveError(f"{path}: another process changed the archive meanwhile; run the upgrade again")
         # Copied under the lock and before this change commits: the committed old state, byte for byte.

@@ -220,14 +220,16 @@ def _mismatch_message(path: Path, jp: Path) -> str:
 
 # --------------------------------------------------------------------------- writing
 @contextlib.contextmanager
-def transaction(path: Path, *, timeout_s: float = 30.0) -> Iterator[h5py.File]:
+def transaction(path: Path, *, timeout_s: float = 30.0, older_schema: bool = False) -> Iterator[h5py.File]:
     """Open ``path`` for one all-or-nothing change.
 
     Yields a writable :class:`h5py.File` whose writes stay in memory.  If the
     block ends normally the change is committed through the journal and written
     into the archive in place; if it raises, nothing on disk has changed.
     Waits up to ``timeout_s`` for another writer (and for readers to finish
-    when the change is written in).
+    when the change is written in).  The file must be a varstar archive of the
+    current schema (:func:`varstar.archive.store.check_root` with ``writing``);
+    only the upgrade itself passes ``older_schema=True``.
     """
     path = Path(path)
     with writer_lock(path, timeout_s):
@@ -258,6 +260,10 @@ def transaction(path: Path, *, timeout_s: float = 30.0) -> Iterator[h5py.File]:
             except OSError:
                 raise ArchiveError(f"{path}: not a readable HDF5 archive") from None
             try:
+                if not older_schema:
+                    from .store import check_root
+
+                    check_root(f, path, writing=True)
                 yield f
             except BaseException as exc:
                 with contextlib.suppress(Exception):
