@@ -110,8 +110,9 @@ def test_contact_binary_reports_the_true_period_and_both_candidates():
     assert abs(r.period - period) < 4 * r.period_err
     assert r.choice.factor == 2 and r.epoch_kind == "minimum"
     d = r.to_dict()
-    sources = [c["source"] for c in d["candidates"]]
-    assert "2P" in sources and "P (candidate, refined)" in sources
+    rejected = [c for c in d["candidates"] if c["source"] == "the rejected one of P and 2P"]
+    assert len(rejected) == 1 and abs(rejected[0]["period"] - period / 2) < 0.001
+    assert rejected[0]["note"].startswith("rejected") and rejected[0]["z"] > 4
     # the deeper minimum is the epoch: the model is faintest there
     ph = np.linspace(0, 1, 2001)
     model = r.model(r.epoch + ph * r.period, "")
@@ -156,13 +157,17 @@ def test_long_period_variable_with_seasonal_gaps():
 def test_two_mode_pulsator_both_modes_by_prewhitening():
     rng = np.random.default_rng(0)
     t, y, dy = _double_mode(rng)
-    r = analyse(t, y, dy, prewhitening=True, max_period=5)
-    found = r.prewhitening.frequencies
-    assert len(found) == 2
+    r = analyse(t, y, dy, max_period=5)  # no option: multi-periodic stars are found by default
+    found = r.to_dict()["frequencies"]
+    assert len(found) == 2 and r.multiperiodic
     for ff, f_true in zip(found, (F1, F2)):
-        assert abs(ff.frequency - f_true) < 3 * ff.frequency_err
-    assert found[0].frequency / found[1].frequency == pytest.approx(0.745, abs=1e-3)
-    assert len(r.to_dict()["frequencies"]) == 2
+        assert abs(ff["frequency"] - f_true) < 3 * ff["frequency_err"]
+    assert found[0]["frequency"] / found[1]["frequency"] == pytest.approx(0.745, abs=1e-3)
+    assert "0.745" in r.modes_note
+    # --single keeps the main period alone and says a further signal remains
+    one = analyse(t, y, dy, max_period=5, single=True)
+    assert len(one.frequencies) == 1 and not one.multiperiodic
+    assert any("run without --single" in w for w in one.warnings)
 
 
 def test_two_bands_share_one_period_with_own_amplitudes():

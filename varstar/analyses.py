@@ -21,7 +21,7 @@ if TYPE_CHECKING:  # pragma: no cover
 
 
 #: The light-curve columns the analyses read (fewer columns read faster on long archives).
-ANALYSIS_COLUMNS = ("bjd_tdb", "mag", "mag_err", "band", "star", "night", "transformed")
+ANALYSIS_COLUMNS = ("bjd_tdb", "mag", "mag_err", "cal_err", "band", "star", "night", "transformed")
 
 
 @dataclass(frozen=True, eq=False)
@@ -80,7 +80,8 @@ def period_of_archive(
     options
         Passed to :func:`varstar.period.analyse` (``min_period``, ``max_period``,
         ``oversampling``, ``nterms``, ``harmonics``, ``bootstrap``,
-        ``prewhitening``, ...).
+        ``single``, ...).  Each night's calibration error (``cal_err``) is passed
+        with the points, so period errors include the nights' offsets.
     """
     from . import __version__
     from .archive import tables, transaction
@@ -98,7 +99,7 @@ def period_of_archive(
         options["epoch_kind"] = _epoch_kind(archive)
     res = analyse(
         lc["bjd_tdb"].to_numpy(), lc["mag"].to_numpy(), lc["mag_err"].to_numpy(), lc["band"].to_numpy(),
-        rng=seed, **options,
+        night=lc["night"].to_numpy(), cal_err=lc["cal_err"].to_numpy(), rng=seed, **options,
     )
     record = plain(res.to_dict())
     record.update(
@@ -147,9 +148,22 @@ def period_history(archive: Archive) -> pd.DataFrame:
 
 
 def phased_model(res: PeriodResult, n: int = 400) -> dict[str, tuple[np.ndarray, np.ndarray]]:
-    """Per band, one cycle of the fitted model on a phase grid (phase 0 at the result's epoch)."""
+    """Per band, one cycle of the main signal's model on a phase grid (phase 0 at the result's epoch)."""
     phase = np.linspace(0.0, 1.0, n, endpoint=False)
-    return {b: (phase, res.model(res.epoch + phase * res.period, b)) for b in res.fits}
+    return {b: (phase, res.main_model(res.epoch + phase * res.period, b)) for b in res.fits}
+
+
+def phased_data(res: PeriodResult, lc: pd.DataFrame) -> tuple[pd.DataFrame, np.ndarray]:
+    """The light curve with the further frequencies removed (what folds at the adopted
+    period), and the residuals of every point from the whole model."""
+    main = lc.copy()
+    resid = np.empty(len(lc))
+    t, mag = lc["bjd_tdb"].to_numpy(), lc["mag"].to_numpy()
+    for b in res.fits:
+        m = (lc["band"] == b).to_numpy()
+        main.loc[m, "mag"] = mag[m] - res.other_signals(t[m], b)
+        resid[m] = mag[m] - res.model(t[m], b)
+    return main, resid
 
 
 # --------------------------------------------------------------------------- ephemerides and timings
@@ -223,7 +237,7 @@ def _mean_curves(lc: pd.DataFrame, eph: Any) -> dict[str, Any]:
     (their maxima are then timed by the symmetric methods alone).
     """
     from .errors import VarstarError
-    from .period.analysis import _fit_by_aic
+    from .period.refine import fit_harmonics_aic
 
     def shifted(fit):
         return lambda x: fit.model(fit.epoch_max_light + np.asarray(x))
@@ -231,7 +245,7 @@ def _mean_curves(lc: pd.DataFrame, eph: Any) -> dict[str, Any]:
     out = {}
     for b, g in lc.groupby("band", sort=True):
         try:
-            fit = _fit_by_aic(g["bjd_tdb"].to_numpy(), g["mag"].to_numpy(), g["mag_err"].to_numpy(), 1.0 / eph.period, 1)
+            fit = fit_harmonics_aic(g["bjd_tdb"].to_numpy(), g["mag"].to_numpy(), g["mag_err"].to_numpy(), 1.0 / eph.period)
         except VarstarError:
             continue
         if np.isfinite(fit.epoch_max_light):

@@ -304,36 +304,52 @@ def cmd_colour(args: argparse.Namespace) -> int:
 
 
 def format_period(d: dict[str, Any]) -> str:
-    unit = "d"
+    """The adopted period first; every other number labelled for what it is."""
+    main = d["frequencies"][0]
     lines = [
-        f"{d['star']}: period {d['period']:.7f} ± {_fmt(d['period_err'], '.7f')} {unit} "
-        f"(frequency {d['frequency']:.6f} c/d; {d['n_points']} points in {', '.join(d['bands'])} "
-        f"over {d['baseline_days']:.1f} d, {len(d['nights'])} nights)",
-        f"  {d['method']}; false-alarm probability of the peak {d['fap']:.2g} ({d['fap_method']})"
-        + (f", bootstrap {d['fap_bootstrap']:.3g}" if d.get("fap_bootstrap") is not None else ""),
+        f"{d['star']}: period {d['period']:.7f} ± {_fmt(d['period_err'], '.7f')} d (adopted; "
+        f"frequency {d['frequency']:.6f} ± {_fmt(d['frequency_err'], '.6f')} c/d)",
+        f"  refined by: {d['period_method']}",
+        f"  errors: {d['errors']}",
+        f"  data: {d['n_points']} points in {', '.join(d['bands'])} over {d['baseline_days']:.1f} d, "
+        f"{len(d['nights'])} nights",
         f"  epoch of {d['epoch_kind']} light {_fmt(d['epoch'], '.5f')} ± {_fmt(d['epoch_err'], '.5f')} BJD_TDB; "
-        f"amplitude {_fmt(d['amplitude'])} ± {_fmt(d['amplitude_err'])} mag peak to peak "
-        f"({d['reference_band'] or 'one band'}, {d['harmonics']} harmonics)",
-        f"  second method: PDM best period {d['pdm']['best_period']:.7f} d ({d['pdm']['relation_to_period']}); "
-        f"theta at the adopted period {_fmt(d['pdm']['theta_at_period'])}",
-        f"  P or 2P: {d['period_choice']['note']}",
-        "  strongest peaks:",
+        f"amplitude {_fmt(d['amplitude'])}" + (f" ± {_fmt(d['amplitude_err'])}" if d.get("amplitude_err") is not None else "")
+        + f" mag peak to peak ({d['reference_band'] or 'one band'})",
+        f"  {d['modes_note']}",
     ]
-    for a in d["aliases"]:
-        lines.append(f"    P = {a['period']:.7f} d  power {_fmt(a['power'])}  {a['relation']}")
-    for b, fit in d["fits"].items():
-        r21 = "" if fit["r21"] is None else f", R21 {fit['r21']:.3f} ± {_fmt(fit['r21_err'])}, phi21 {fit['phi21']:.3f} ± {_fmt(fit['phi21_err'])} rad"
-        lines.append(f"  {b or 'fit'}: mean {fit['mean_mag']:.3f}, amplitude {_fmt(fit['ptp_amplitude'])} mag{r21}, "
-                     f"reduced chi2 {_fmt(fit['reduced_chi2'], '.2f')}")
-    if d.get("prewhitening"):
-        lines.append(f"  prewhitening ({d['prewhitening']['stop_reason']}):")
+    if len(d["frequencies"]) > 1:
+        lines.append("  frequencies of the model:")
         for f in d["frequencies"]:
             rel = f" = {f['relation']}" if f.get("relation") else ""
             lines.append(f"    {f['label']}: f = {f['frequency']:.6f} ± {_fmt(f['frequency_err'], '.6f')} c/d "
-                         f"(P = {f['period']:.7f} d), amplitude {_fmt(f['amplitude'], '.4f')} mag, S/N {_fmt(f['snr'], '.1f')}{rel}")
+                         f"(P = {f['period']:.7f} ± {_fmt(f['period_err'], '.7f')} d), amplitude "
+                         f"{_fmt(f['amplitude'], '.4f')} mag, S/N {_fmt(f['snr'], '.1f')}{rel}")
+    else:
+        lines.append(f"  main frequency: amplitude {_fmt(main['amplitude'], '.4f')} mag (first harmonic), "
+                     f"S/N {_fmt(main['snr'], '.1f')}")
+    lines.append(f"  significance: false-alarm probability of the periodogram peak {d['fap_text']} ({d['fap_method']})"
+                 + (f"; bootstrap {d['fap_bootstrap']:.3g}" if d.get("fap_bootstrap") is not None else ""))
+    lines.append("  how it was found (intermediate values, not the answer):")
+    for c in d["candidates"]:
+        note = f"; {c['note']}" if c.get("note") else ""
+        lines.append(f"    {c['source']}: P = {c['period']:.7f} d{note}")
+    lines.append(f"    PDM minimum (grid value): P = {d['pdm']['best_period']:.7f} d ({d['pdm']['relation_to_period']} "
+                 f"of the adopted period); theta at the adopted period {_fmt(d['pdm']['theta_at_period'])}")
+    lines.append("  strongest periodogram peaks (refined where fitted, else grid values):")
+    for a in d["aliases"]:
+        kind = "refined" if a["period_refined"] else "grid"
+        lines.append(f"    P = {a['period']:.7f} d ({kind})  power {_fmt(a['power'])}  {a['relation']}")
     for c in d["alias_check"]:
-        if c["settled"]:
-            lines.append(f"  aliases: {c['note']}")
+        lines.append(f"    {c['note']}")
+    for b, fit in d["fits"].items():
+        r21 = ""
+        if fit["r21"] is not None and not d["templates"]:
+            r21 = f", R21 {fit['r21']:.3f} ± {_fmt(fit['r21_err'])}, phi21 {fit['phi21']:.3f} ± {_fmt(fit['phi21_err'])} rad"
+        lines.append(f"  {b or 'fit'}: mean {fit['mean_mag']:.3f}, {fit['nterms']} harmonics{r21}, "
+                     f"reduced chi2 {_fmt(fit['reduced_chi2'], '.2f')}")
+    for b, tpl in d["templates"].items():
+        lines.append(f"  {b or 'template'}: eclipse template, reduced chi2 {_fmt(tpl['reduced_chi2'], '.2f')}")
     for w in d["warnings"]:
         lines.append(f"  note: {w}")
     if d.get("analysis") is not None:
@@ -342,7 +358,7 @@ def format_period(d: dict[str, Any]) -> str:
 
 
 def cmd_period(args: argparse.Namespace) -> int:
-    from .analyses import phased_model
+    from .analyses import phased_data, phased_model
     from .archive import open_archive
     from .plots import periodogram_figure, phased_figure, save
 
@@ -358,7 +374,7 @@ def cmd_period(args: argparse.Namespace) -> int:
         band=args.band, star=args.star, store=not args.no_store, include_flagged=args.include_flagged,
         min_period=args.min_period, max_period=args.max_period, oversampling=args.oversampling,
         nterms=args.terms, harmonics=args.harmonics, bootstrap=args.bootstrap, seed=args.seed,
-        prewhitening=args.prewhiten, snr_limit=args.snr, timeout_s=args.wait,
+        single=args.single, snr_limit=args.snr, max_frequencies=args.max_frequencies, timeout_s=args.wait,
     )
     res, payload = out.result, out.to_dict()
     text = format_period(payload)
@@ -371,8 +387,7 @@ def cmd_period(args: argparse.Namespace) -> int:
         payload["periodogram_plot"] = str(args.output)
         text += f"\nwrote {args.output}"
     if args.phased:
-        lc = out.lightcurve
-        resid = lc["mag"].to_numpy() - _model_at(res, lc)
+        lc, resid = phased_data(res, out.lightcurve)
         save(phased_figure(lc, period_d=res.period, epoch_bjd=res.epoch, model=phased_model(res), residuals=resid,
                            title=f"{name}: {payload['star']}, P = {res.period:.7f} d, phase 0 at {res.epoch_kind} light"),
              args.phased)
@@ -380,16 +395,6 @@ def cmd_period(args: argparse.Namespace) -> int:
         text += f"\nwrote {args.phased}"
     _emit(args, payload, text)
     return 0
-
-
-def _model_at(res, lc):
-    import numpy as np
-
-    model = np.empty(len(lc))
-    for b in res.fits:
-        m = (lc["band"] == b).to_numpy()
-        model[m] = res.model(lc["bjd_tdb"].to_numpy()[m], b)
-    return model
 
 
 def format_timings(d: dict[str, Any]) -> str:
@@ -602,8 +607,9 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--harmonics", type=int, metavar="N", help="harmonics of the final fit (default: chosen by AIC)")
     sp.add_argument("--bootstrap", type=int, default=0, metavar="N", help="also a bootstrap false-alarm probability from N resamples")
     sp.add_argument("--seed", type=int, metavar="S", help="seed of the bootstrap (default 0)")
-    sp.add_argument("--prewhiten", action="store_true", help="look for further frequencies by iterative prewhitening")
-    sp.add_argument("--snr", type=float, default=4.0, metavar="S", help="prewhitening stops below this amplitude S/N (default 4)")
+    sp.add_argument("--single", action="store_true", help="fit the main period alone (by default further significant frequencies are found and fitted together)")
+    sp.add_argument("--snr", type=float, default=4.0, metavar="S", help="a further frequency needs this amplitude S/N (default 4)")
+    sp.add_argument("--max-frequencies", type=int, default=8, metavar="N", help="at most N frequencies in the model (default 8)")
     sp.add_argument("--include-flagged", action="store_true", help="also use points of flagged exposures")
     sp.add_argument("--no-store", action="store_true", help="do not record the result in the archive")
     sp.add_argument("--history", action="store_true", help="list the stored analyses instead of running one")

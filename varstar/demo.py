@@ -50,9 +50,8 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
     Returns a JSON-ready dict: the folder, the files written and the summaries.
     """
     from .archive import create_archive, open_archive
-    from .analyses import phased_model
+    from .analyses import phased_data, phased_model
     from .cli import (
-        _model_at,
         format_coefficients,
         format_colour,
         format_night_report,
@@ -148,9 +147,8 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
     save(periodogram_figure(res.freq, res.power, best_frequency=res.aliases.best_frequency, fap_levels=res.fap_levels,
                             peaks=found.to_dict()["aliases"][:4], theta=res.theta,
                             title=f"{target.name}: {target.target_star.id}, {res.method}", ylabel="normalised power"), pg_png)
-    lcp = found.lightcurve
-    save(phased_figure(lcp, period_d=res.period, epoch_bjd=res.epoch, model=phased_model(res),
-                       residuals=lcp["mag"].to_numpy() - _model_at(res, lcp),
+    lcp, resid = phased_data(res, found.lightcurve)
+    save(phased_figure(lcp, period_d=res.period, epoch_bjd=res.epoch, model=phased_model(res), residuals=resid,
                        title=f"{target.name}: {target.target_star.id}, P = {res.period:.7f} d"), ph_png)
     files += [pg_png, ph_png]
 

@@ -1,4 +1,4 @@
-"""One period analysis of a light curve: every method of the package, combined.
+"""One period analysis of a light curve: every method of the package, combined into one answer.
 
 :func:`analyse` is the pure core behind ``varstar period`` and
 :meth:`varstar.archive.Archive.period`.  Steps, each in its own module:
@@ -9,13 +9,23 @@
 3. the false-alarm probability of its highest peak (Baluev 2008, :mod:`.significance`),
    and a bootstrap on request;
 4. the strongest peaks and their relations to the best one (:mod:`.aliases`);
-5. phase dispersion minimisation (Stellingwerf 1978) on the same grid (:mod:`.pdm`),
-   whose best period competes with the periodogram's (see below);
-6. P or 2P: whether the phased curve repeats at the chosen period or only at twice
-   it (equal-minima binaries, :func:`.pdm.choose_p_or_2p`);
-7. the harmonic fit with free frequency per band (:mod:`.refine`): period, epoch,
-   amplitude and Fourier parameters with errors;
-8. optionally iterative prewhitening (:mod:`.prewhiten`).
+5. phase dispersion minimisation (Stellingwerf 1978) around the candidates
+   (:mod:`.pdm`), whose best period competes with the periodogram's (see below);
+6. the main signal's harmonic fit, then a search of the residuals for further
+   independent frequencies (:mod:`.prewhiten`: amplitude S/N >= 4, Breger et al.
+   1993, and a false-alarm probability <= 0.001 over the grid); found ones are fitted
+   together with the main signal and the star is called multi-periodic;
+7. P or 2P on the main signal alone, the other frequencies removed (equal-minima
+   binaries, :func:`.pdm.choose_p_or_2p`);
+8. the adopted period: a harmonic fit with free frequency per band (:mod:`.refine`,
+   number of harmonics by AIC) for pulsators, with epoch of maximum light and
+   Fourier parameters; for eclipsing binaries (epoch of minimum) a template of the
+   star's own folded curve that follows narrow eclipses (:mod:`.template`).
+
+Errors: every fit is weighted least squares with the covariance scaled by the
+reduced chi-square; when the nights' calibration errors are given (``night`` and
+``cal_err``), each night's error is a covariance shared by its points
+(:mod:`.nightly`), so the nights' offsets are in every error.
 
 Choosing between the periodogram's and PDM's best frequencies (step 5): a
 sinusoid periodogram of a detached eclipsing binary with narrow eclipses peaks at
@@ -37,6 +47,7 @@ from typing import Any
 import numpy as np
 
 from varstar.errors import InputError, VarstarError
+from varstar.jsonsafe import json_float as _jf
 from varstar.period import (
     aliases,
     gls,
@@ -47,42 +58,79 @@ from varstar.period import (
     refine,
     significance,
 )
-from varstar.period.refine import _jf
+from varstar.period.refine import MAX_AUTO_HARMONICS
 
-__all__ = ["MAX_PDM_ELEMENTS", "PeriodResult", "analyse"]
+__all__ = ["MAX_PDM_ELEMENTS", "PeriodResult", "analyse", "format_probability"]
 
 #: Above this many (points x frequencies) PDM is evaluated only around the
 #: strongest periodogram peaks and PDM's own coarse minimum (about 5 s of work
 #: on one core; measured with ``benchmarks/bench_period.py``'s sampling).
 MAX_PDM_ELEMENTS = 400_000_000
 
-#: Largest number of harmonics the automatic choice tries.
-MAX_AUTO_HARMONICS = 10
-
 #: False-alarm probabilities whose power levels are reported and drawn.
 FAP_LEVELS = (0.1, 0.01, 0.001)
+
+#: Smallest probability reported as a number: below it the tail approximations and
+#: double-precision rounding say nothing more, so "< 1e-16" is printed (and stored).
+PROBABILITY_FLOOR = 1e-16
+
+#: Period ratios (shorter / longer) of double-mode pulsators named when a found pair
+#: matches within the tolerance.  Values "from memory" (common practice): the
+#: first-overtone to fundamental ratio of double-mode RR Lyrae-type stars about 0.745
+#: (also in REFERENCES.md), of double-mode classical Cepheids about 0.70-0.72, of
+#: double-mode high-amplitude delta Scuti stars about 0.77.
+KNOWN_RATIOS = (
+    (0.745, 0.008, "the first-overtone to fundamental ratio of double-mode RR Lyrae-type pulsators (about 0.745, from memory)"),
+    (0.71, 0.012, "the first-overtone to fundamental ratio of double-mode Cepheids (about 0.70-0.72, from memory)"),
+    (0.773, 0.008, "the first-overtone to fundamental ratio of double-mode delta Scuti stars (about 0.77, from memory)"),
+)
+
+
+def format_probability(p: float | None) -> str:
+    """A probability for people: ``"< 1e-16"`` below :data:`PROBABILITY_FLOOR`, never ``0``."""
+    if p is None or not math.isfinite(p):
+        return "n/a"
+    if p < PROBABILITY_FLOOR:
+        return f"< {PROBABILITY_FLOOR:.0e}"
+    return f"{p:.2g}"
 
 
 @dataclass(frozen=True, eq=False)
 class PeriodResult:
-    """The outcome of one period analysis.
+    """The outcome of one period analysis: one adopted period, and what led to it.
 
     Attributes
     ----------
     period, period_err : float
-        Adopted period (days) and its 1-sigma error.  With several bands the
+        THE adopted period (days) and its 1-sigma error.  With several bands the
         per-band fitted frequencies are combined by inverse-variance weighting.
     frequency, frequency_err : float
         ``1/period`` (cycles/day) and its error.
+    period_method : str
+        How the adopted period was refined (harmonic fit or eclipse template) and
+        how its error was made (``errors``).
+    errors : str
+        The error treatment in words (independent points, or nightly calibration
+        errors as a shared covariance).
     amplitude, amplitude_err : float
-        Peak-to-peak amplitude (mag) of the harmonic fit of the reference band.
+        Peak-to-peak amplitude (mag) of the reference band's model of the main signal.
     epoch, epoch_err, epoch_kind : float, float, str
         BJD_TDB of maximum light (``epoch_kind="maximum"``) or minimum light
-        (``"minimum"``) of the reference band's fit, nearest the data's weighted
+        (``"minimum"``) of the reference band's model, nearest the data's weighted
         mean time.
+    frequencies : tuple of dict
+        Every frequency in the final model, the main one first (``f1``): each with
+        ``frequency``, ``frequency_err``, ``period``, ``period_err``, ``amplitude``
+        (semi-amplitude of its first harmonic, mag), ``amplitude_err``, ``snr``
+        and ``relation`` (a harmonic or combination of others, or "").
+    multiperiodic : bool
+        True when a further independent frequency is significant.
+    modes_note : str
+        In words: single period, or the modes with their period ratio.
     fap, fap_method : float, str
-        False-alarm probability of the highest periodogram peak and how it was
-        computed; ``fap_bootstrap`` is the bootstrap value when asked for (else NaN).
+        False-alarm probability of the highest periodogram peak (at least
+        :data:`PROBABILITY_FLOOR`) and how it was computed; ``fap_bootstrap`` is the
+        bootstrap value when asked for (else NaN).
     fap_levels : dict
         Periodogram power needed for the probabilities in :data:`FAP_LEVELS`.
     n_points, baseline_days : int, float
@@ -93,18 +141,27 @@ class PeriodResult:
     grid : dict
         ``min_period``, ``max_period``, ``oversampling``, ``n_frequencies``, ``step``.
     aliases : AliasReport
+        The periodogram's peaks at grid values; :meth:`to_dict` adds the refined
+        period of each peak that was fitted.
+    refined_peaks : dict
+        Grid frequency of a fitted peak -> its refined frequency.
     pdm : dict
-        The second method's best period, its theta, theta at the adopted period,
-        and where it was evaluated.
+        The second method's best period on the grid, its theta, theta at the adopted
+        period, and where it was evaluated.
     choice : PeriodChoice
-        The P-or-2P verdict on the candidate frequency.
+        The P-or-2P verdict on the main signal (other frequencies removed).
     alias_check : tuple of dict
         For each rival peak that made the periodogram's choice insecure: the harmonic
         fit's chi-square excess there and whether that settles the choice.
     candidates : tuple of dict
-        Periods considered (periodogram peak, PDM minimum, P and 2P) with notes.
+        Every other period considered, labelled for what it is, with why it was
+        not adopted.
     fits : dict of str to HarmonicFit
+        Harmonic fit of the main signal per band (other frequencies removed).
+    templates : dict of str to TemplateFit
+        Eclipse-template fits per band (eclipsing binaries only).
     prewhitening : PrewhiteningResult or None
+        The search for further frequencies on the reference band.
     warnings : tuple of str
     freq, power, theta : numpy.ndarray
         The grid, the periodogram and PDM's theta (NaN where not evaluated), for
@@ -115,11 +172,16 @@ class PeriodResult:
     period_err: float
     frequency: float
     frequency_err: float
+    period_method: str
+    errors: str
     amplitude: float
     amplitude_err: float
     epoch: float
     epoch_err: float
     epoch_kind: str
+    frequencies: tuple[dict[str, Any], ...]
+    multiperiodic: bool
+    modes_note: str
     fap: float
     fap_method: str
     fap_bootstrap: float
@@ -133,48 +195,69 @@ class PeriodResult:
     harmonics: int
     grid: dict[str, Any]
     aliases: aliases.AliasReport
+    refined_peaks: dict[float, float]
     pdm: dict[str, Any]
     choice: pdm.PeriodChoice
     candidates: tuple[dict[str, Any], ...]
     alias_check: tuple[dict[str, Any], ...]
     fits: dict[str, refine.HarmonicFit]
+    templates: dict[str, Any]
     prewhitening: prewhiten.PrewhiteningResult | None
     warnings: tuple[str, ...]
     freq: np.ndarray = field(repr=False)
     power: np.ndarray = field(repr=False)
     theta: np.ndarray = field(repr=False)
+    others: dict[str, Any] = field(repr=False, default_factory=dict)
 
     def model(self, t: Any, band: str) -> np.ndarray:
-        """The fitted model of ``band`` at times ``t``."""
-        return self.fits[band].model(t)
+        """The adopted model of ``band`` at times ``t``: the main signal (template for
+        eclipsing binaries) plus any further frequencies."""
+        main = self.templates[band] if band in self.templates else self.fits[band]
+        extra = self.others.get(band)
+        return main.model(t) + (0.0 if extra is None else extra(t))
+
+    def main_model(self, t: Any, band: str) -> np.ndarray:
+        """The main signal alone (for a phased curve with the other frequencies removed)."""
+        main = self.templates[band] if band in self.templates else self.fits[band]
+        return main.model(t)
+
+    def other_signals(self, t: Any, band: str) -> np.ndarray:
+        """The further frequencies' part of the model (zero for a single-period star)."""
+        extra = self.others.get(band)
+        return np.zeros(np.shape(t)) if extra is None else extra(t)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-safe plain dict: what ``varstar period --json`` prints and the archive stores."""
-        if self.prewhitening is not None:
-            frequencies = [f.to_dict() for f in self.prewhitening.frequencies]
-        else:
-            frequencies = [
-                {
-                    "label": "f1",
-                    "frequency": _jf(self.frequency),
-                    "frequency_err": _jf(self.frequency_err),
-                    "period": _jf(self.period),
-                    "period_err": _jf(self.period_err),
-                    "amplitude": _jf(self.amplitude),
-                }
-            ]
+        def peak(p: aliases.AliasPeak) -> dict[str, Any]:
+            refined = self.refined_peaks.get(p.frequency)
+            return {
+                "period": _jf(1.0 / refined if refined else p.period),
+                "period_refined": refined is not None,
+                "grid_period": _jf(p.period),
+                "frequency": _jf(refined or p.frequency),
+                "power": _jf(p.power),
+                "power_ratio": _jf(p.power_ratio),
+                "relation": p.relation,
+            }
+
         return {
             "period": _jf(self.period),
             "period_err": _jf(self.period_err),
             "frequency": _jf(self.frequency),
             "frequency_err": _jf(self.frequency_err),
+            "period_method": self.period_method,
+            "errors": self.errors,
             "amplitude": _jf(self.amplitude),
             "amplitude_err": _jf(self.amplitude_err),
             "epoch": _jf(self.epoch),
             "epoch_err": _jf(self.epoch_err),
             "epoch_kind": self.epoch_kind,
             "time_system": "BJD_TDB",
-            "fap": _jf(self.fap),
+            "frequencies": [dict(f) for f in self.frequencies],
+            "multiperiodic": bool(self.multiperiodic),
+            "modes_note": self.modes_note,
+            "fap": _jf(max(self.fap, PROBABILITY_FLOOR)),
+            "fap_text": format_probability(self.fap),
             "fap_method": self.fap_method,
             "fap_bootstrap": _jf(self.fap_bootstrap),
             "fap_levels": [{"fap": k, "power": _jf(v)} for k, v in sorted(self.fap_levels.items())],
@@ -186,11 +269,7 @@ class PeriodResult:
             "nterms": int(self.nterms),
             "harmonics": int(self.harmonics),
             "grid": dict(self.grid),
-            "aliases": [
-                {"period": _jf(p.period), "frequency": _jf(p.frequency), "power": _jf(p.power),
-                 "power_ratio": _jf(p.power_ratio), "relation": p.relation}
-                for p in self.aliases.peaks
-            ],
+            "aliases": [peak(p) for p in self.aliases.peaks],
             "alias_secure": bool(self.aliases.secure or (self.alias_check and all(c["settled"] for c in self.alias_check))),
             "alias_note": self.aliases.note,
             "alias_check": [dict(c) for c in self.alias_check],
@@ -198,13 +277,14 @@ class PeriodResult:
             "period_choice": self.choice.to_dict(),
             "candidates": [dict(c) for c in self.candidates],
             "fits": {b: f.to_dict() for b, f in self.fits.items()},
-            "frequencies": frequencies,
+            "templates": {b: f.to_dict() for b, f in self.templates.items()},
             "prewhitening": None if self.prewhitening is None else self.prewhitening.to_dict(),
             "warnings": list(self.warnings),
         }
 
 
-def _as_series(t: Any, y: Any, dy: Any, band: Any) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+def _as_series(t: Any, y: Any, dy: Any, band: Any, night: Any, cal_err: Any):
+    """Checked, time-sorted arrays; ``night``/``cal_err`` become per-point group keys and errors."""
     t = np.asarray(t, dtype=float).ravel()
     y = np.asarray(y, dtype=float).ravel()
     dy = np.broadcast_to(np.asarray(dy, dtype=float), t.shape).copy()
@@ -226,8 +306,17 @@ def _as_series(t: Any, y: Any, dy: Any, band: Any) -> tuple[np.ndarray, np.ndarr
             f"period analysis: point {i} has a non-finite time or magnitude or a non-positive error "
             f"(t={t[i]!r}, mag={y[i]!r}, err={dy[i]!r})"
         )
+    group = group_err = None
+    if night is not None:
+        night = np.asarray(night, dtype=object).ravel()
+        if night.shape != t.shape:
+            raise InputError(f"period analysis: {t.size} times but {night.size} night labels")
+        group = np.array([f"{n}|{b}" for n, b in zip(night, band)], dtype=object)
+        group_err = np.zeros(t.size) if cal_err is None else np.broadcast_to(np.asarray(cal_err, dtype=float), t.shape)
+        group_err = np.where(np.isfinite(group_err) & (group_err > 0), group_err, 0.0)
     order = np.argsort(t, kind="stable")
-    return t[order], y[order], dy[order], band[order]
+    pick = (lambda a: None if a is None else a[order])  # noqa: E731
+    return t[order], y[order], dy[order], band[order], pick(group), pick(group_err)
 
 
 def _multiband_bootstrap(t, y, dy, band, freq, nterms, n_boot, rng, peak) -> float:
@@ -274,39 +363,18 @@ def _pdm_on_grid(t, y, dy, freq, peaks_idx, n_bins) -> tuple[np.ndarray, str]:
     return theta, f"coarse pass every {k} frequencies, then near the strongest periodogram peaks and PDM minima"
 
 
-def _fit_by_aic(t, y, dy, f, min_harm: int) -> refine.HarmonicFit:
-    """Harmonic fit whose number of harmonics minimises AIC = chi2 + 2 k (Akaike 1974).
-
-    AIC rather than BIC (chi2 + k ln N): one harmonic too few biases the epoch of an
-    asymmetric curve (measured on simulations in the tests: with BIC, epoch pulls had a
-    spread of 1.5 when it dropped a small fifth harmonic; with AIC 1.07), while one too
-    many costs only a little precision.  Stops once AIC has risen for two harmonics in a row.
-    """
-    best, best_aic, worse = None, np.inf, 0
-    top = min(MAX_AUTO_HARMONICS, (t.size - 3) // 2)
-    for k in range(min_harm, max(min_harm, top) + 1):
-        fit = refine.fit_harmonics(t, y, dy, f, nterms=k)
-        aic = fit.chi2 + 2.0 * (2 * k + 2)
-        if aic < best_aic:
-            best, best_aic, worse = fit, aic, 0
-        else:
-            worse += 1
-            if worse >= 2:
-                break
-    return best
-
-
 #: Chi-square excess (in units scaled by the best fit's reduced chi2) above which the harmonic
 #: fit at a rival alias is taken as clearly worse: 25 is "5 sigma" for models with equal numbers
 #: of parameters (common practice, no published threshold).
 ALIAS_DCHI2 = 25.0
 
 
-def _check_rivals(report, t, y, dy, best: refine.HarmonicFit) -> list[dict[str, Any]]:
-    """Fit the final model at each insecure rival peak and compare chi-squares.
+def _check_rivals(report, t, y, dy, best: refine.HarmonicFit, group=None, group_err=None) -> list[dict[str, Any]]:
+    """Fit the main signal's model at each insecure rival peak and compare chi-squares.
 
     The periodogram's power ratio compares sinusoids; an observer's question is whether
-    the light curve, with all its harmonics, fits the alias as well.
+    the light curve, with all its harmonics, fits the alias as well.  ``best`` is the
+    fit at the periodogram's chosen peak, on the same data.
     """
     out = []
     if report.secure:
@@ -315,13 +383,14 @@ def _check_rivals(report, t, y, dy, best: refine.HarmonicFit) -> list[dict[str, 
         if p.power_ratio < report.secure_ratio or p.relation == "same peak":
             continue
         try:
-            rival = refine.fit_harmonics(t, y, dy, p.frequency, nterms=best.nterms)
+            rival = refine.fit_harmonics(t, y, dy, p.frequency, nterms=best.nterms, group=group, group_err=group_err)
         except VarstarError:
             continue
         d = (rival.chi2 - best.chi2) / max(best.reduced_chi2, 1e-300)
         settled = bool(d > ALIAS_DCHI2)
         out.append({
-            "period": rival.period, "relation": p.relation, "delta_chi2": d, "settled": settled,
+            "period": rival.period, "grid_frequency": p.frequency, "relation": p.relation,
+            "source": "rival periodogram peak (refined)", "delta_chi2": d, "settled": settled,
             "note": (f"the {p.relation} at P={rival.period:.6g} d fits the light curve worse by chi2 {d:.0f} "
                      f"(with {best.nterms} harmonics): the adopted period is preferred" if settled else
                      f"the {p.relation} at P={rival.period:.6g} d fits the light curve nearly as well (chi2 worse by "
@@ -339,12 +408,76 @@ def _cv_z(t, y, dy, f_new: float, f_old: float, m: int = 5) -> float:
     return float(pdm._paired_z(w * (e_old**2 - e_new**2), f_new * tt, m))
 
 
+def _eclipse_like(fit: refine.HarmonicFit) -> bool:
+    """True when the model stays near its brightest level for most of the cycle, with dips.
+
+    An eclipsing binary outside eclipse is nearly constant at maximum light; a
+    pulsator passes maximum light quickly (a sinusoid spends a quarter of its cycle
+    within 15% of its range from the bright end).  Half the cycle is this module's
+    threshold (common practice: "flat maxima and narrow minima" is how an
+    eclipsing light curve is recognised by eye).
+    """
+    phase = np.linspace(0.0, 1.0, 1000, endpoint=False)
+    m = fit.model(fit.t_ref + phase / fit.frequency)
+    span = float(m.max() - m.min())
+    return bool(span > 0 and np.mean(m <= m.min() + 0.15 * span) >= 0.5)
+
+
+def _modes_note(frequencies: list[dict[str, Any]]) -> tuple[bool, str]:
+    """Whether further independent frequencies exist, and the modes in words."""
+    independent = [f for f in frequencies[1:] if not f["relation"]]
+    if not independent:
+        extra = len(frequencies) - 1
+        return False, ("single period" if extra == 0 else
+                       f"single period; {extra} further frequenc{'y is a combination' if extra == 1 else 'ies are combinations'} of it")
+    f1 = frequencies[0]
+    parts = []
+    for f in independent:
+        lo, hi = sorted((f1["period"], f["period"]))
+        ratio = lo / hi
+        match = next((text for r, tol, text in KNOWN_RATIOS if abs(ratio - r) <= tol), None)
+        parts.append(
+            f"{f['label']} at P = {f['period']:.7g} d (amplitude {f['amplitude']:.3g} mag, S/N {f['snr']:.1f}); "
+            f"period ratio {ratio:.4f}" + (f", which matches {match}" if match else "")
+        )
+    return True, f"multi-periodic: besides f1 (P = {f1['period']:.7g} d), " + "; ".join(parts)
+
+
+def _frequency_entry(label, f, f_err, amp, amp_err, snr, relation) -> dict[str, Any]:
+    return {
+        "label": label, "frequency": _jf(f), "frequency_err": _jf(f_err),
+        "period": _jf(1.0 / f), "period_err": _jf(f_err / f**2),
+        "amplitude": _jf(amp), "amplitude_err": _jf(amp_err), "snr": _jf(snr), "relation": relation,
+    }
+
+
+def _others_in_band(t, y, dy, t_ref, f_main, k_main, others, group, group_err):
+    """Joint fit of the main signal and the further frequencies in one band; returns the
+    further frequencies' part as a function of time (fitted amplitudes of this band)."""
+    terms = (k_main,) + (1,) * len(others)
+    whiten = refine.nightly_whitener(dy, group, group_err)
+    fit = refine._fit_sinusoids(t, y, dy, [f_main, *others], terms, t_ref, whiten=whiten)
+    params = fit.params.copy()
+    params[1 : 2 + 2 * k_main] = 0.0  # main signal (its frequency and harmonics) removed
+    params[0] = 0.0
+    params[1] = f_main
+
+    def extra(tt: Any) -> np.ndarray:
+        tau = np.asarray(tt, dtype=float) - t_ref
+        mod, _ = refine._model_jac(params, tau.ravel(), len(terms), terms, want_jac=False)
+        return mod.reshape(tau.shape)
+
+    return extra
+
+
 def analyse(
     t: Any,
     mag: Any,
     mag_err: Any,
     band: Any = None,
     *,
+    night: Any = None,
+    cal_err: Any = None,
     min_period: float | None = None,
     max_period: float | None = None,
     oversampling: float = 10.0,
@@ -353,13 +486,14 @@ def analyse(
     epoch_kind: str | None = None,
     bootstrap: int = 0,
     rng: np.random.Generator | int | None = None,
-    prewhitening: bool = False,
+    single: bool = False,
     snr_limit: float = 4.0,
-    max_frequencies: int = 10,
+    fap_limit: float = 1e-3,
+    max_frequencies: int = 8,
     pdm_bins: int = 10,
     z_crit: float = 4.0,
 ) -> PeriodResult:
-    """Find, test and refine the period of a light curve.
+    """Find, test and refine the period of a light curve; one adopted answer.
 
     Parameters
     ----------
@@ -368,7 +502,12 @@ def analyse(
     band : array_like, optional
         Band label of each point.  With two or more bands the multi-band
         periodogram is used (one shared frequency, own mean and amplitudes per
-        band; VanderPlas & Ivezic 2015) and each band gets its own harmonic fit.
+        band; VanderPlas & Ivezic 2015) and each band gets its own fit.
+    night, cal_err : array_like, optional
+        Night label and calibration error (mag) of each point.  The calibration
+        error of a night and band is shared by its points: every fit then treats it
+        as a covariance (:mod:`.nightly`), so the errors include the nights'
+        offsets.  Without them the points are independent.
     min_period, max_period : float, optional
         Search range in days (defaults in :func:`.grid.frequency_grid`: 0.05 d
         to half the baseline).  ``max_period`` longer than the baseline is refused.
@@ -377,21 +516,24 @@ def analyse(
     nterms : int
         Harmonics of the periodogram (1 = the classical generalised Lomb-Scargle).
     harmonics : int, optional
-        Harmonics of the final fit (amplitude, epoch, Fourier parameters).
-        Default: chosen per band by Akaike's information criterion among
-        1 to :data:`MAX_AUTO_HARMONICS` (Akaike 1974); too few harmonics bias the
-        epoch of an asymmetric light curve.
+        Harmonics of the final fit of the main signal.  Default: chosen per band by
+        Akaike's information criterion among 1 to ``MAX_AUTO_HARMONICS``.
     epoch_kind : {"maximum", "minimum"}, optional
-        Which extremum the epoch marks.  Default: "minimum" when the light curve
-        repeats only at twice the periodogram's period (a binary), else "maximum".
+        Which extremum the epoch marks; "minimum" also selects the eclipse
+        template for the period.  Default: "minimum" when the light curve repeats
+        only at twice the periodogram's period or looks eclipsing (flat maxima,
+        dips), else "maximum".
     bootstrap : int
         Number of bootstrap resamples for an empirical FAP (0: none).
     rng : numpy.random.Generator or int, optional
         Random source of the bootstrap (required when ``bootstrap > 0``).
-    prewhitening : bool
-        Also run iterative prewhitening on the reference band.
-    snr_limit, max_frequencies : float, int
-        Prewhitening's stopping S/N (4, Breger et al. 1993) and frequency cap.
+    single : bool
+        Fit the main period alone: further significant frequencies are only
+        reported as a warning, not put in the model.
+    snr_limit, fap_limit, max_frequencies : float, float, int
+        A further frequency must reach amplitude S/N ``snr_limit`` (4, Breger et
+        al. 1993) and a false-alarm probability of at most ``fap_limit`` (Baluev
+        2008) over the grid; at most ``max_frequencies`` in all.
     pdm_bins : int
         PDM bins per cycle.
     z_crit : float
@@ -409,7 +551,7 @@ def analyse(
     ReductionError
         When a fit cannot be made (too few points for the harmonics).
     """
-    t, y, dy, band = _as_series(t, mag, mag_err, band)
+    t, y, dy, band, group, group_err = _as_series(t, mag, mag_err, band, night, cal_err)
     if epoch_kind not in (None, "maximum", "minimum"):
         raise InputError(f"period analysis: epoch_kind must be 'maximum' or 'minimum' (got {epoch_kind!r})")
     nterms = gls.check_nterms(nterms)
@@ -419,11 +561,20 @@ def analyse(
         raise InputError(f"period analysis: bootstrap must be 0 or a positive count (got {bootstrap})")
     if bootstrap and rng is None:
         raise InputError("period analysis: a bootstrap needs a random generator or seed (rng)")
+    if int(max_frequencies) < 1:
+        raise InputError(f"period analysis: max_frequencies must be at least 1 (got {max_frequencies})")
     labels, counts = np.unique(band, return_counts=True)
     bands = tuple(str(b) for b in labels)
     multi = len(bands) > 1
     reference = bands[int(np.argmax(counts))]
     warnings: list[str] = []
+    nightly = group is not None and bool(np.any(group_err > 0))
+    errors = ("each night's calibration error (cal_err) is shared by its points: generalised least squares, "
+              "as a per-night offset with that prior; covariance scaled by the reduced chi-square"
+              if nightly else "points independent with their errors; covariance scaled by the reduced chi-square")
+
+    def sel(mask):  # the group keys and errors of a subset
+        return (None, None) if group is None else (group[mask], group_err[mask])
 
     freq = grid.frequency_grid(t, min_period=min_period, max_period=max_period, oversampling=oversampling)
     baseline = float(t[-1] - t[0])
@@ -452,30 +603,31 @@ def analyse(
                                                         rng=gen, power=p_peak)[0])
 
     report = aliases.alias_report(freq, power, baseline_days=baseline)
-    if not report.secure:
-        warnings.append(report.note)
 
     # The second method, on the reference band.
     rb = band == reference
     tr, yr, dyr = t[rb], y[rb], dy[rb]
+    gr, ger = sel(rb)
     peak_idx = [int(np.argmin(np.abs(freq - p.frequency))) for p in report.peaks]
     theta, where = _pdm_on_grid(tr, yr, dyr, freq, peak_idx, pdm_bins)
     j_pdm = int(np.nanargmin(theta))
     f_pdm = float(freq[j_pdm])
 
-    candidates: list[dict[str, Any]] = [
-        {"period": 1.0 / f_peak, "source": "periodogram peak", "power": p_peak},
-    ]
+    candidates: list[dict[str, Any]] = [{
+        "period": 1.0 / f_peak, "source": "periodogram peak (grid value, before refinement)", "power": p_peak,
+    }]
     f_cand = f_peak
     rel = aliases.relate(f_peak, f_pdm, baseline_days=baseline)
     if rel != "same peak":
         z = _cv_z(tr, yr, dyr, f_pdm, f_peak)
         adopt = z > z_crit
         candidates.append({
-            "period": 1.0 / f_pdm, "source": "PDM minimum", "theta": float(theta[j_pdm]),
+            "period": 1.0 / f_pdm, "source": "PDM minimum (grid value)", "theta": float(theta[j_pdm]),
             "relation_to_periodogram_peak": rel, "z": z,
-            "note": ("phase neighbours predict the points better at PDM's period; adopted"
-                     if adopt else "not better supported by the phased curve than the periodogram peak"),
+            "note": (f"phase neighbours predict the points better at PDM's period (z = {z:.1f} > {z_crit:g}); "
+                     "this candidate was refined and adopted"
+                     if adopt else f"rejected: not better supported by the phased curve than the periodogram "
+                     f"peak (z = {z:.1f} <= {z_crit:g})"),
         })
         if adopt:
             f_cand = f_pdm
@@ -488,31 +640,91 @@ def analyse(
         # include f): keep the longer period only if the phased curve needs it.
         half = pdm.choose_p_or_2p(tr, yr, dyr, 2.0 * f_cand, n_bins=pdm_bins, z_crit=z_crit)
         if half.factor == 1:
-            candidates.append({"period": half.period, "source": "half the candidate period",
-                               "note": "the phased curve repeats at half the multi-harmonic peak's period; adopted"})
+            candidates.append({"period": 2.0 / half.frequency, "source": "multi-harmonic periodogram peak",
+                               "note": "the phased curve repeats at half this period; the half was taken"})
             f_cand = half.frequency
-    choice = pdm.choose_p_or_2p(tr, yr, dyr, f_cand, n_bins=pdm_bins, z_crit=z_crit)
-    candidates.append({"period": 1.0 / choice.frequency, "source": "P (candidate, refined)",
-                       "theta": choice.theta_p})
-    candidates.append({"period": 2.0 / choice.frequency, "source": "2P", "theta": choice.theta_2p,
-                       "note": choice.note})
+
+    # The main signal, then further frequencies in its residuals (reference band).
+    top = int(harmonics) if harmonics is not None else MAX_AUTO_HARMONICS
+    if harmonics is None:
+        main = refine.fit_harmonics_aic(tr, yr, dyr, f_cand, max_nterms=top, group=gr, group_err=ger)
+    else:
+        main = refine.fit_harmonics(tr, yr, dyr, f_cand, nterms=top, group=gr, group_err=ger)
+    refined_peaks = {float(freq[peak_idx[0]]): main.frequency} if f_cand == f_peak else {}
+    pw = prewhiten.prewhiten(
+        tr, yr, dyr, freq, lambda tt, yy, ee, ff: gls.gls_power(tt, yy, ee, ff, nterms=1),
+        first=main.frequency, first_nterms=main.nterms, group=gr, group_err=ger,
+        snr_limit=snr_limit, fap_limit=fap_limit, max_frequencies=2 if single else int(max_frequencies),
+        alias_trials=True,
+    )
+    found = pw.frequencies[1:]
+    others_f = [] if single else [f.frequency for f in found]
+    if single and found and not found[0].relation:
+        warnings.append(
+            f"a further significant frequency remains in the residuals at P = {found[0].period:.7g} d "
+            f"(amplitude S/N {found[0].snr:.1f}): the star is probably multi-periodic; run without --single"
+        )
+
+    # P or 2P on the main signal alone: a second mode must not make the halves of 2P differ.
+    others_ref = None
+    if others_f:
+        others_ref = _others_in_band(tr, yr, dyr, main.t_ref, main.frequency, main.nterms, others_f, gr, ger)
+    y_main_r = yr if others_ref is None else yr - others_ref(tr)
+    # ... nor may the nights' calibration offsets (cycle parity often goes with the night):
+    # the fold is judged with each night's estimated offset removed.
+    whiten_r = refine.nightly_whitener(dyr, gr, ger)
+    resid_r = y_main_r - main.model(tr)
+    y_fold = y_main_r + (whiten_r.without_offsets(resid_r) - resid_r)  # y minus each night's offset
+    choice = pdm.choose_p_or_2p(tr, y_fold, dyr, main.frequency, n_bins=pdm_bins, z_crit=z_crit)
     f_final = choice.frequency / choice.factor
-    kind = epoch_kind or ("minimum" if choice.factor == 2 else "maximum")
+    rival_2p = {
+        "period": (1.0 if choice.factor == 2 else 2.0) / choice.frequency,
+        "source": "the rejected one of P and 2P",
+        "z": choice.z,
+        "note": (f"rejected: the two halves of the {2.0 / choice.frequency:.6g} d cycle differ (z = {choice.z:.1f})"
+                 if choice.factor == 2 else
+                 f"rejected: the two halves of this cycle agree within the noise (z = {choice.z:.1f} <= {z_crit:g}); "
+                 "for an eclipsing binary with equal minima the orbital period may still be this one"),
+    }
+    candidates.append(rival_2p)
     min_harm = 2 if choice.factor == 2 else 1  # a curve repeating only after 2P needs its 2nd harmonic
     if harmonics is not None and int(harmonics) < min_harm:
         warnings.append("the light curve repeats only after 2P: the fit uses 2 harmonics to show both halves")
 
+    # The adopted model per band: main signal (harmonic series or eclipse template) + others.
     fits: dict[str, refine.HarmonicFit] = {}
+    others: dict[str, Any] = {}
+    k_joint = min(MAX_AUTO_HARMONICS, main.nterms * choice.factor)
     for b in bands:
         m = band == b
+        tb, yb, dyb = t[m], y[m], dy[m]
+        gb, geb = sel(m)
+        if others_f:
+            w = 1.0 / dyb**2
+            others[b] = _others_in_band(tb, yb, dyb, float(np.sum(w * tb) / np.sum(w)), f_final, k_joint,
+                                        others_f, gb, geb)
+            yb = yb - others[b](tb)
         if harmonics is None:
-            fits[b] = _fit_by_aic(t[m], y[m], dy[m], f_final, min_harm)
+            fits[b] = refine.fit_harmonics_aic(tb, yb, dyb, f_final, min_nterms=min_harm, group=gb, group_err=geb)
         else:
-            fits[b] = refine.fit_harmonics(t[m], y[m], dy[m], f_final, nterms=max(int(harmonics), min_harm))
+            fits[b] = refine.fit_harmonics(tb, yb, dyb, f_final, nterms=max(int(harmonics), min_harm),
+                                           group=gb, group_err=geb)
         warnings.extend(f"{b}: {w}" if multi else w for w in fits[b].warnings)
+    kind = epoch_kind or ("minimum" if choice.factor == 2 or _eclipse_like(fits[reference]) else "maximum")
+
+    templates: dict[str, Any] = {}
+    if kind == "minimum":
+        from varstar.period import template
+
+        for b in bands:
+            m = band == b
+            gb, geb = sel(m)
+            yb = y[m] - (others[b](t[m]) if b in others else 0.0)
+            templates[b] = template.fit_template_period(t[m], yb, dy[m], fits[b].frequency, group=gb, group_err=geb)
+    per_band = templates or fits
     n_harm = fits[reference].nterms
-    f_vals = np.array([fits[b].frequency for b in bands])
-    f_errs = np.array([fits[b].frequency_err for b in bands])
+    f_vals = np.array([per_band[b].frequency for b in bands])
+    f_errs = np.array([per_band[b].frequency_err for b in bands])
     if multi and np.all(np.isfinite(f_errs) & (f_errs > 0)):
         wts = 1.0 / f_errs**2
         frequency = float(np.sum(wts * f_vals) / np.sum(wts))
@@ -521,20 +733,48 @@ def analyse(
         if chi2 > len(bands) - 1 + 3 * math.sqrt(2 * (len(bands) - 1)):
             warnings.append(f"the bands' fitted frequencies disagree (chi2 = {chi2:.1f} for {len(bands) - 1} dof)")
     else:
-        frequency, frequency_err = float(fits[reference].frequency), float(fits[reference].frequency_err)
+        frequency, frequency_err = float(per_band[reference].frequency), float(per_band[reference].frequency_err)
     period = 1.0 / frequency
     period_err = frequency_err / frequency**2
     ref = fits[reference]
-    if kind == "maximum":
-        epoch, epoch_err = ref.epoch_max_light, ref.epoch_max_light_err
+    if templates:
+        tpl = templates[reference]
+        epoch, epoch_err = tpl.epoch_min_light, tpl.epoch_min_light_err
+        amplitude, amplitude_err = tpl.ptp_amplitude, float("nan")
+        period_method = f"eclipse template: {tpl.method}"
     else:
-        epoch, epoch_err = ref.epoch_min_light, ref.epoch_min_light_err
+        amplitude, amplitude_err = ref.ptp_amplitude, ref.ptp_amplitude_err
+        if kind == "maximum":
+            epoch, epoch_err = ref.epoch_max_light, ref.epoch_max_light_err
+        else:
+            epoch, epoch_err = ref.epoch_min_light, ref.epoch_min_light_err
+        period_method = f"harmonic fit with free frequency ({n_harm} harmonics, {'set' if harmonics else 'chosen by AIC'})"
+    if multi:
+        period_method += f"; bands {', '.join(bands)} combined by inverse-variance weighting"
+    if others_f:
+        period_method += f"; fitted together with {len(others_f)} further frequenc{'y' if len(others_f) == 1 else 'ies'}"
 
-    alias_check = _check_rivals(report, tr, yr, dyr, fits[reference])
-    if alias_check:
-        warnings = [w for w in warnings if w != report.note] + [c["note"] for c in alias_check if not c["settled"]]
+    best = main if others_ref is None else refine.fit_harmonics(tr, y_main_r, dyr, main.frequency,
+                                                                nterms=main.nterms, group=gr, group_err=ger)
+    alias_check = _check_rivals(report, tr, y_main_r, dyr, best, gr, ger)
+    for c in alias_check:
+        refined_peaks[c["grid_frequency"]] = 1.0 / c["period"]
+    if not report.secure and not (alias_check and all(c["settled"] for c in alias_check)):
+        warnings.append(report.note if not alias_check else "")
+        warnings.extend(c["note"] for c in alias_check if not c["settled"])
 
-    theta_at = float(pdm.pdm_theta(tr, yr, dyr, [frequency], n_bins=pdm_bins)[0])
+    # Frequencies of the final model, main first (its error is the adopted one).
+    amp1 = fits[reference].amplitudes[0]
+    amp1_err = fits[reference].amplitude_errs[0]
+    first = pw.frequencies[0]
+    snr1 = first.snr * (amp1 / first.amplitude if first.amplitude > 0 else 1.0)
+    entries = [_frequency_entry("f1", frequency, frequency_err, amp1, amp1_err, snr1, "")]
+    if not single:
+        entries += [_frequency_entry(f.label, f.frequency, f.frequency_err, f.amplitude, f.amplitude_err, f.snr,
+                                     f.relation) for f in found]
+    multiperiodic, modes_note = _modes_note(entries)
+
+    theta_at = float(pdm.pdm_theta(tr, y_main_r, dyr, [frequency], n_bins=pdm_bins)[0])
     pdm_summary = {
         "method": "phase dispersion minimisation (Stellingwerf 1978)",
         "band": reference,
@@ -542,33 +782,26 @@ def analyse(
         "n_covers": 2,
         "evaluated": where,
         "best_period": 1.0 / f_pdm,
+        "best_period_note": "grid value, before refinement",
         "best_theta": float(theta[j_pdm]),
         "theta_at_period": theta_at,
         "relation_to_period": aliases.relate(frequency, f_pdm, baseline_days=baseline),
     }
 
-    pw = None
-    if prewhitening:
-        def periodogram(tt, yy, ee, ff):
-            return gls.gls_power(tt, yy, ee, ff, nterms=1)
-
-        # Sinusoids, as in Breger et al. (1993): a non-sinusoidal mode's harmonics come out as
-        # frequencies of their own, named by their relation ("2 f1").
-        pw = prewhiten.prewhiten(tr, yr, dyr, freq, periodogram, nterms=1, snr_limit=snr_limit,
-                                 max_frequencies=max_frequencies)
-        warnings.extend(pw.warnings)
-
     step = float(freq[1] - freq[0]) if freq.size > 1 else float("nan")
     return PeriodResult(
         period=period, period_err=period_err, frequency=frequency, frequency_err=frequency_err,
-        amplitude=ref.ptp_amplitude, amplitude_err=ref.ptp_amplitude_err,
+        period_method=period_method, errors=errors,
+        amplitude=amplitude, amplitude_err=amplitude_err,
         epoch=float(epoch), epoch_err=float(epoch_err), epoch_kind=kind,
+        frequencies=tuple(entries), multiperiodic=multiperiodic, modes_note=modes_note,
         fap=fap, fap_method=fap_method, fap_bootstrap=fap_boot, fap_levels=fap_levels,
         n_points=int(t.size), baseline_days=baseline, bands=bands, reference_band=reference,
         method=method, nterms=nterms, harmonics=n_harm,
         grid={"min_period": 1.0 / float(freq[-1]), "max_period": 1.0 / float(freq[0]),
               "oversampling": float(oversampling), "n_frequencies": int(freq.size), "step": step},
-        aliases=report, pdm=pdm_summary, choice=choice, candidates=tuple(candidates), alias_check=tuple(alias_check), fits=fits,
-        prewhitening=pw, warnings=tuple(dict.fromkeys(warnings)),
-        freq=freq, power=power, theta=theta,
+        aliases=report, refined_peaks=refined_peaks, pdm=pdm_summary, choice=choice,
+        candidates=tuple(candidates), alias_check=tuple(alias_check), fits=fits, templates=templates,
+        prewhitening=pw, warnings=tuple(w for w in dict.fromkeys(warnings) if w),
+        freq=freq, power=power, theta=theta, others=others,
     )

@@ -66,6 +66,7 @@ class NightlyWhitener:
         self._beta_i = beta[group]  # per point
         self._w = w
         self._s, self._c2 = s, c2
+        self._indicator = None  # sparse night-by-point matrix, built on first use with a matrix
         self.n_groups = int(np.count_nonzero(c2 > 0))
         self.active = self.n_groups > 0
 
@@ -77,10 +78,17 @@ class NightlyWhitener:
         if x.ndim == 1:
             sums = np.bincount(self._group, weights=self._w * x)
             return self._sw * (x - self._beta_i * sums[self._group])
-        wx = self._w[:, None] * x
-        sums = np.zeros((int(self._group.max()) + 1, x.shape[1]))
-        np.add.at(sums, self._group, wx)
+        if self._indicator is None:
+            from scipy.sparse import csr_matrix
+
+            n = self._group.size
+            self._indicator = csr_matrix((self._w, (self._group, np.arange(n))), shape=(self._c2.size, n))
+        sums = self._indicator @ x  # per night: sum of w x, for every column at once
         return self._sw[:, None] * (x - self._beta_i[:, None] * sums[self._group])
+
+    def without_offsets(self, resid: np.ndarray) -> np.ndarray:
+        """Residuals with each night's estimated offset (:meth:`offsets`) removed."""
+        return resid - self.offsets(resid)[self._group] if self.active else resid
 
     def offsets(self, resid: np.ndarray) -> np.ndarray:
         """Best estimate of each night's offset from the residuals (the prior-shrunk weighted mean)."""

@@ -45,8 +45,10 @@ from typing import Any, Callable
 import numpy as np
 
 from varstar.errors import InputError, ReductionError
+from varstar.period.nightly import nightly_whitener
 from varstar.period.refine import (
     _amp_phase,
+    _bases,
     _check_freq,
     _check_series,
     _err,
@@ -83,9 +85,17 @@ def amplitude_spectrum(t: Any, y: Any, dy: Any, freq: Any) -> np.ndarray:
     return 2.0 * out / np.sum(w)
 
 
+#: The mean noise amplitude is estimated from at most this many frequencies of the window:
+#: a mean over hundreds of values is precise to a few per cent, and a direct transform at
+#: every grid step of a ten-year series would cost seconds (measured by the benchmark).
+_NOISE_SAMPLES = 400
+
+
 def _noise(t, r, dy, f0, window, step) -> float:
     lo = max(f0 - 0.5 * window, 0.0)
-    grid = np.arange(lo, f0 + 0.5 * window + 0.5 * step, step)
+    hi = f0 + 0.5 * window
+    step = max(step, (hi - lo) / _NOISE_SAMPLES)
+    grid = np.arange(lo, hi + 0.5 * step, step)
     return float(np.mean(amplitude_spectrum(t, r, dy, grid)))
 
 
@@ -143,8 +153,8 @@ class PrewhiteningResult:
         In the order found.
     mean_mag, mean_mag_err, t_ref : float
         Common mean of the final fit and the phase reference time.
-    nterms : int
-        Harmonics fitted per frequency.
+    nterms : tuple of int
+        Harmonics fitted with each frequency.
     chi2, dof, reduced_chi2, rms : float, int, float, float
         Of the final simultaneous fit (rms unweighted, mag).
     stop_reason : str
@@ -164,7 +174,7 @@ class PrewhiteningResult:
     mean_mag: float
     mean_mag_err: float
     t_ref: float
-    nterms: int
+    nterms: tuple[int, ...]
     chi2: float
     dof: int
     reduced_chi2: float
@@ -199,7 +209,7 @@ class PrewhiteningResult:
             "mean_mag": _jf(self.mean_mag),
             "mean_mag_err": _jf(self.mean_mag_err),
             "t_ref": _jf(self.t_ref),
-            "nterms": int(self.nterms),
+            "nterms": [int(k) for k in self.nterms],
             "chi2": _jf(self.chi2),
             "dof": int(self.dof),
             "reduced_chi2": _jf(self.reduced_chi2),
@@ -250,6 +260,12 @@ def prewhiten(
     max_frequencies: int = 10,
     noise_window: float = 1.0,
     relation_tolerance: float | None = None,
+    first: float | None = None,
+    first_nterms: int = 1,
+    group: Any = None,
+    group_err: Any = None,
+    fap_limit: float | None = None,
+    alias_trials: bool = False,
 ) -> PrewhiteningResult:
     """Find the frequencies of a multiperiodic light curve by iterative prewhitening.
 
@@ -263,17 +279,35 @@ def prewhiten(
         ``periodogram(t, y, dy, freq) -> power`` (larger = stronger), used only to
         locate the highest peak of the residuals.
     nterms : int
-        Harmonics fitted with each frequency (1 = pure sinusoids; found harmonics
-        are then reported as relations).
+        Harmonics fitted with each frequency found (1 = pure sinusoids; found
+        harmonics are then reported as relations).
     snr_limit : float
         Minimum amplitude S/N of an accepted frequency (4: Breger et al. 1993).
     max_frequencies : int
-        Upper bound on the number of frequencies.
+        Upper bound on the number of frequencies (``first`` included).
     noise_window : float
         Width (cycles/day) of the window, centred on a frequency, where the noise is
         averaged.
     relation_tolerance : float, optional
         Tolerance (cycles/day) for naming harmonics/combinations; default ``1/T``.
+    first : float, optional
+        A frequency already known (the main period's), fitted first with
+        ``first_nterms`` harmonics.  Residual peaks at its harmonics and
+        half-harmonics (``k first / 2``) are then not taken as new frequencies: they
+        describe the shape of the main signal, or say that it repeats only after
+        twice its period, which :func:`.pdm.choose_p_or_2p` decides.
+    group, group_err : array_like, optional
+        Night label of each point and each night's calibration error
+        (:mod:`.nightly`): fits are then generalised least squares, and the
+        residuals searched for new peaks have each night's estimated offset
+        removed, so calibration steps between nights do not pose as frequencies.
+    fap_limit : float, optional
+        Also require the false-alarm probability (Baluev 2008, over the whole
+        grid) of the residual periodogram's peak to be at most this; the
+        ``periodogram`` must then give the standard generalised Lomb-Scargle power.
+    alias_trials : bool
+        Also fit the residual peak's +-1 and +-2 c/d (sidereal) aliases with the whole
+        model and keep the one with the smallest chi-square.
 
     Returns
     -------
@@ -284,7 +318,7 @@ def prewhiten(
     if not callable(periodogram):
         raise InputError("prewhitening: 'periodogram' must be a function periodogram(t, y, dy, freq) -> power")
     nterms = int(nterms)
-    if nterms < 1:
+    if nterms < 1 or int(first_nterms) < 1:
         raise InputError(f"prewhitening: nterms must be at least 1 (got {nterms})")
     if not snr_limit > 0 or not noise_window > 0 or int(max_frequencies) < 1:
         raise InputError("prewhitening: snr_limit and noise_window must be positive and max_frequencies >= 1")
@@ -295,26 +329,50 @@ def prewhiten(
     t_ref = float(np.sum(w * t) / np.sum(w))
     step = 1.0 / (10.0 * baseline)
     resolution = 1.5 / baseline
-    width = 1 + 2 * nterms
+    whiten = nightly_whitener(dy, group, group_err)
 
+    terms: list[int] = []
     accepted: np.ndarray = np.zeros(0)
     fit = None
     resid = y - np.sum(w * y) / np.sum(w)
     warnings: list[str] = []
     stop = dict(reason="", f=math.nan, amp=math.nan, noise=math.nan, snr=math.nan)
+    blocked = np.zeros(freq.size, dtype=bool)
+    aliases_cpd = np.array([0.0, -1.0027379, 1.0027379, -2.0054758, 2.0054758]) if alias_trials else np.zeros(1)
+    skipped = 0
+
+    def is_harmonic(f: float) -> bool:
+        """Within the resolution of a harmonic or half-harmonic of ``first``."""
+        if first is None:
+            return False
+        half = 0.5 * float(accepted[0])
+        k = round(f / half)
+        return k >= 1 and abs(f - k * half) < resolution
+
+    if first is not None:
+        fit = _fit_sinusoids(t, y, dy, [float(first)], (int(first_nterms),), t_ref, whiten=whiten)
+        terms = [int(first_nterms)]
+        accepted = fit.params[_bases(tuple(terms))].copy()
+        resid = fit.resid
+        half = 0.5 * float(accepted[0])
+        k = np.rint(freq / half)
+        blocked |= (k >= 1) & (np.abs(freq - k * half) < resolution)
     while True:
         if accepted.size >= int(max_frequencies):
             stop["reason"] = f"stopped at max_frequencies = {int(max_frequencies)}"
             break
-        power = np.asarray(periodogram(t, resid, dy, freq), dtype=float)
+        searched = whiten.without_offsets(resid)
+        power = np.asarray(periodogram(t, searched, dy, freq), dtype=float)
         if power.shape != freq.shape:
             raise InputError(
                 f"prewhitening: the periodogram returned {power.size} values for {freq.size} frequencies"
             )
+        power = np.where(blocked, np.nan, power)
         if not np.any(np.isfinite(power)):
             stop["reason"] = "the periodogram of the residuals has no finite value"
             break
-        f_new = float(freq[np.nanargmax(power)])
+        i_new = int(np.nanargmax(power))
+        f_new = float(freq[i_new])
         close = np.abs(accepted - f_new) < resolution
         if close.any():
             near = int(np.flatnonzero(close)[0])
@@ -326,25 +384,47 @@ def prewhiten(
                 f=f_new,
             )
             break
-        try:
-            trial = _fit_sinusoids(t, y, dy, np.append(accepted, f_new), nterms, t_ref)
-        except ReductionError as exc:  # degenerate sampling for this set: reported as the stop reason
-            stop.update(reason=f"the fit with the candidate at {f_new:.6f} c/d failed: {exc}", f=f_new)
+        fap = math.nan
+        if fap_limit is not None:
+            from varstar.period.significance import fap_baluev
+
+            fap = float(fap_baluev(float(power[i_new]), freq, t, dy, nterms=1))
+        new_terms = tuple(terms) + (nterms,)
+        trial = None
+        # The residual peak and its daily aliases: with single-site nights the noise can lift
+        # an alias above the true peak, so each is fitted with the whole model and the one
+        # with the smallest chi-square is taken (common practice: aliases are told apart by
+        # the fit, not by the periodogram alone).
+        f_best = f_new
+        for f_try in f_new + aliases_cpd[f_new + aliases_cpd > 0]:  # aliases may lie beyond the grid
+            try:
+                cand = _fit_sinusoids(t, y, dy, np.append(accepted, f_try), new_terms, t_ref, whiten=whiten)
+            except ReductionError as exc:  # degenerate sampling for this set: reported as the stop reason
+                if f_try == f_new:
+                    stop.update(reason=f"the fit with the candidate at {f_new:.6f} c/d failed: {exc}", f=f_new)
+                continue
+            if trial is None or cand.chi2 < trial.chi2:
+                trial, f_best = cand, float(f_try)
+        if trial is None:
             break
+        if f_best != f_new and is_harmonic(f_best):
+            # the peak is an alias of a harmonic of the main signal: not a new frequency
+            blocked |= np.abs(freq - f_new) < resolution
+            skipped += 1
+            if skipped > 3 * int(max_frequencies):
+                stop["reason"] = "the strongest residual peaks are aliases of the main signal's harmonics"
+                break
+            continue
         k_new = accepted.size
-        base = 1 + k_new * width
+        base = int(_bases(new_terms)[k_new])
         f_fit = float(trial.params[base])
         amp = math.hypot(trial.params[base + 1], trial.params[base + 2])
         noise = _noise(t, trial.resid, dy, f_fit, noise_window, step)
         snr = amp / noise if noise > 0 else math.inf
-        if snr < snr_limit:
-            stop.update(
-                reason=f"the next peak at {f_fit:.6f} c/d has amplitude S/N {snr:.2f} < {snr_limit:g}",
-                f=f_fit,
-                amp=amp,
-                noise=noise,
-                snr=snr,
-            )
+        if snr < snr_limit or (fap_limit is not None and not fap <= fap_limit):
+            why = (f"amplitude S/N {snr:.2f} < {snr_limit:g}" if snr < snr_limit
+                   else f"false-alarm probability {fap:.2g} > {fap_limit:g} (S/N {snr:.1f})")
+            stop.update(reason=f"the next peak at {f_fit:.6f} c/d has {why}", f=f_fit, amp=amp, noise=noise, snr=snr)
             break
         if not trial.success:
             warnings.append(f"fit with {k_new + 1} frequencies: solver did not report convergence ({trial.message})")
@@ -353,29 +433,15 @@ def prewhiten(
                 f"f{k_new + 1} moved from the peak at {f_new:.6f} to {f_fit:.6f} c/d during the fit"
             )
         fit = trial
-        accepted = trial.params[1 + np.arange(k_new + 1) * width].copy()
+        terms = list(new_terms)
+        accepted = trial.params[_bases(new_terms)].copy()
         resid = trial.resid
-
-    if fit is None:  # nothing accepted: report the constant model
-        n = t.size
-        mean = float(np.sum(w * y) / np.sum(w))
-        chi2 = float(np.sum(w * (y - mean) ** 2))
-        dof = n - 1
-        mean_err = math.sqrt(chi2 / dof / np.sum(w)) if dof > 0 else math.nan
-        params = np.array([mean])
-        cov = np.array([[mean_err**2]])
-        return PrewhiteningResult(
-            (), mean, mean_err, t_ref, nterms, chi2, dof, chi2 / dof if dof else math.nan,
-            float(np.sqrt(np.mean((y - mean) ** 2))), stop["reason"], stop["f"], stop["amp"],
-            stop["noise"], stop["snr"], (), float(snr_limit), float(noise_window), tuple(warnings), params, cov,
-        )
 
     p, cov = fit.params, fit.cov
     tol = 1.0 / baseline if relation_tolerance is None else float(relation_tolerance)
     rels = _relations(accepted, tol)
     found = []
-    for i, f_i in enumerate(accepted):
-        base = 1 + i * width
+    for i, (f_i, base, nt) in enumerate(zip(accepted, _bases(tuple(terms)), terms)):
         amp, phi, g_a, g_p = _amp_phase(p[base + 1], p[base + 2])
         ga = np.zeros(p.size)
         gp = np.zeros(p.size)
@@ -384,7 +450,7 @@ def prewhiten(
         f_err = math.sqrt(cov[base, base])
         noise = _noise(t, fit.resid, dy, f_i, noise_window, step)
         harm = tuple(
-            float(math.hypot(p[base + 1 + 2 * k], p[base + 2 + 2 * k])) for k in range(nterms)
+            float(math.hypot(p[base + 1 + 2 * k], p[base + 2 + 2 * k])) for k in range(nt)
         )
         found.append(
             FoundFrequency(
@@ -409,7 +475,7 @@ def prewhiten(
         mean_mag=float(p[0]),
         mean_mag_err=math.sqrt(cov[0, 0]),
         t_ref=t_ref,
-        nterms=nterms,
+        nterms=tuple(terms),
         chi2=fit.chi2,
         dof=fit.dof,
         reduced_chi2=fit.chi2 / fit.dof if fit.dof > 0 else math.nan,

@@ -48,6 +48,7 @@ import numpy as np
 
 from varstar.errors import InputError, ReductionError
 from varstar.jsonsafe import json_float as _jf
+from varstar.period.nightly import NightlyWhitener, nightly_whitener
 
 TWO_PI = 2.0 * math.pi
 
@@ -103,29 +104,48 @@ def _check_freq(freq: Any, *, what: str = "frequency grid") -> np.ndarray:
 # --------------------------------------------------------------------------- model core
 
 
-def _n_params(n_freq: int, nterms: int) -> int:
-    return 1 + n_freq * (1 + 2 * nterms)
+def _terms(n_freq: int, nterms: Any) -> tuple[int, ...]:
+    """Harmonics of each frequency: one int for all, or one per frequency."""
+    if np.ndim(nterms) == 0:
+        return (int(nterms),) * n_freq
+    terms = tuple(int(k) for k in nterms)
+    if len(terms) != n_freq:
+        raise InputError(f"harmonic fit: {n_freq} frequencies but {len(terms)} harmonic counts")
+    return terms
 
 
-def _model_jac(p: np.ndarray, tau: np.ndarray, n_freq: int, nterms: int, want_jac: bool = True):
+def _bases(terms: tuple[int, ...]) -> np.ndarray:
+    """Index of each frequency in the parameter vector (its harmonics follow it)."""
+    widths = 1 + 2 * np.asarray(terms, dtype=int)
+    return 1 + np.concatenate(([0], np.cumsum(widths)[:-1])).astype(int)
+
+
+def _n_params(n_freq: int, nterms: Any) -> int:
+    return 1 + sum(1 + 2 * k for k in _terms(n_freq, nterms))
+
+
+def _model_jac(p: np.ndarray, tau: np.ndarray, n_freq: int, nterms: Any, want_jac: bool = True):
     """Model values and Jacobian (N x P) of the multi-frequency harmonic model.
 
-    Parameter layout: ``[m, f_1, a_11, b_11, ..., a_1K, b_1K, f_2, a_21, ...]``.
+    Parameter layout: ``[m, f_1, a_11, b_11, ..., a_1K, b_1K, f_2, a_21, ...]``;
+    ``nterms`` is one harmonic count for every frequency or one per frequency.
     The loop runs over frequencies (a handful), never over measurements.
     """
-    k = np.arange(1, nterms + 1, dtype=float)
+    terms = _terms(n_freq, nterms)
     model = np.full(tau.shape, p[0])
     jac = np.empty((tau.size, p.size)) if want_jac else None
     if want_jac:
         jac[:, 0] = 1.0
-    width = 1 + 2 * nterms
-    for i in range(n_freq):
-        base = 1 + i * width
+    for base, nt in zip(_bases(terms), terms):
+        k = np.arange(1, nt + 1, dtype=float)
+        width = 1 + 2 * nt
         f = p[base]
         a = p[base + 1 : base + width : 2]
         b = p[base + 2 : base + width : 2]
-        arg = TWO_PI * f * np.outer(tau, k)
-        c, s = np.cos(arg), np.sin(arg)
+        # e^{i k x} as powers of e^{i x}: one complex exponential per point instead of
+        # K cosines and K sines (the harmonics' rounding error grows only as k eps)
+        z = np.cumprod(np.broadcast_to(np.exp(1j * (TWO_PI * f * tau))[:, None], (tau.size, nt)), axis=1)
+        c, s = z.real, z.imag
         model += c @ a + s @ b
         if want_jac:
             jac[:, base + 1 : base + width : 2] = c
@@ -145,18 +165,16 @@ class _Fit:
     message: str
 
 
-def _linear_start(t, y, w, tau, freqs, nterms) -> np.ndarray:
-    """Amplitudes and mean by weighted linear least squares at fixed frequencies."""
+def _linear_start(y, tau, freqs, nterms, whiten: NightlyWhitener) -> np.ndarray:
+    """Amplitudes and mean by (generalised) linear least squares at fixed frequencies."""
     n_freq = len(freqs)
     p = np.zeros(_n_params(n_freq, nterms))
-    width = 1 + 2 * nterms
-    for i, f in enumerate(freqs):
-        p[1 + i * width] = f
+    fidx = _bases(_terms(n_freq, nterms))
+    p[fidx] = freqs
     _, jac = _model_jac(p, tau, n_freq, nterms)
     lin = np.ones(p.size, dtype=bool)
-    lin[1 + np.arange(n_freq) * width] = False
-    sw = np.sqrt(w)
-    coef, *_ = np.linalg.lstsq(jac[:, lin] * sw[:, None], y * sw, rcond=None)
+    lin[fidx] = False
+    coef, *_ = np.linalg.lstsq(whiten(jac[:, lin]), whiten(y), rcond=None)
     p[lin] = coef
     return p
 
@@ -166,22 +184,25 @@ def _fit_sinusoids(
     y: np.ndarray,
     dy: np.ndarray,
     freqs: Any,
-    nterms: int,
+    nterms: Any,
     t_ref: float,
     *,
     refine: bool = True,
     p0: np.ndarray | None = None,
+    whiten: NightlyWhitener | None = None,
 ) -> _Fit:
     """Weighted (non-)linear least squares of the multi-frequency harmonic model.
 
     The covariance is always scaled by chi2/dof (see the module docstring).  With
     ``refine=False`` the frequencies are held fixed and their rows/columns of the
-    covariance are zero.
+    covariance are zero.  ``whiten`` (from :func:`.nightly.nightly_whitener`) adds
+    each night's shared calibration error to the covariance of the points; by
+    default the points are independent with errors ``dy``.
     """
     freqs = np.atleast_1d(np.asarray(freqs, dtype=float))
     n_freq = freqs.size
-    w = 1.0 / dy**2
-    sw = 1.0 / dy
+    if whiten is None:
+        whiten = nightly_whitener(dy)
     tau = t - t_ref
     n_par = _n_params(n_freq, nterms)
     if t.size <= n_par - (0 if refine else n_freq):
@@ -189,32 +210,31 @@ def _fit_sinusoids(
             f"harmonic fit: {t.size} points cannot constrain {n_par} parameters "
             f"({n_freq} frequencies x {nterms} harmonics); use fewer harmonics or more data"
         )
-    p = _linear_start(t, y, w, tau, freqs, nterms) if p0 is None else np.array(p0, dtype=float)
+    p = _linear_start(y, tau, freqs, nterms, whiten) if p0 is None else np.array(p0, dtype=float)
     success, message = True, "linear fit at fixed frequency"
-    width = 1 + 2 * nterms
-    fidx = 1 + np.arange(n_freq) * width
+    fidx = _bases(_terms(n_freq, nterms))
     if refine:
         from scipy.optimize import least_squares
 
         def fun(q):
             mod, _ = _model_jac(q, tau, n_freq, nterms, want_jac=False)
-            return (y - mod) * sw
+            return whiten(y - mod)
 
         def jac(q):
             _, jm = _model_jac(q, tau, n_freq, nterms)
-            return -jm * sw[:, None]
+            return -whiten(jm)
 
         res = least_squares(fun, p, jac=jac, method="lm", x_scale="jac", xtol=1e-12, ftol=1e-12, gtol=1e-12)
         p = res.x
         success, message = bool(res.success), str(res.message)
     model, jm = _model_jac(p, tau, n_freq, nterms)
     resid = y - model
-    chi2 = float(np.sum(w * resid**2))
+    chi2 = float(np.sum(whiten(resid) ** 2))
     free = np.ones(n_par, dtype=bool)
     if not refine:
         free[fidx] = False
     dof = int(t.size - free.sum())
-    jw = jm[:, free] * sw[:, None]
+    jw = whiten(jm[:, free])
     fisher = jw.T @ jw
     try:
         cov_free = np.linalg.inv(fisher)
@@ -433,6 +453,8 @@ def fit_harmonics(
     *,
     nterms: int = 3,
     refine: bool = True,
+    group: Any = None,
+    group_err: Any = None,
 ) -> HarmonicFit:
     """Fit a Fourier series with free frequency to a light curve.
 
@@ -447,6 +469,10 @@ def fit_harmonics(
     refine : bool
         If True (default) the frequency is a free parameter; if False it is held at
         ``frequency`` and ``frequency_err``/``period_err`` are NaN.
+    group, group_err : array_like, optional
+        Night label of each point and each night's calibration error, shared by
+        its points (:mod:`.nightly`): the fit is then generalised least squares
+        and every error includes the nights' offsets.  Default: independent points.
 
     Returns
     -------
@@ -468,7 +494,8 @@ def fit_harmonics(
         raise InputError(f"harmonic fit: nterms must be at least 1 (got {nterms})")
     w = 1.0 / dy**2
     t_ref = float(np.sum(w * t) / np.sum(w))
-    fit = _fit_sinusoids(t, y, dy, [float(frequency)], nterms, t_ref, refine=refine)
+    whiten = nightly_whitener(dy, group, group_err)
+    fit = _fit_sinusoids(t, y, dy, [float(frequency)], nterms, t_ref, refine=refine, whiten=whiten)
     p, cov = fit.params, fit.cov
     n_par = p.size
     warnings: list[str] = []
@@ -576,3 +603,62 @@ def fit_harmonics(
         params=p.copy(),
         covariance=cov.copy(),
     )
+
+
+#: Largest number of harmonics the automatic choice tries.
+MAX_AUTO_HARMONICS = 20
+
+
+def fit_harmonics_aic(
+    t: Any,
+    y: Any,
+    dy: Any,
+    frequency: float,
+    *,
+    min_nterms: int = 1,
+    max_nterms: int = MAX_AUTO_HARMONICS,
+    group: Any = None,
+    group_err: Any = None,
+) -> HarmonicFit:
+    """Harmonic fit whose number of harmonics minimises AIC = chi2 + 2 k (Akaike 1974).
+
+    AIC rather than BIC (chi2 + k ln N): one harmonic too few biases the epoch of an
+    asymmetric curve (measured on simulations in the tests: with BIC, epoch pulls had a
+    spread of 1.5 when it dropped a small fifth harmonic; with AIC 1.07), while one too
+    many costs only a little precision.
+
+    The choice is made at a fixed frequency, where the models of 1..K harmonics are
+    nested linear models: one QR factorisation of the (whitened) design with all
+    harmonics gives every chi-square at once.  The frequency is first refined by a
+    three-harmonic non-linear fit, and one non-linear fit with the chosen number of
+    harmonics gives the answer; two non-linear fits in all instead of one per
+    candidate number.
+
+    Parameters
+    ----------
+    t, y, dy, frequency, group, group_err
+        As for :func:`fit_harmonics`.
+    min_nterms, max_nterms : int
+        Range of harmonic counts tried (the upper end is lowered to what the
+        number of points allows).
+    """
+    t, y, dy = _check_series(t, y, dy, what="harmonic fit")
+    top = max(int(min_nterms), min(int(max_nterms), (t.size - 3) // 2))
+    start = fit_harmonics(t, y, dy, frequency, nterms=min(max(3, int(min_nterms)), top), group=group, group_err=group_err)
+    whiten = nightly_whitener(dy, group, group_err)
+    p = np.zeros(_n_params(1, top))
+    p[1] = start.frequency
+    _, design = _model_jac(p, t - start.t_ref, 1, top)
+    cols = np.concatenate(([0], np.arange(2, p.size)))  # mean, then cos/sin of each harmonic in order
+    q, _ = np.linalg.qr(whiten(design[:, cols]))
+    proj = q.T @ whiten(y)
+    total = float(np.sum(whiten(y) ** 2))
+    best_k, best_aic = int(min_nterms), np.inf
+    for k in range(int(min_nterms), top + 1):
+        chi2 = total - float(np.sum(proj[: 1 + 2 * k] ** 2))
+        aic = chi2 + 2.0 * (2 * k + 2)
+        if aic < best_aic:
+            best_k, best_aic = k, aic
+    if best_k == start.nterms:
+        return start
+    return fit_harmonics(t, y, dy, start.frequency, nterms=best_k, group=group, group_err=group_err)
