@@ -179,6 +179,58 @@ def _linear_start(y, tau, freqs, nterms, whiten: NightlyWhitener) -> np.ndarray:
     return p
 
 
+def _variable_projection(y, tau, p, n_freq, nterms, whiten) -> tuple[np.ndarray, bool, str]:
+    """Least squares over the frequencies only, the amplitudes solved exactly at each step.
+
+    The model is linear in the mean and amplitudes and non-linear only in the few
+    frequencies: variable projection (Golub & Pereyra 1973) minimises the residual of
+    the linear solution as a function of the frequencies, with Kaufman's (1975)
+    Jacobian ``-(I - Q Q^T) L dmodel/df``.  A handful of small Levenberg-Marquardt steps
+    instead of steps in all 2K+2 parameters: the same minimum, several times faster
+    for many harmonics (scipy's least_squares on the frequencies alone).
+    """
+    from scipy.optimize import least_squares
+
+    terms = _terms(n_freq, nterms)
+    fidx = _bases(terms)
+    lin = np.ones(p.size, dtype=bool)
+    lin[fidx] = False
+    wy = whiten(y)
+    cache: dict[str, Any] = {}
+
+    def evaluate(fr: np.ndarray) -> None:
+        if cache.get("x") is not None and np.array_equal(cache["x"], fr):
+            return
+        q = p.copy()
+        q[fidx] = fr
+        _, jm = _model_jac(q, tau, n_freq, terms)
+        qa, ra = np.linalg.qr(whiten(jm[:, lin]))
+        beta = np.linalg.solve(ra, qa.T @ wy)
+        q[lin] = beta
+        resid = wy - qa @ (qa.T @ wy)
+        dcols = np.empty((tau.size, n_freq))
+        for i, (base, nt) in enumerate(zip(fidx, terms)):
+            k = np.arange(1, nt + 1, dtype=float)
+            c, s = jm[:, base + 1 : base + 1 + 2 * nt : 2], jm[:, base + 2 : base + 2 + 2 * nt : 2]
+            a, b = q[base + 1 : base + 1 + 2 * nt : 2], q[base + 2 : base + 2 + 2 * nt : 2]
+            dcols[:, i] = TWO_PI * tau * (c @ (k * b) - s @ (k * a))
+        jf = whiten(dcols)
+        jf -= qa @ (qa.T @ jf)
+        cache.update(x=fr.copy(), q=q, resid=resid, jac=-jf)
+
+    def fun(fr):
+        evaluate(fr)
+        return cache["resid"]
+
+    def jac(fr):
+        evaluate(fr)
+        return cache["jac"]
+
+    res = least_squares(fun, p[fidx].copy(), jac=jac, method="lm", x_scale="jac", xtol=1e-13, ftol=1e-13, gtol=1e-13)
+    evaluate(res.x)
+    return cache["q"].copy(), bool(res.success), str(res.message)
+
+
 def _fit_sinusoids(
     t: np.ndarray,
     y: np.ndarray,
@@ -214,19 +266,7 @@ def _fit_sinusoids(
     success, message = True, "linear fit at fixed frequency"
     fidx = _bases(_terms(n_freq, nterms))
     if refine:
-        from scipy.optimize import least_squares
-
-        def fun(q):
-            mod, _ = _model_jac(q, tau, n_freq, nterms, want_jac=False)
-            return whiten(y - mod)
-
-        def jac(q):
-            _, jm = _model_jac(q, tau, n_freq, nterms)
-            return -whiten(jm)
-
-        res = least_squares(fun, p, jac=jac, method="lm", x_scale="jac", xtol=1e-12, ftol=1e-12, gtol=1e-12)
-        p = res.x
-        success, message = bool(res.success), str(res.message)
+        p, success, message = _variable_projection(y, tau, p, n_freq, nterms, whiten)
     model, jm = _model_jac(p, tau, n_freq, nterms)
     resid = y - model
     chi2 = float(np.sum(whiten(resid) ** 2))
