@@ -315,3 +315,21 @@ def test_multi_harmonic_periodogram_reports_the_same_periods():
     t = nightly(rng, 20, hours=6, cadence_min=5)
     r = analyse(t, contact_binary(t, 0.3312) + 0.01 * rng.standard_normal(t.size), 0.01, nterms=3)
     assert abs(r.period - 0.3312) < 4 * r.period_err and r.epoch_kind == "minimum"
+
+
+def test_period_screen_shows_one_adopted_period(capsys, demo_archive, tmp_path):
+    """One adopted period; every other period on screen says what it is (the issue's complaint:
+    four different periods for one star, unlabelled, and a probability printed as 0)."""
+    src, truth = demo_archive
+    rc, out, err = run(capsys, "period", src, "--no-store")
+    assert rc == 0, err
+    lines = out.splitlines()
+    assert "(adopted;" in lines[0] and out.count("adopted;") == 1
+    adopted = float(lines[0].split("period ")[1].split(" ")[0])
+    assert abs(adopted - truth["period_d"]) < 1e-4  # demo truth (demo_series/truth.json)
+    labels = ("grid value", "(refined)", "(grid)", "rejected", "PDM minimum", "f1:", "f2:", "fits the light curve")
+    for line in lines[1:]:
+        if "P = " in line or "P=" in line:
+            assert any(lab in line for lab in labels), line
+    assert "probability of the periodogram peak < 1e-16" in out
+    assert " 0 (" not in out and "probability of the periodogram peak 0" not in out

@@ -397,8 +397,9 @@ def prewhiten(
         # the fit, not by the periodogram alone).
         f_best = f_new
         for f_try in f_new + aliases_cpd[f_new + aliases_cpd > 0]:  # aliases may lie beyond the grid
-            try:
-                cand = _fit_sinusoids(t, y, dy, np.append(accepted, f_try), new_terms, t_ref, whiten=whiten)
+            try:  # compared at fixed frequencies (linear fits), the winner refined below
+                cand = _fit_sinusoids(t, y, dy, np.append(accepted, f_try), new_terms, t_ref, whiten=whiten,
+                                      refine=aliases_cpd.size == 1)
             except ReductionError as exc:  # degenerate sampling for this set: reported as the stop reason
                 if f_try == f_new:
                     stop.update(reason=f"the fit with the candidate at {f_new:.6f} c/d failed: {exc}", f=f_new)
@@ -407,6 +408,12 @@ def prewhiten(
                 trial, f_best = cand, float(f_try)
         if trial is None:
             break
+        if aliases_cpd.size > 1:
+            try:
+                trial = _fit_sinusoids(t, y, dy, np.append(accepted, f_best), new_terms, t_ref, whiten=whiten)
+            except ReductionError as exc:
+                stop.update(reason=f"the fit with the candidate at {f_best:.6f} c/d failed: {exc}", f=f_best)
+                break
         if f_best != f_new and is_harmonic(f_best):
             # the peak is an alias of a harmonic of the main signal: not a new frequency
             blocked |= np.abs(freq - f_new) < resolution
