@@ -333,3 +333,16 @@ def test_period_screen_shows_one_adopted_period(capsys, demo_archive, tmp_path):
             assert any(lab in line for lab in labels), line
     assert "probability of the periodogram peak < 1e-16" in out
     assert " 0 (" not in out and "probability of the periodogram peak 0" not in out
+
+
+@pytest.mark.parametrize("band", ["all", "V"])
+def test_period_of_a_one_night_archive_is_refused_in_words(capsys, tmp_path, demo_data, band):
+    """A one-night archive cannot show a 0.46 d period: the refusal says why and what the data allow."""
+    path = tmp_path / "one.h5"
+    assert run(capsys, "init", path, demo_data.folder / "target.toml")[0] == 0
+    assert run(capsys, "ingest", path, demo_data.folder / "night-2026-09-11.csv")[0] == 0
+    before = _digest(path)
+    rc, out, err = run(capsys, "period", path, "--band", band)
+    assert rc != 0 and out == "" and err.count("\n") == 1
+    assert "(1 night)" in err and "half its span" in err and "--max-period" in err
+    assert _digest(path) == before

@@ -586,6 +586,20 @@ def analyse(
         method = f"generalised Lomb-Scargle ({nterms} harmonic{'s' if nterms > 1 else ''})"
     i_best = int(np.nanargmax(power))
     f_peak, p_peak = float(freq[i_best]), float(power[i_best])
+    if i_best in (0, freq.size - 1):
+        n_nights = np.unique(np.asarray(night, dtype=str)).size if night is not None else None
+        span = f"{baseline:.2f} d" + (f" ({n_nights} night{'s' if n_nights != 1 else ''})" if n_nights else "")
+        if i_best == 0:
+            raise InputError(
+                f"period analysis: the periodogram rises to the longest period searched ({1 / f_peak:.4g} d) "
+                f"and has no peak inside the range; the light curve spans {span}, which shows periods only up "
+                f"to about half its span ({baseline / 2:.3g} d): observe more nights, or search a range the "
+                "data allow with --min-period/--max-period"
+            )
+        raise InputError(
+            f"period analysis: the periodogram rises to the shortest period searched ({1 / f_peak:.4g} d) and "
+            f"has no peak inside the range: give a smaller --min-period"
+        )
 
     # Significance.  Baluev's formula is for one series; with several bands it is applied to
     # all points with the multi-band power, an approximation (the bootstrap is exact in law).
