@@ -21,6 +21,14 @@ resident memory is the ingest's own) creates an archive and times
 Separately, the whole command ``python -m varstar.cli ingest`` is run as a child
 process and timed end to end, with its own peak RSS from ``os.wait4``.
 
+``--threads``: the effect of the BLAS library's threads (OpenBLAS starts one per
+core; the night's many small least-squares problems do not gain from them).  The
+whole command is timed, alternating within each repeat, as shipped, without any
+thread limit (the command's function called without ``varstar.cli.main``),
+with ``OPENBLAS_NUM_THREADS=1`` and inside :func:`varstar.threads.limit_blas_threads`
+(threadpoolctl); and in the worker a warm ``reduce_night`` with and without the
+limit (best of two each).
+
 Note on the seed: with the default sizes the exposures are 5 s long and the
 faintest stars have low signal-to-noise; some seeds (e.g. 1) give a few rows
 with ``mag_err`` > 5 mag, which the measurement parser rightly refuses.  Seed 0
@@ -31,7 +39,7 @@ peak RSS < 500 MB.  This is a script that prints figures, never a test.
 
 Usage::
 
-    python benchmarks/bench_ingest.py [--repeats 3] [--exposures 2000] [--stars 30] [--seed 0]
+    python benchmarks/bench_ingest.py [--repeats 3] [--exposures 2000] [--stars 30] [--seed 0] [--threads]
 """
 
 from __future__ import annotations
@@ -82,7 +90,7 @@ def _env() -> dict[str, str]:
 
 
 # ----------------------------------------------------------------------------- worker
-def worker(folder: Path, trace: bool = True) -> dict[str, float]:
+def worker(folder: Path, trace: bool = True, threads: bool = False) -> dict[str, float]:
     """Run in a fresh process: time one cold ingest, one warm ingest and its stages."""
     t = time.perf_counter()
     from varstar.archive import create_archive
@@ -135,6 +143,20 @@ def worker(folder: Path, trace: bool = True) -> dict[str, float]:
     out["reduce_s"] = time.perf_counter() - t
     out["write_s"] = out["ingest_warm_s"] - out["read_s"] - out["parse_s"] - out["reduce_s"]
     out["rss_peak_after_stages_mb"] = _peak_mb()
+    if threads:
+        from varstar.threads import blas_thread_counts, limit_blas_threads
+
+        out["blas_threads_default"] = max(blas_thread_counts().values(), default=0)
+        best = {"reduce_unlimited_s": float("inf"), "reduce_limited_s": float("inf")}
+        for _ in range(2):  # alternate, keep the best of each
+            t = time.perf_counter()
+            reduce_night(target, table)
+            best["reduce_unlimited_s"] = min(best["reduce_unlimited_s"], time.perf_counter() - t)
+            with limit_blas_threads():
+                t = time.perf_counter()
+                reduce_night(target, table)
+                best["reduce_limited_s"] = min(best["reduce_limited_s"], time.perf_counter() - t)
+        out.update(best)
 
     # Python allocations (numpy buffers included) during one more ingest.
     if trace:
@@ -180,14 +202,32 @@ def probe() -> dict[str, float]:
 # ----------------------------------------------------------------------------- parent
 # The parent never imports varstar (nor numpy, pandas): a child's ru_maxrss starts
 # from its parent's peak at fork, so a small parent keeps the children's figures honest.
-def _cli_ingest(folder: Path, k: int) -> tuple[float, float]:
-    """Wall time and peak RSS of `python -m varstar.cli ingest` in a child process."""
-    arch = folder / f"cli-{k}.h5"
+#: The ingest command run in other ways (``--threads``): label -> (what follows the interpreter, extra environment).
+#: "dispatch.py" calls the command's function without varstar.cli.main (so without any limit main may set),
+#: "limited.py" does the same inside varstar.threads.limit_blas_threads().
+THREAD_VARIANTS = {
+    "as shipped": (["-m", "varstar.cli"], {}),
+    "no thread limit": (["{folder}/dispatch.py"], {}),
+    "OPENBLAS_NUM_THREADS=1": (["-m", "varstar.cli"], {"OPENBLAS_NUM_THREADS": "1"}),
+    "threadpoolctl limit": (["{folder}/limited.py"], {}),
+}
+DISPATCH = ("import sys\nfrom varstar.cli import build_parser\nargs = build_parser().parse_args(sys.argv[1:])\n"
+            "sys.exit(int(args.func(args) or 0))\n")
+LIMITED = ("import sys\nfrom varstar.threads import limit_blas_threads\nfrom varstar.cli import build_parser\n"
+           "args = build_parser().parse_args(sys.argv[1:])\nwith limit_blas_threads():\n    rc = int(args.func(args) or 0)\n"
+           "sys.exit(rc)\n")
+
+
+def _cli_ingest(folder: Path, k: int, runner: list[str] | None = None, env: dict[str, str] | None = None,
+                tag: str = "") -> tuple[float, float]:
+    """Wall time and peak RSS of `python -m varstar.cli ingest` (or ``runner``) in a child process."""
+    arch = folder / f"cli-{k}{tag}.h5"
     subprocess.run([sys.executable, "-m", "varstar.cli", "init", str(arch), str(folder / "target.toml")],
                    env=_env(), check=True, capture_output=True)
-    cmd = [sys.executable, "-m", "varstar.cli", "ingest", str(arch), str(folder / "night.csv"), "--json"]
+    runner = runner or ["-m", "varstar.cli"]
+    cmd = [sys.executable, *[r.format(folder=folder) for r in runner], "ingest", str(arch), str(folder / "night.csv"), "--json"]
     t = time.perf_counter()
-    proc = subprocess.Popen(cmd, env=_env(), stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    proc = subprocess.Popen(cmd, env={**_env(), **(env or {})}, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
     _, status, usage = os.wait4(proc.pid, 0)
     wall = time.perf_counter() - t
     proc.returncode = os.waitstatus_to_exitcode(status)
@@ -218,6 +258,7 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--stars", type=int, default=30)
     ap.add_argument("--seed", type=int, default=0)
     ap.add_argument("--no-tracemalloc", action="store_true", help="skip the (slow) tracemalloc pass")
+    ap.add_argument("--threads", action="store_true", help="also compare BLAS thread limits (see the module notes)")
     ap.add_argument("--worker", type=Path, help=argparse.SUPPRESS)
     ap.add_argument("--probe", action="store_true", help=argparse.SUPPRESS)
     ap.add_argument("--make-inputs", type=Path, help=argparse.SUPPRESS)
@@ -227,7 +268,7 @@ def main(argv: list[str] | None = None) -> int:
         sys.stdout.write(json.dumps(make_inputs(args.make_inputs, args.exposures, args.stars, args.seed)) + "\n")
         return 0
     if args.worker is not None:
-        sys.stdout.write(json.dumps(worker(args.worker, trace=not args.no_tracemalloc)) + "\n")
+        sys.stdout.write(json.dumps(worker(args.worker, trace=not args.no_tracemalloc, threads=args.threads)) + "\n")
         return 0
     if args.probe:
         sys.stdout.write(json.dumps(probe()) + "\n")
@@ -242,10 +283,17 @@ def main(argv: list[str] | None = None) -> int:
             sys.stderr.write(proc.stderr)
             return proc.returncode
         info = json.loads(proc.stdout.strip().splitlines()[-1])
+        (folder / "dispatch.py").write_text(DISPATCH, encoding="utf-8")
+        (folder / "limited.py").write_text(LIMITED, encoding="utf-8")
         runs, probes, cli = [], [], []
+        by_threads: dict[str, list[float]] = {label: [] for label in THREAD_VARIANTS}
         for k in range(args.repeats):
+            if args.threads:
+                for j, (label, (runner, env)) in enumerate(THREAD_VARIANTS.items()):
+                    by_threads[label].append(_cli_ingest(folder, k, runner, env, tag=f"-t{j}")[0])
             for extra, sink in (
-                (["--worker", str(folder)] + (["--no-tracemalloc"] if args.no_tracemalloc else []), runs),
+                (["--worker", str(folder)] + (["--no-tracemalloc"] if args.no_tracemalloc else [])
+                 + (["--threads"] if args.threads else []), runs),
                 (["--probe"], probes),
             ):
                 proc = subprocess.run(me + extra, env=_env(), capture_output=True, text=True)
@@ -296,6 +344,15 @@ def main(argv: list[str] | None = None) -> int:
         f"peak RSS {'meets' if med('rss_peak_mb') < GOAL_RSS_MB else 'MISSES'} the {GOAL_RSS_MB:g} MB goal"
     )
     print("runs (cold ingest s): " + ", ".join(f"{r['ingest_cold_s']:.2f}" for r in runs))
+    if args.threads:
+        base = min(by_threads["no thread limit"])
+        print(f"\nBLAS threads (the machine has {os.cpu_count()} cores; BLAS starts "
+              f"{med('blas_threads_default'):.0f} threads by default): whole 'varstar ingest', best and median of {args.repeats}")
+        for label, walls in by_threads.items():
+            print(f"  {label:28s} best {min(walls):6.2f} s  median {statistics.median(walls):6.2f} s  "
+                  f"= {min(walls) / base:.2f} x no limit")
+        print(f"  warm reduce_night: no limit {med('reduce_unlimited_s'):.3f} s, threadpoolctl limit {med('reduce_limited_s'):.3f} s "
+              f"(= {med('reduce_limited_s') / med('reduce_unlimited_s'):.2f} x)")
     return 0
 
 

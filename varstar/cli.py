@@ -659,10 +659,15 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     from .errors import VarstarError
 
+    from .threads import limit_blas_threads
+
     parser = build_parser()
     args = parser.parse_args(argv)
     try:
-        return int(args.func(args) or 0)
+        # One BLAS thread: the commands solve many small problems, for which threads cost more than
+        # they save (measured: benchmarks/bench_period.py --threads, bench_ingest.py --threads).
+        with limit_blas_threads():
+            return int(args.func(args) or 0)
     except VarstarError as exc:
         sys.stderr.write(f"error: {exc}\n")
         return exc.exit_code

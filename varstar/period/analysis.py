@@ -59,6 +59,7 @@ from varstar.period import (
     significance,
 )
 from varstar.period.refine import MAX_AUTO_HARMONICS
+from varstar.threads import blas_threads
 
 __all__ = ["MAX_PDM_ELEMENTS", "PeriodResult", "analyse", "format_probability"]
 
@@ -470,6 +471,7 @@ def _others_in_band(t, y, dy, t_ref, f_main, k_main, others, group, group_err):
     return extra
 
 
+@blas_threads()  # many small least-squares problems: one BLAS thread is faster (varstar/threads.py)
 def analyse(
     t: Any,
     mag: Any,

@@ -139,8 +139,6 @@ def fap_single(power: np.ndarray | float, n_points: int, *, nterms: int = 1) -> 
     -------
     float or numpy.ndarray
     """
-    from scipy.special import betaincc
-
     k = check_nterms(nterms)
     n_k = n_points - 1 - 2 * k
     if n_k < 1:
@@ -149,12 +147,14 @@ def fap_single(power: np.ndarray | float, n_points: int, *, nterms: int = 1) -> 
     if k == 1:
         out = (1.0 - z) ** (0.5 * n_k)
     else:
+        from scipy.special import betaincc  # only here: importing scipy.special costs a third of a second
+
         out = betaincc(float(k), 0.5 * n_k, z)
     return float(out) if out.ndim == 0 else out
 
 
 def _fap_parts(z: np.ndarray, n: int, fmax: float, var_t: float, k: int) -> np.ndarray:
-    from scipy.special import gammaln
+    gammaln = math.lgamma  # scalar arguments only: the standard library's, no scipy import
 
     n_h = n - 1
     n_k = n_h - 2 * k
