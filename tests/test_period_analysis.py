@@ -163,6 +163,35 @@ def test_pdm_finds_detached_eclipsing_binary_where_sinusoid_fails():
     json.dumps(half.to_dict())
 
 
+def test_pdm_search_within_a_budget_finds_the_whole_grid_minimum():
+    """pdm_search: the whole grid when it fits the budget (equal to pdm_theta); above it, windows
+    around the candidates plus a coarse pass, with the same values where evaluated and the same
+    minimum (simulated detached binary, truth known)."""
+    from varstar.period.pdm import pdm_search
+
+    rng = np.random.default_rng(31)
+    period = 2.7134
+    t = nightly(rng, 50, hours=7)
+    y = detached_eb(t, period) + 0.01 * rng.standard_normal(t.size)
+    dy = np.full(t.size, 0.01)
+    freq = np.arange(0.1, 3.0, 1 / (20 * (t.max() - t.min())))
+    whole = pdm_theta(t, y, dy, freq, n_bins=50)
+    theta, where = pdm_search(t, y, dy, freq, [2 / period], n_bins=50)
+    assert where.startswith("whole grid")
+    np.testing.assert_allclose(theta, whole, rtol=1e-12)
+    # a budget of a tenth of the grid: the sinusoid peak sits at 2/P; its half is the orbit
+    theta, where = pdm_search(t, y, dy, freq, [2 / period], n_bins=50, budget=t.size * freq.size / 10)
+    done = np.isfinite(theta)
+    assert "coarse pass" in where and 0 < done.sum() < freq.size / 2
+    np.testing.assert_allclose(theta[done], whole[done], rtol=1e-9)
+    assert np.nanargmin(theta) == np.argmin(whole)
+    assert abs(freq[np.nanargmin(theta)] - 1 / period) < 2 * (freq[1] - freq[0])  # truth of the simulation
+    # no candidates at all: the coarse pass alone still finds the orbit (or its half)
+    theta, where = pdm_search(t, y, dy, freq, [], n_bins=50, budget=t.size * freq.size / 10)
+    f_best = freq[np.nanargmin(theta)]
+    assert min(abs(f_best - 1 / period), abs(f_best - 2 / period)) < 3 * (freq[1] - freq[0])
+
+
 def test_contact_binary_period_is_twice_the_sinusoid_peak():
     rng = np.random.default_rng(4)
     period = 0.3312

@@ -300,7 +300,7 @@ def test_pdm_restricted_to_candidates_on_long_series_finds_the_same_orbit(monkey
     full = analyse(t, y, 0.01, max_period=10)
     monkeypatch.setattr(analysis, "MAX_PDM_ELEMENTS", t.size * 2000)
     part = analyse(t, y, 0.01, max_period=10)
-    assert full.pdm["evaluated"] == "whole grid" and "coarse pass" in part.pdm["evaluated"]
+    assert full.pdm["evaluated"].startswith("whole grid") and "coarse pass" in part.pdm["evaluated"]
     assert np.isnan(part.theta).any()
     assert part.pdm["best_period"] == pytest.approx(full.pdm["best_period"], rel=1e-9)
     assert part.period == pytest.approx(full.period, rel=1e-9)

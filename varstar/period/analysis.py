@@ -64,9 +64,9 @@ from varstar.threads import blas_threads
 __all__ = ["MAX_PDM_ELEMENTS", "PeriodResult", "analyse", "format_probability"]
 
 #: Above this many (points x frequencies) PDM is evaluated only around the
-#: strongest periodogram peaks and PDM's own coarse minimum (about 5 s of work
-#: on one core; measured with ``benchmarks/bench_period.py``'s sampling).
-MAX_PDM_ELEMENTS = 400_000_000
+#: strongest periodogram peaks and PDM's own coarse minima (the whole grid at the
+#: budget is under a second of work on one core; ``benchmarks/bench_period.py --kernels``).
+MAX_PDM_ELEMENTS = pdm.DEFAULT_BUDGET
 
 #: False-alarm probabilities whose power levels are reported and drawn.
 FAP_LEVELS = (0.1, 0.01, 0.001)
@@ -342,28 +342,6 @@ def _multiband_bootstrap(t, y, dy, band, freq, nterms, n_boot, rng, peak) -> flo
     return float((1 + np.sum(maxima >= peak)) / (1 + n_boot))
 
 
-def _pdm_on_grid(t, y, dy, freq, peaks_idx, n_bins) -> tuple[np.ndarray, str]:
-    """PDM theta on the whole grid, or on windows around candidate peaks when that is too costly."""
-    if t.size * freq.size <= MAX_PDM_ELEMENTS:
-        return pdm.pdm_theta(t, y, dy, freq, n_bins=n_bins), "whole grid"
-    theta = np.full(freq.size, np.nan)
-    # A coarse pass (every k-th frequency) locates PDM's own broad minima, then windows of
-    # +-3 steps around them and around the periodogram's peaks, their halves and doubles.
-    k = int(math.ceil(t.size * freq.size / (MAX_PDM_ELEMENTS / 2)))
-    coarse = np.arange(0, freq.size, k)
-    theta[coarse] = pdm.pdm_theta(t, y, dy, freq[coarse], n_bins=n_bins)
-    best_coarse = coarse[np.argsort(np.nan_to_num(theta[coarse], nan=np.inf))[:10]]
-    df = freq[1] - freq[0] if freq.size > 1 else 1.0
-    centres = [freq[i] * s for i in peaks_idx for s in (1.0, 0.5, 2.0)] + list(freq[best_coarse])
-    window = set()
-    for c in centres:
-        j = int(round((c - freq[0]) / df))
-        window.update(range(max(0, j - max(3, k)), min(freq.size, j + max(3, k) + 1)))
-    w = np.array(sorted(window), dtype=int)
-    theta[w] = pdm.pdm_theta(t, y, dy, freq[w], n_bins=n_bins)
-    return theta, f"coarse pass every {k} frequencies, then near the strongest periodogram peaks and PDM minima"
-
-
 #: Chi-square excess (in units scaled by the best fit's reduced chi2) above which the harmonic
 #: fit at a rival alias is taken as clearly worse: 25 is "5 sigma" for models with equal numbers
 #: of parameters (common practice, no published threshold).
@@ -624,8 +602,8 @@ def analyse(
     rb = band == reference
     tr, yr, dyr = t[rb], y[rb], dy[rb]
     gr, ger = sel(rb)
-    peak_idx = [int(np.argmin(np.abs(freq - p.frequency))) for p in report.peaks]
-    theta, where = _pdm_on_grid(tr, yr, dyr, freq, peak_idx, pdm_bins)
+    theta, where = pdm.pdm_search(tr, yr, dyr, freq, [p.frequency for p in report.peaks], n_bins=pdm_bins,
+                                  budget=MAX_PDM_ELEMENTS)
     j_pdm = int(np.nanargmin(theta))
     f_pdm = float(freq[j_pdm])
 
@@ -666,7 +644,7 @@ def analyse(
         main = refine.fit_harmonics_aic(tr, yr, dyr, f_cand, max_nterms=top, group=gr, group_err=ger)
     else:
         main = refine.fit_harmonics(tr, yr, dyr, f_cand, nterms=top, group=gr, group_err=ger)
-    refined_peaks = {float(freq[peak_idx[0]]): main.frequency} if f_cand == f_peak else {}
+    refined_peaks = {f_peak: main.frequency} if f_cand == f_peak else {}
     pw = prewhiten.prewhiten(
         tr, yr, dyr, freq, lambda tt, yy, ee, ff: gls.gls_power(tt, yy, ee, ff, nterms=1),
         first=main.frequency, first_nterms=main.nterms, group=gr, group_err=ger,
