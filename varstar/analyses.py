@@ -323,11 +323,16 @@ def timings_of_archive(
     times = np.concatenate([before["bjd_tdb"].to_numpy(float), [t.bjd_tdb for t in new]])
     errs = np.concatenate([before["err"].to_numpy(float), [t.err for t in new]])
     cycles, oc = o_minus_c(times, eph, secondary_allowed=eph.kind == "minimum")
-    fit = None
-    if times.size >= 2:
+    fit, fit_note = None, ""
+    n_cycles = int(np.unique(cycles).size)
+    if n_cycles >= 2:
         fit = fit_ephemeris(cycles, times, errs, quadratic="auto", kind=eph.kind)
+    else:  # one night's B and V timings of one extremum: O - C, but no new ephemeris
+        fit_note = (f"no ephemeris fit: {times.size} timing{'s' if times.size != 1 else ''} at {n_cycles} cycle; "
+                    "a fit needs timings at 2 or more distinct cycles")
     if update and fit is None:
-        raise InputError(f"{archive.path}: --update needs at least 2 timings; there are {times.size}")
+        raise InputError(f"{archive.path}: --update needs timings at 2 or more distinct cycles; there "
+                         f"{'are' if times.size != 1 else 'is'} {times.size} at {n_cycles}; nothing stored")
 
     numbers = {"timings": [], "ephemeris": None}
     if store and (new or update):
@@ -386,6 +391,7 @@ def timings_of_archive(
         "n_found_again": len(again),
         "refused": [r.to_dict() for r in refused],
         "fit": None if fit is None else fit.to_dict(),
+        "fit_note": fit_note,
         "updated_ephemeris": None if numbers["ephemeris"] is None else dict(fit.to_ephemeris().to_dict(), entry=numbers["ephemeris"]),
         "stored": bool(store),
     })

@@ -61,7 +61,7 @@ from typing import Any, Literal
 import numpy as np
 
 from .errors import InputError, ReductionError
-from .jsonsafe import json_float as _jf
+from .jsonsafe import json_float as _jf, sd
 
 __all__ = [
     "ASYMMETRY_PVALUE",
@@ -856,7 +856,7 @@ def symmetric_fit(
     jw = jac * w[:, None]
     try:
         cov = np.linalg.inv(jw.T @ jw) * max(1.0, chi2 / dof)
-        formal = math.sqrt(cov[0, 0]) * scale
+        formal = sd(cov[0, 0]) * scale
     except np.linalg.LinAlgError:
         formal = math.nan
     z = (y - model) * w
@@ -1172,7 +1172,7 @@ def template_fit(t: Any, mag: Any, mag_err: Any, template: Any, t_guess: float, 
     shift = float(sol.x[0])
     if abs(shift) > 1.5 * max_shift or not math.isfinite(cov[0, 0]) or sol.x[2] <= 0:
         raise ReductionError("template fit: the fitted shift left the window or the template came out inverted")
-    return TemplateFit(t_guess + shift, float(math.sqrt(cov[0, 0])), float(sol.x[1]), float(sol.x[2]), chi2, dof, int(t.size))
+    return TemplateFit(t_guess + shift, sd(cov[0, 0]), float(sol.x[1]), float(sol.x[2]), chi2, dof, int(t.size))
 
 
 @dataclass(frozen=True)
@@ -1606,7 +1606,7 @@ def _wls(e: np.ndarray, t: np.ndarray, w: np.ndarray, degree: int) -> tuple[Poly
     cov = cov_s * np.outer(scale, scale) * factor
     fit = PolynomialEphemeris(
         coefficients=tuple(float(c) for c in coef),
-        errors=tuple(float(math.sqrt(cov[i, i])) for i in range(degree + 1)),
+        errors=tuple(sd(cov[i, i]) for i in range(degree + 1)),
         covariance=tuple(tuple(float(v) for v in row) for row in cov),
         chi2=chi2,
         dof=dof,

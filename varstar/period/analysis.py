@@ -342,6 +342,31 @@ def _multiband_bootstrap(t, y, dy, band, freq, nterms, n_boot, rng, peak) -> flo
     return float((1 + np.sum(maxima >= peak)) / (1 + n_boot))
 
 
+def _span_words(baseline: float, night: Any) -> str:
+    n_nights = np.unique(np.asarray(night, dtype=str)).size if night is not None else None
+    return f"{baseline:.2f} d" + (f" ({n_nights} night{'s' if n_nights != 1 else ''})" if n_nights else "")
+
+
+def _check_constrained(period: float, period_err: float, baseline: float, night: Any) -> None:
+    """Refuse an adopted period the data cannot support: longer than the light curve, or without an error.
+
+    A period is measured only when at least one whole cycle is observed (common
+    practice); a fit that runs beyond that, or whose covariance gives no finite
+    error, has no answer to report, and a script must not read one.
+    """
+    span = _span_words(baseline, night)
+    if period > baseline:
+        raise InputError(
+            f"period analysis: the best fit wants a period of {period:.4g} d, longer than the light curve's span "
+            f"of {span}: no whole cycle is observed; observe more nights (or over a longer span) and try again"
+        )
+    if not (math.isfinite(period_err) and period_err > 0):
+        raise InputError(
+            f"period analysis: the period {period:.6g} d is not constrained by these data (its error cannot be "
+            f"computed; span {span}): observe more nights, or fix fewer harmonics with --harmonics"
+        )
+
+
 #: Chi-square excess (in units scaled by the best fit's reduced chi2) above which the harmonic
 #: fit at a rival alias is taken as clearly worse: 25 is "5 sigma" for models with equal numbers
 #: of parameters (common practice, no published threshold).
@@ -567,8 +592,7 @@ def analyse(
     i_best = int(np.nanargmax(power))
     f_peak, p_peak = float(freq[i_best]), float(power[i_best])
     if i_best in (0, freq.size - 1):
-        n_nights = np.unique(np.asarray(night, dtype=str)).size if night is not None else None
-        span = f"{baseline:.2f} d" + (f" ({n_nights} night{'s' if n_nights != 1 else ''})" if n_nights else "")
+        span = _span_words(baseline, night)
         if i_best == 0:
             raise InputError(
                 f"period analysis: the periodogram rises to the longest period searched ({1 / f_peak:.4g} d) "
@@ -730,6 +754,7 @@ def analyse(
         frequency, frequency_err = float(per_band[reference].frequency), float(per_band[reference].frequency_err)
     period = 1.0 / frequency
     period_err = frequency_err / frequency**2
+    _check_constrained(period, period_err, baseline, night)
     ref = fits[reference]
     if templates:
         tpl = templates[reference]

@@ -45,6 +45,7 @@ from typing import Any, Callable
 import numpy as np
 
 from varstar.errors import InputError, ReductionError
+from varstar.jsonsafe import sd
 from varstar.period import gls
 from varstar.period.nightly import nightly_whitener
 from varstar.period.refine import (
@@ -445,7 +446,7 @@ def prewhiten(
         gp = np.zeros(p.size)
         ga[base + 1 : base + 3] = g_a
         gp[base + 1 : base + 3] = g_p
-        f_err = math.sqrt(cov[base, base])
+        f_err = sd(cov[base, base])
         noise = _noise(t, fit.resid, dy, f_i, noise_window, step)
         harm = tuple(
             float(math.hypot(p[base + 1 + 2 * k], p[base + 2 + 2 * k])) for k in range(nt)
@@ -471,7 +472,7 @@ def prewhiten(
     return PrewhiteningResult(
         frequencies=tuple(found),
         mean_mag=float(p[0]),
-        mean_mag_err=math.sqrt(cov[0, 0]),
+        mean_mag_err=sd(cov[0, 0]),
         t_ref=t_ref,
         nterms=tuple(terms),
         chi2=fit.chi2,

@@ -47,7 +47,7 @@ from typing import Any
 import numpy as np
 
 from varstar.errors import InputError, ReductionError
-from varstar.jsonsafe import json_float as _jf
+from varstar.jsonsafe import json_float as _jf, sd
 from varstar.period.nightly import NightlyWhitener, nightly_whitener
 
 TWO_PI = 2.0 * math.pi
@@ -165,6 +165,12 @@ class _Fit:
     message: str
 
 
+#: Singular-value ratio below which a design matrix counts as rank deficient (about
+#: 1e4 times the double-precision epsilon: a fit that loses more digits than that has no
+#: meaningful amplitudes; common practice for a numerical rank).
+_RCOND = 1e-12
+
+
 def _linear_start(y, tau, freqs, nterms, whiten: NightlyWhitener) -> np.ndarray:
     """Amplitudes and mean by (generalised) linear least squares at fixed frequencies."""
     n_freq = len(freqs)
@@ -174,7 +180,13 @@ def _linear_start(y, tau, freqs, nterms, whiten: NightlyWhitener) -> np.ndarray:
     _, jac = _model_jac(p, tau, n_freq, nterms)
     lin = np.ones(p.size, dtype=bool)
     lin[fidx] = False
-    coef, *_ = np.linalg.lstsq(whiten(jac[:, lin]), whiten(y), rcond=None)
+    coef, _, rank, sv = np.linalg.lstsq(whiten(jac[:, lin]), whiten(y), rcond=None)
+    if rank < lin.sum() or sv[-1] < _RCOND * sv[0]:
+        raise ReductionError(
+            f"harmonic fit: the sampling cannot separate {int(lin.sum()) - 1} sine and cosine terms "
+            f"({n_freq} frequenc{'y' if n_freq == 1 else 'ies'}, {max(_terms(n_freq, nterms))} harmonics at most): "
+            "too few phases covered; use fewer harmonics or more data"
+        )
     p[lin] = coef
     return p
 
@@ -266,7 +278,13 @@ def _fit_sinusoids(
     success, message = True, "linear fit at fixed frequency"
     fidx = _bases(_terms(n_freq, nterms))
     if refine:
-        p, success, message = _variable_projection(y, tau, p, n_freq, nterms, whiten)
+        try:
+            p, success, message = _variable_projection(y, tau, p, n_freq, nterms, whiten)
+        except np.linalg.LinAlgError as exc:  # the frequency ran where the harmonics coincide
+            raise ReductionError(
+                "harmonic fit: the normal matrix became singular while refining the frequency; the sampling "
+                "cannot separate these frequencies/harmonics (too few phases covered?)"
+            ) from exc
     model, jm = _model_jac(p, tau, n_freq, nterms)
     resid = y - model
     chi2 = float(np.sum(whiten(resid) ** 2))
@@ -278,7 +296,7 @@ def _fit_sinusoids(
     fisher = jw.T @ jw
     try:
         cov_free = np.linalg.inv(fisher)
-    except np.linalg.LinAlgError as exc:  # pragma: no cover - degenerate sampling
+    except np.linalg.LinAlgError as exc:  # degenerate sampling
         raise ReductionError(
             "harmonic fit: the normal matrix is singular; the sampling cannot separate "
             "these frequencies/harmonics (too few phases covered?)"
@@ -345,8 +363,7 @@ def _extremum_grad(x: float, a: np.ndarray, b: np.ndarray) -> tuple[float, np.nd
 
 
 def _err(g: np.ndarray, cov: np.ndarray) -> float:
-    v = float(g @ cov @ g)
-    return math.sqrt(v) if v >= 0 else float("nan")
+    return sd(g @ cov @ g)
 
 
 def _wrap(x: float) -> float:
@@ -552,7 +569,7 @@ def fit_harmonics(
             f"the frequency moved from {frequency:.6f} to {f:.6f} c/d, more than half the "
             f"resolution 1/T = {1 / baseline:.6f} c/d: the fit may have left the starting peak"
         )
-    f_err = math.sqrt(cov[1, 1]) if refine else float("nan")
+    f_err = sd(cov[1, 1]) if refine else float("nan")
 
     a = p[2::2].copy()
     b = p[3::2].copy()
@@ -611,7 +628,7 @@ def fit_harmonics(
         period_err=f_err / f**2,
         t_ref=t_ref,
         mean_mag=float(p[0]),
-        mean_mag_err=math.sqrt(cov[0, 0]),
+        mean_mag_err=sd(cov[0, 0]),
         nterms=nterms,
         amplitudes=tuple(float(v) for v in amps),
         amplitude_errs=tuple(float(v) for v in amp_errs),

@@ -146,7 +146,7 @@ from scipy.optimize import brentq
 from scipy.signal import find_peaks, peak_prominences
 
 from varstar.errors import InputError, ReductionError
-from varstar.jsonsafe import json_float as _jf
+from varstar.jsonsafe import json_float as _jf, sd
 from varstar.period.nightly import nightly_whitener
 from varstar.period.refine import _check_series
 
@@ -937,7 +937,7 @@ class _Errors:
         if not np.all(np.isfinite(g)):
             return float("nan")
         var = max(self.model_var(g), self.sandwich_var(g))
-        return math.sqrt(var) if var >= 0 else float("nan")
+        return sd(var)
 
 
 # --------------------------------------------------------------------------- result
