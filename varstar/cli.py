@@ -422,6 +422,8 @@ def format_timings(d: dict[str, Any]) -> str:
                      f"+ ({fit['period']:.8f} ± {_fmt(fit['period_err'], '.8f')}) E{q}; chi2 {fit['chi2']:.1f} for {fit['dof']} dof")
         if fit["note"]:
             lines.append(f"  {fit['note']}")
+    elif d["fit_note"]:
+        lines.append(d["fit_note"])
     if d["updated_ephemeris"]:
         lines.append(f"the fitted ephemeris is now the archive's ephemeris (entry {d['updated_ephemeris']['entry']}; older entries kept)")
     return "\n".join(lines)
