@@ -147,3 +147,40 @@ def test_probabilities_below_the_floor_are_an_upper_bound():
     assert best["relation"] == "best" and best["period_refined"]
     assert best["period"] == pytest.approx(d["period"], rel=1e-6)
     assert abs(best["grid_period"] - d["period"]) > 0  # the grid value is kept apart
+
+
+def test_frequencies_of_nightly_systematics_are_named():
+    """Whole cycles per day plus whole cycles per year: the window of single-site data
+    (common practice); one sidereal day is 1 c/d + 1 c/yr."""
+    from varstar.period.prewhiten import _systematics
+
+    tol = 1 / 3650.0  # a ten-year series' peak width
+    assert _systematics(3 + 1 / 365.25, tol) == "3 c/d + 1 c/yr (nightly systematics?)"
+    assert _systematics(2 * 1.0027379, tol).startswith("2 c/d + 2 c/yr")
+    assert _systematics(1.0, tol).startswith("1 c/d (")
+    assert _systematics(1 / 0.5731, tol) == "" and _systematics(2.68, tol) == ""
+    assert _systematics(3 + 0.5 / 365.25, tol) == ""  # between the sidebands of a long series
+
+
+@pytest.mark.slow
+def test_airmass_systematics_do_not_make_a_star_multiperiodic():
+    """A single-mode pulsator over three seasons with an error that follows the airmass (the
+    hour angle repeats each sidereal day): the residual search finds the systematics at whole
+    cycles per day and year and names them; the star stays single-period (simulated truth)."""
+    rng = np.random.default_rng(41)
+    f0 = 1 / 0.5731
+    nights = np.arange(0, 3 * 365)
+    nights = nights[np.cos(TWO_PI * nights / 365.25) > -0.3]  # an observing season each year
+    nights = nights[rng.random(nights.size) < 0.3]  # clear nights
+    t = np.concatenate([n + 0.3 + np.arange(0, 0.3, 0.004) for n in nights]) + T_START
+    hour_angle = TWO_PI * (1.0027379 * (t - T_START) % 1.0) - math.pi  # star's transit at 0
+    keep = np.abs(hour_angle) < 1.3
+    t, hour_angle = t[keep], hour_angle[keep]
+    airmass = 1 / (0.3 + 0.7 * np.cos(hour_angle))  # an invented site and declination
+    y = harmonic_curve(t, f0, [0.25, 0.1, 0.05, 0.02], [0.0, 1.0, 2.0, 3.0], T_START)
+    y = y + 0.02 * (airmass - 1.5) + rng.normal(0, 0.01, t.size)
+    r = analyse(t, y, 0.01, max_period=5)
+    d = r.to_dict()
+    assert abs(r.frequency - f0) < 4 * r.frequency_err
+    assert any("nightly systematics" in f["relation"] for f in d["frequencies"][1:])
+    assert not r.multiperiodic and "single period" in r.modes_note

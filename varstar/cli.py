@@ -42,6 +42,15 @@ def _fmt(v: float | None, spec: str = ".3f") -> str:
     return "n/a" if v is None or v != v else format(v, spec)
 
 
+def _pm(v: float | None, err: float | None, decimals: int) -> str:
+    """``"v ± err"`` with at least ``decimals`` decimals and enough for two significant digits of ``err``."""
+    import math
+
+    if err is not None and err == err and 0 < err < math.inf:
+        decimals = max(decimals, 1 - math.floor(math.log10(err)))
+    return f"{_fmt(v, f'.{decimals}f')} ± {_fmt(err, f'.{decimals}f')}"
+
+
 def format_night_report(rep: dict[str, Any]) -> str:
     """A short, readable night summary for the terminal."""
     lines = [
@@ -307,13 +316,13 @@ def format_period(d: dict[str, Any]) -> str:
     """The adopted period first; every other number labelled for what it is."""
     main = d["frequencies"][0]
     lines = [
-        f"{d['star']}: period {d['period']:.7f} ± {_fmt(d['period_err'], '.7f')} d (adopted; "
-        f"frequency {d['frequency']:.6f} ± {_fmt(d['frequency_err'], '.6f')} c/d)",
+        f"{d['star']}: period {_pm(d['period'], d['period_err'], 7)} d (adopted; "
+        f"frequency {_pm(d['frequency'], d['frequency_err'], 6)} c/d)",
         f"  refined by: {d['period_method']}",
         f"  errors: {d['errors']}",
         f"  data: {d['n_points']} points in {', '.join(d['bands'])} over {d['baseline_days']:.1f} d, "
         f"{len(d['nights'])} nights",
-        f"  epoch of {d['epoch_kind']} light {_fmt(d['epoch'], '.5f')} ± {_fmt(d['epoch_err'], '.5f')} BJD_TDB; "
+        f"  epoch of {d['epoch_kind']} light {_pm(d['epoch'], d['epoch_err'], 5)} BJD_TDB; "
         f"amplitude {_fmt(d['amplitude'])}" + (f" ± {_fmt(d['amplitude_err'])}" if d.get("amplitude_err") is not None else "")
         + f" mag peak to peak ({d['reference_band'] or 'one band'})",
         f"  {d['modes_note']}",
@@ -322,8 +331,8 @@ def format_period(d: dict[str, Any]) -> str:
         lines.append("  frequencies of the model:")
         for f in d["frequencies"]:
             rel = f" = {f['relation']}" if f.get("relation") else ""
-            lines.append(f"    {f['label']}: f = {f['frequency']:.6f} ± {_fmt(f['frequency_err'], '.6f')} c/d "
-                         f"(P = {f['period']:.7f} ± {_fmt(f['period_err'], '.7f')} d), amplitude "
+            lines.append(f"    {f['label']}: f = {_pm(f['frequency'], f['frequency_err'], 6)} c/d "
+                         f"(P = {_pm(f['period'], f['period_err'], 7)} d), amplitude "
                          f"{_fmt(f['amplitude'], '.4f')} mag, S/N {_fmt(f['snr'], '.1f')}{rel}")
     else:
         lines.append(f"  main frequency: amplitude {_fmt(main['amplitude'], '.4f')} mag (first harmonic), "

@@ -430,10 +430,19 @@ def _eclipse_like(fit: refine.HarmonicFit) -> bool:
 def _modes_note(frequencies: list[dict[str, Any]]) -> tuple[bool, str]:
     """Whether further independent frequencies exist, and the modes in words."""
     independent = [f for f in frequencies[1:] if not f["relation"]]
+    nightly = [f for f in frequencies[1:] if prewhiten.SYSTEMATICS in f["relation"]]
+    n_comb = len(frequencies) - 1 - len(independent) - len(nightly)
+    notes = []
+    if n_comb:
+        notes.append(f"{n_comb} further frequenc{'y is a combination' if n_comb == 1 else 'ies are combinations'} "
+                     "of the modes")
+    if nightly:
+        notes.append(
+            f"{len(nightly)} at whole cycles per day and year ({', '.join(f['relation'].split(' (')[0] for f in nightly)}), "
+            "where errors that follow the night (extinction, airmass) appear: fitted, not counted as modes"
+        )
     if not independent:
-        extra = len(frequencies) - 1
-        return False, ("single period" if extra == 0 else
-                       f"single period; {extra} further frequenc{'y is a combination' if extra == 1 else 'ies are combinations'} of it")
+        return False, "; ".join(["single period", *notes])
     f1 = frequencies[0]
     parts = []
     for f in independent:
@@ -444,7 +453,7 @@ def _modes_note(frequencies: list[dict[str, Any]]) -> tuple[bool, str]:
             f"{f['label']} at P = {f['period']:.7g} d (amplitude {f['amplitude']:.3g} mag, S/N {f['snr']:.1f}); "
             f"period ratio {ratio:.4f}" + (f", which matches {match}" if match else "")
         )
-    return True, f"multi-periodic: besides f1 (P = {f1['period']:.7g} d), " + "; ".join(parts)
+    return True, "; ".join([f"multi-periodic: besides f1 (P = {f1['period']:.7g} d), " + "; ".join(parts), *notes])
 
 
 def _frequency_entry(label, f, f_err, amp, amp_err, snr, relation) -> dict[str, Any]:

@@ -39,6 +39,7 @@ the final simultaneous fit, its covariance scaled by chi2/dof as in
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass, field
 from typing import Any, Callable
 
@@ -218,8 +219,33 @@ class PrewhiteningResult:
         }
 
 
+#: A year in days: the seasonal sidebands of nightly systematics lie at multiples of 1/YEAR_D c/d.
+YEAR_D = 365.25
+
+#: Marks a frequency that sits where nightly systematics show (see :func:`_relations`).
+SYSTEMATICS = "nightly systematics?"
+
+
+def _systematics(f: float, tol: float) -> str:
+    """``"n c/d + m c/yr (nightly systematics?)"`` when ``f`` lies within ``tol`` of such a frequency.
+
+    Errors that follow the hour angle or the airmass through each night (extinction,
+    a colour term, flat-field drift) repeat with the solar or sidereal day, and their
+    slow seasonal change adds sidebands at whole cycles per year: they appear at
+    ``n c/d + m c/yr`` (one sidereal day is 1 c/d + 1 c/yr), and a residual search of a
+    long series finds them (common practice: the window function of single-site data).
+    """
+    for n in range(1, 7):
+        m = round((f - n) * YEAR_D)
+        if abs(m) <= n + 1 and abs(f - n - m / YEAR_D) <= tol:
+            side = "" if m == 0 else f" {'+' if m > 0 else '-'} {abs(m)} c/yr"
+            return f"{n} c/d{side} ({SYSTEMATICS})"
+    return ""
+
+
 def _relations(freqs: np.ndarray, tol: float) -> list[str]:
-    """Per frequency: a harmonic or two-term combination of earlier (stronger) ones, or ''."""
+    """Per frequency: a harmonic or two-term combination of earlier (stronger) ones, a frequency
+    of nightly systematics (whole cycles per day and per year, :func:`_systematics`), or ''."""
     out = []
     for j, fj in enumerate(freqs):
         rel, best = "", math.inf
@@ -236,7 +262,9 @@ def _relations(freqs: np.ndarray, tol: float) -> list[str]:
                 d = abs(fj - (freqs[hi] - freqs[lo])) / (2 * tol)
                 if d <= 1 and d < best:
                     rel, best = f"f{hi + 1} - f{lo + 1}", d
-        out.append(rel)
+        if rel and any(SYSTEMATICS in out[int(i) - 1] for i in re.findall(r"f(\d+)", rel)):
+            rel += f" ({SYSTEMATICS})"  # a harmonic or combination of systematics is systematics
+        out.append(rel or (_systematics(float(fj), tol) if j > 0 else ""))
     return out
 
 
@@ -427,9 +455,9 @@ def prewhiten(
             break
         if not trial.success:
             warnings.append(f"fit with {k_new + 1} frequencies: solver did not report convergence ({trial.message})")
-        if abs(f_fit - f_new) > 0.5 / baseline:
+        if abs(f_fit - f_best) > 0.5 / baseline:
             warnings.append(
-                f"f{k_new + 1} moved from the peak at {f_new:.6f} to {f_fit:.6f} c/d during the fit"
+                f"f{k_new + 1} moved from the peak at {f_best:.6f} to {f_fit:.6f} c/d during the fit"
             )
         fit = trial
         terms = list(new_terms)
