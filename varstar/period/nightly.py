@@ -84,7 +84,11 @@ class NightlyWhitener:
             n = self._group.size
             self._indicator = csr_matrix((self._w, (self._group, np.arange(n))), shape=(self._c2.size, n))
         sums = self._indicator @ x  # per night: sum of w x, for every column at once
-        return self._sw[:, None] * (x - self._beta_i[:, None] * sums[self._group])
+        out = sums[self._group]  # in place from here: these matrices are large (N x P)
+        out *= -self._beta_i[:, None]
+        out += x
+        out *= self._sw[:, None]
+        return out
 
     def without_offsets(self, resid: np.ndarray) -> np.ndarray:
         """Residuals with each night's estimated offset (:meth:`offsets`) removed."""

@@ -419,7 +419,7 @@ def prewhiten(
         for f_try in f_new + aliases_cpd[f_new + aliases_cpd > 0]:  # aliases may lie beyond the grid
             try:  # compared at fixed frequencies (linear fits), the winner refined below
                 cand = _fit_sinusoids(t, y, dy, np.append(accepted, f_try), new_terms, t_ref, whiten=whiten,
-                                      refine=aliases_cpd.size == 1)
+                                      refine=aliases_cpd.size == 1, covariance=aliases_cpd.size == 1)
             except ReductionError as exc:  # degenerate sampling for this set: reported as the stop reason
                 if f_try == f_new:
                     stop.update(reason=f"the fit with the candidate at {f_new:.6f} c/d failed: {exc}", f=f_new)

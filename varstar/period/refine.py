@@ -165,29 +165,64 @@ class _Fit:
     message: str
 
 
-#: Singular-value ratio below which a design matrix counts as rank deficient (about
-#: 1e4 times the double-precision epsilon: a fit that loses more digits than that has no
-#: meaningful amplitudes; common practice for a numerical rank).
-_RCOND = 1e-12
+#: Eigenvalue ratio of the column-scaled normal matrix below which a design counts as
+#: rank deficient: singular values below 1e-7 of the largest, amplitudes that lose
+#: seven digits to the sampling have no meaning (common practice for a numerical rank).
+_RCOND = 1e-14
+
+
+def _design(tau: np.ndarray, freqs: np.ndarray, terms: tuple[int, ...]) -> np.ndarray:
+    """The linear columns of the model, ``[1, cos x, sin x, ..., cos Kx, sin Kx]`` per frequency
+    (``x = 2 pi f tau``), in the order of the linear parameters."""
+    out = np.empty((tau.size, 1 + 2 * sum(terms)))
+    out[:, 0] = 1.0
+    col = 1
+    for f, nt in zip(freqs, terms):
+        # e^{i k x} as powers of e^{i x}: one complex exponential per point (see _model_jac)
+        z = np.cumprod(np.broadcast_to(np.exp(1j * (TWO_PI * f * tau))[:, None], (tau.size, nt)), axis=1)
+        out[:, col : col + 2 * nt : 2] = z.real
+        out[:, col + 1 : col + 2 * nt : 2] = z.imag
+        col += 2 * nt
+    return out
+
+
+def _solve_linear(a_mat: np.ndarray, wy: np.ndarray, n_freq: int, terms: tuple[int, ...]):
+    """Normal matrix and solution of the whitened linear least squares ``a_mat beta = wy``.
+
+    Refuses a rank-deficient design (the sampling does not separate the harmonics):
+    the smallest eigenvalue of the column-scaled normal matrix below ``_RCOND`` of the
+    largest, i.e. singular values below its square root.
+    """
+    gram = a_mat.T @ a_mat
+    scale = 1.0 / np.sqrt(np.maximum(np.diag(gram), 1e-300))
+    ev = np.linalg.eigvalsh(gram * np.outer(scale, scale))
+    if not ev[0] > _RCOND * ev[-1]:
+        raise ReductionError(
+            f"harmonic fit: the sampling cannot separate {a_mat.shape[1] - 1} sine and cosine terms "
+            f"({n_freq} frequenc{'y' if n_freq == 1 else 'ies'}, {max(terms)} harmonics at most): "
+            "too few phases covered; use fewer harmonics or more data"
+        )
+    return gram, np.linalg.solve(gram, a_mat.T @ wy)
+
+
+def _solve_lower(low: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Forward substitution ``low x = b`` (numpy has no triangular solver; the matrices are small)."""
+    x = np.empty_like(b)
+    for i in range(b.size):
+        x[i] = (b[i] - low[i, :i] @ x[:i]) / low[i, i]
+    return x
 
 
 def _linear_start(y, tau, freqs, nterms, whiten: NightlyWhitener) -> np.ndarray:
     """Amplitudes and mean by (generalised) linear least squares at fixed frequencies."""
     n_freq = len(freqs)
+    terms = _terms(n_freq, nterms)
     p = np.zeros(_n_params(n_freq, nterms))
-    fidx = _bases(_terms(n_freq, nterms))
+    fidx = _bases(terms)
     p[fidx] = freqs
-    _, jac = _model_jac(p, tau, n_freq, nterms)
     lin = np.ones(p.size, dtype=bool)
     lin[fidx] = False
-    coef, _, rank, sv = np.linalg.lstsq(whiten(jac[:, lin]), whiten(y), rcond=None)
-    if rank < lin.sum() or sv[-1] < _RCOND * sv[0]:
-        raise ReductionError(
-            f"harmonic fit: the sampling cannot separate {int(lin.sum()) - 1} sine and cosine terms "
-            f"({n_freq} frequenc{'y' if n_freq == 1 else 'ies'}, {max(_terms(n_freq, nterms))} harmonics at most): "
-            "too few phases covered; use fewer harmonics or more data"
-        )
-    p[lin] = coef
+    _, p[lin] = _solve_linear(whiten(_design(tau, np.asarray(freqs, dtype=float), terms)), whiten(y), n_freq, terms)
     return p
 
 
@@ -196,51 +231,65 @@ def _variable_projection(y, tau, p, n_freq, nterms, whiten) -> tuple[np.ndarray,
 
     The model is linear in the mean and amplitudes and non-linear only in the few
     frequencies: variable projection (Golub & Pereyra 1973) minimises the residual of
-    the linear solution as a function of the frequencies, with Kaufman's (1975)
-    Jacobian ``-(I - Q Q^T) L dmodel/df``.  A handful of small Levenberg-Marquardt steps
-    instead of steps in all 2K+2 parameters: the same minimum, several times faster
-    for many harmonics (scipy's least_squares on the frequencies alone).
+    the linear solution as a function of the frequencies.  Each step is Gauss-Newton
+    with Kaufman's (1975) Jacobian ``J = -(I - P) L dmodel/df`` (``P`` the projection on
+    the whitened linear columns), written with normal matrices: with ``A = L X`` and
+    ``D = L dmodel/df``, ``J^T J = D^T D - D^T A (A^T A)^-1 A^T D`` and ``J^T r = -D^T r``
+    (``r`` is orthogonal to ``A``).  One pass over the points per step (matrix products,
+    no factorisation of an N-row matrix), and a step is halved while it does not lower
+    chi-square.  Written here rather than with scipy's least_squares because its
+    Levenberg-Marquardt needs the N x F Jacobian through a QR of the N x P columns at
+    every evaluation, several times the cost (``benchmarks/bench_period.py``).
     """
-    from scipy.optimize import least_squares
-
     terms = _terms(n_freq, nterms)
     fidx = _bases(terms)
     lin = np.ones(p.size, dtype=bool)
     lin[fidx] = False
     wy = whiten(y)
-    cache: dict[str, Any] = {}
+    two_pi_tau = TWO_PI * tau
 
-    def evaluate(fr: np.ndarray) -> None:
-        if cache.get("x") is not None and np.array_equal(cache["x"], fr):
-            return
+    def state(fr):
         q = p.copy()
         q[fidx] = fr
-        _, jm = _model_jac(q, tau, n_freq, terms)
-        qa, ra = np.linalg.qr(whiten(jm[:, lin]))
-        beta = np.linalg.solve(ra, qa.T @ wy)
+        x = _design(tau, fr, terms)
+        a_mat = whiten(x)
+        gram, beta = _solve_linear(a_mat, wy, n_freq, terms)
         q[lin] = beta
-        resid = wy - qa @ (qa.T @ wy)
-        dcols = np.empty((tau.size, n_freq))
-        for i, (base, nt) in enumerate(zip(fidx, terms)):
+        r = wy - a_mat @ beta
+        d = np.empty((tau.size, n_freq))
+        col = 1
+        for i, nt in enumerate(terms):  # d model / d f_i = 2 pi tau sum k (b_k cos kx - a_k sin kx)
             k = np.arange(1, nt + 1, dtype=float)
-            c, s = jm[:, base + 1 : base + 1 + 2 * nt : 2], jm[:, base + 2 : base + 2 + 2 * nt : 2]
-            a, b = q[base + 1 : base + 1 + 2 * nt : 2], q[base + 2 : base + 2 + 2 * nt : 2]
-            dcols[:, i] = TWO_PI * tau * (c @ (k * b) - s @ (k * a))
-        jf = whiten(dcols)
-        jf -= qa @ (qa.T @ jf)
-        cache.update(x=fr.copy(), q=q, resid=resid, jac=-jf)
+            ab = beta[col : col + 2 * nt]
+            d[:, i] = two_pi_tau * (x[:, col : col + 2 * nt : 2] @ (k * ab[1::2]) - x[:, col + 1 : col + 2 * nt : 2] @ (k * ab[0::2]))
+            col += 2 * nt
+        return q, r, float(r @ r), a_mat, gram, whiten(d)
 
-    def fun(fr):
-        evaluate(fr)
-        return cache["resid"]
-
-    def jac(fr):
-        evaluate(fr)
-        return cache["jac"]
-
-    res = least_squares(fun, p[fidx].copy(), jac=jac, method="lm", x_scale="jac", xtol=1e-13, ftol=1e-13, gtol=1e-13)
-    evaluate(res.x)
-    return cache["q"].copy(), bool(res.success), str(res.message)
+    fr = p[fidx].copy()
+    q, r, chi2, a_mat, gram, d = state(fr)
+    for iteration in range(50):
+        ad = a_mat.T @ d
+        jtj = d.T @ d - ad.T @ np.linalg.solve(gram, ad)
+        try:
+            step = np.linalg.solve(jtj, d.T @ r)
+        except np.linalg.LinAlgError:
+            return q, False, "the frequencies are not constrained (singular normal matrix)"
+        # stop when the step is far below the frequencies' own errors
+        sigma = np.sqrt(np.abs(np.diag(np.linalg.inv(jtj))) * max(chi2, 1e-300) / max(tau.size - p.size, 1))
+        for _ in range(30):
+            new = state(fr + step)
+            if new[2] <= chi2:
+                break
+            step = 0.5 * step
+        else:
+            return q, True, f"converged (no step lowers chi-square; {iteration} steps)"
+        fr = fr + step
+        q, r, chi2_new, a_mat, gram, d = new
+        small = np.all(np.abs(step) <= 1e-6 * sigma)
+        chi2, settled = chi2_new, (chi2 - chi2_new) <= 1e-12 * chi2
+        if small or settled:
+            return q, True, f"converged in {iteration + 1} Gauss-Newton steps"
+    return q, False, "no convergence in 50 Gauss-Newton steps"
 
 
 def _fit_sinusoids(
@@ -254,8 +303,12 @@ def _fit_sinusoids(
     refine: bool = True,
     p0: np.ndarray | None = None,
     whiten: NightlyWhitener | None = None,
+    covariance: bool = True,
 ) -> _Fit:
     """Weighted (non-)linear least squares of the multi-frequency harmonic model.
+
+    ``covariance=False`` skips the covariance (``cov`` is then empty): for fits
+    compared by chi-square alone.
 
     The covariance is always scaled by chi2/dof (see the module docstring).  With
     ``refine=False`` the frequencies are held fixed and their rows/columns of the
@@ -285,13 +338,15 @@ def _fit_sinusoids(
                 "harmonic fit: the normal matrix became singular while refining the frequency; the sampling "
                 "cannot separate these frequencies/harmonics (too few phases covered?)"
             ) from exc
-    model, jm = _model_jac(p, tau, n_freq, nterms)
+    model, jm = _model_jac(p, tau, n_freq, nterms, want_jac=covariance)
     resid = y - model
     chi2 = float(np.sum(whiten(resid) ** 2))
     free = np.ones(n_par, dtype=bool)
     if not refine:
         free[fidx] = False
     dof = int(t.size - free.sum())
+    if not covariance:
+        return _Fit(p, np.zeros((0, 0)), chi2, dof, resid, success, message)
     jw = whiten(jm[:, free])
     fisher = jw.T @ jw
     try:
@@ -703,13 +758,17 @@ def fit_harmonics_aic(
     top = max(int(min_nterms), min(int(max_nterms), (t.size - 3) // 2))
     start = fit_harmonics(t, y, dy, frequency, nterms=min(max(3, int(min_nterms)), top), group=group, group_err=group_err)
     whiten = nightly_whitener(dy, group, group_err)
-    p = np.zeros(_n_params(1, top))
-    p[1] = start.frequency
-    _, design = _model_jac(p, t - start.t_ref, 1, top)
-    cols = np.concatenate(([0], np.arange(2, p.size)))  # mean, then cos/sin of each harmonic in order
-    q, _ = np.linalg.qr(whiten(design[:, cols]))
-    proj = q.T @ whiten(y)
-    total = float(np.sum(whiten(y) ** 2))
+    # Nested least squares by one Cholesky factor R of the normal matrix (R is the R of a QR of
+    # the whitened design): the chi-square with the first j columns is |Ly|^2 - |z[:j]|^2,
+    # z = R^-T A^T L y.  One pass over the points instead of a QR of the N-row matrix.
+    a_mat = whiten(_design(t - start.t_ref, np.array([start.frequency]), (top,)))
+    wy = whiten(y)
+    try:
+        chol = np.linalg.cholesky(a_mat.T @ a_mat)
+    except np.linalg.LinAlgError:  # the sampling does not separate the top harmonics: keep the start
+        return start
+    proj = _solve_lower(chol, a_mat.T @ wy)
+    total = float(wy @ wy)
     best_k, best_aic = int(min_nterms), np.inf
     for k in range(int(min_nterms), top + 1):
         chi2 = total - float(np.sum(proj[: 1 + 2 * k] ** 2))
