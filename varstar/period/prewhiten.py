@@ -54,6 +54,7 @@ from varstar.period.refine import (
     _bases,
     _check_freq,
     _check_series,
+    _design,
     _err,
     _fit_sinusoids,
     _jf,
@@ -268,6 +269,34 @@ def _relations(freqs: np.ndarray, tol: float) -> list[str]:
     return out
 
 
+def _best_alias(tau, y, whiten, accepted, terms, nterms, trials) -> float:
+    """The trial frequency whose harmonics, added at fixed frequencies to the current model,
+    lower chi-square the most.
+
+    The chi-square drop of added columns ``B`` to a least-squares fit on columns ``A``
+    with residual ``r`` is ``u^T S^-1 u`` with ``u = B^T r`` and the Schur complement
+    ``S = B^T B - B^T A (A^T A)^-1 A^T B`` (the same as refitting everything, from products
+    with the few new columns only; common linear algebra).
+    """
+    a_mat = whiten(_design(tau, np.asarray(accepted, dtype=float), terms))
+    wy = whiten(y)
+    gram = a_mat.T @ a_mat
+    r = wy - a_mat @ np.linalg.solve(gram, a_mat.T @ wy)
+    best, drop = float(trials[0]), -np.inf
+    for f_try in trials:
+        b_mat = whiten(_design(tau, np.array([f_try]), (nterms,))[:, 1:])
+        ab = a_mat.T @ b_mat
+        schur = b_mat.T @ b_mat - ab.T @ np.linalg.solve(gram, ab)
+        u = b_mat.T @ r
+        try:
+            d = float(u @ np.linalg.solve(schur, u))
+        except np.linalg.LinAlgError:  # the sampling cannot tell this trial from the model
+            continue
+        if d > drop:
+            best, drop = float(f_try), d
+    return best
+
+
 def prewhiten(
     t: Any,
     y: Any,
@@ -410,24 +439,20 @@ def prewhiten(
 
             fap = float(fap_baluev(float(power[i_new]), freq, t, dy, nterms=1))
         new_terms = tuple(terms) + (nterms,)
-        trial = None
         # The residual peak and its daily aliases: with single-site nights the noise can lift
-        # an alias above the true peak, so each is fitted with the whole model and the one
-        # with the smallest chi-square is taken (common practice: aliases are told apart by
-        # the fit, not by the periodogram alone).
+        # an alias above the true peak, so each is added to the whole model (at fixed
+        # frequencies) and the one with the smallest chi-square is taken, then refined
+        # (common practice: aliases are told apart by the fit, not by the periodogram alone).
         f_best = f_new
-        for f_try in f_new + aliases_cpd[f_new + aliases_cpd > 0]:  # aliases may lie beyond the grid
-            try:  # compared at fixed frequencies (linear fits), the winner refined below
-                cand = _fit_sinusoids(t, y, dy, np.append(accepted, f_try), new_terms, t_ref, whiten=whiten,
-                                      refine=aliases_cpd.size == 1, covariance=aliases_cpd.size == 1)
+        if aliases_cpd.size > 1:
+            f_best = _best_alias(t - t_ref, y, whiten, accepted, tuple(terms), nterms,
+                                 f_new + aliases_cpd[f_new + aliases_cpd > 0])  # aliases may lie beyond the grid
+        else:
+            try:
+                trial = _fit_sinusoids(t, y, dy, np.append(accepted, f_new), new_terms, t_ref, whiten=whiten)
             except ReductionError as exc:  # degenerate sampling for this set: reported as the stop reason
-                if f_try == f_new:
-                    stop.update(reason=f"the fit with the candidate at {f_new:.6f} c/d failed: {exc}", f=f_new)
-                continue
-            if trial is None or cand.chi2 < trial.chi2:
-                trial, f_best = cand, float(f_try)
-        if trial is None:
-            break
+                stop.update(reason=f"the fit with the candidate at {f_new:.6f} c/d failed: {exc}", f=f_new)
+                break
         if aliases_cpd.size > 1:
             try:
                 trial = _fit_sinusoids(t, y, dy, np.append(accepted, f_best), new_terms, t_ref, whiten=whiten)

@@ -303,12 +303,8 @@ def _fit_sinusoids(
     refine: bool = True,
     p0: np.ndarray | None = None,
     whiten: NightlyWhitener | None = None,
-    covariance: bool = True,
 ) -> _Fit:
     """Weighted (non-)linear least squares of the multi-frequency harmonic model.
-
-    ``covariance=False`` skips the covariance (``cov`` is then empty): for fits
-    compared by chi-square alone.
 
     The covariance is always scaled by chi2/dof (see the module docstring).  With
     ``refine=False`` the frequencies are held fixed and their rows/columns of the
@@ -338,15 +334,13 @@ def _fit_sinusoids(
                 "harmonic fit: the normal matrix became singular while refining the frequency; the sampling "
                 "cannot separate these frequencies/harmonics (too few phases covered?)"
             ) from exc
-    model, jm = _model_jac(p, tau, n_freq, nterms, want_jac=covariance)
+    model, jm = _model_jac(p, tau, n_freq, nterms)
     resid = y - model
     chi2 = float(np.sum(whiten(resid) ** 2))
     free = np.ones(n_par, dtype=bool)
     if not refine:
         free[fidx] = False
     dof = int(t.size - free.sum())
-    if not covariance:
-        return _Fit(p, np.zeros((0, 0)), chi2, dof, resid, success, message)
     jw = whiten(jm[:, free])
     fisher = jw.T @ jw
     try:
