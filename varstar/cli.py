@@ -28,11 +28,56 @@ def _parse_columns(items: Sequence[str] | None) -> dict[str, str] | None:
     return out
 
 
+#: Options that name a result file, with their spelling for messages; ``--save`` is read and updated, so regular only.
+_OUTPUT_OPTIONS = (("output", "-o"), ("phased", "--phased"), ("diagram", "--diagram"), ("csv", "--csv"), ("save", "--save"))
+
+
+def _outputs(args: argparse.Namespace) -> list[tuple[str, Path]]:
+    """The (option, path) pairs of the result files this command was asked to write."""
+    return [(flag, getattr(args, name)) for name, flag in _OUTPUT_OPTIONS if getattr(args, name, None) is not None]
+
+
+def _check_outputs(args: argparse.Namespace) -> None:
+    """Refuse, before any work, output names that cannot be written or that clash.
+
+    Each goes through :func:`varstar.export.check_output_path` (a folder, a
+    missing folder, a socket...); at most one output may be stdout, and none
+    with ``--json`` (stdout then carries the JSON); two outputs may not name
+    the same regular file.
+    """
+    import os
+
+    from .errors import OutputError
+    from .export import check_output_path, is_stdout
+
+    outs = _outputs(args)
+    seen: dict[str, str] = {}
+    to_stdout = []
+    for flag, path in outs:
+        check_output_path(path, regular=flag == "--save")
+        if is_stdout(path):
+            to_stdout.append(flag)
+            continue
+        if os.path.exists(path) and not os.path.isfile(path):
+            continue  # FIFOs and devices may take several outputs
+        key = os.path.realpath(path)
+        if key in seen:
+            raise OutputError(f"{path}: named by both {seen[key]} and {flag}; give each output its own file")
+        seen[key] = flag
+    if to_stdout and getattr(args, "json", False):
+        raise OutputError(f"{' and '.join(to_stdout)}: standard output carries the JSON result with --json; write to a file")
+    if len(to_stdout) > 1:
+        raise OutputError(f"{' and '.join(to_stdout)} both name standard output; only one result can go there")
+
+
 def _emit(args: argparse.Namespace, payload: dict[str, Any], text: str) -> None:
-    from .export import to_json
+    """Print the result: JSON or text on stdout, or the text on stderr when a result file went to stdout."""
+    from .export import is_stdout, to_json
 
     if getattr(args, "json", False):
         sys.stdout.write(to_json(payload) + "\n")
+    elif any(is_stdout(path) for _flag, path in _outputs(args)):
+        sys.stderr.write(text.rstrip("\n") + "\n")
     else:
         sys.stdout.write(text.rstrip("\n") + "\n")
 
@@ -456,6 +501,8 @@ def cmd_timings(args: argparse.Namespace) -> int:
                        title=f"{arch.target.name}: O − C"), args.output)
         d["plot"] = str(args.output)
         text += f"\nwrote {args.output}"
+    elif args.output:
+        text += f"\nno timings, so no O − C diagram: {args.output} not written"
     if args.csv:
         write_csv(timings_table(d["timings"]), args.csv)
         d["csv"] = str(args.csv)
@@ -675,6 +722,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     try:
+        _check_outputs(args)  # before any work: a result that cannot be written is refused first
         # One BLAS thread: the commands solve many small problems, for which threads cost more than
         # they save (measured: benchmarks/bench_period.py --threads, bench_ingest.py --threads).
         with limit_blas_threads():

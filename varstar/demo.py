@@ -82,7 +82,7 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
     data = folder / "data"
     data.mkdir()
     for name, text in demo_files().items():
-        (data / name).write_bytes(text.encode("utf-8"))
+        write_atomic(data / name, text.encode("utf-8"))
     say(f"Demo data written to {data} (an invented field and standard field, simulated with a fixed seed)\n")
 
     # 1. Transformation coefficients from the standard field; k''_bv is the usual value

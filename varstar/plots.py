@@ -4,10 +4,17 @@ Conventions (common practice in the trade): magnitude axes run bright-up
 (inverted), every point carries its error bar, axes name their units and time
 system.  Colours come from the Okabe & Ito (2008) colour-blind-safe palette and
 each series also differs by marker shape, so the figures read in grey too.
+
+User text (target names, star ids, bands) is drawn as written: no figure uses
+matplotlib's mathtext or TeX, and :func:`literal_text` switches both off for
+every text a figure function places.  :func:`save` renders into memory and
+hands the bytes to :func:`varstar.export.write_atomic`, so plots go wherever
+the other results go (a file, a link, a FIFO, ``-``).
 """
 
 from __future__ import annotations
 
+import sys
 from collections.abc import Sequence
 from typing import TYPE_CHECKING
 
@@ -15,7 +22,11 @@ import numpy as np
 import pandas as pd
 
 if TYPE_CHECKING:  # pragma: no cover
+    import os
+    from collections.abc import Iterator
+
     from matplotlib.figure import Figure
+    from matplotlib.text import Text
 
 #: Okabe & Ito (2008) palette, without black (kept for models and text).
 PALETTE = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442")
@@ -79,24 +90,99 @@ def lightcurve_figure(lc: pd.DataFrame, *, title: str = "", show_flagged: bool =
         fig.legend(handles, labels, loc="outside right upper", title="night", fontsize="small")
     if title:
         fig.suptitle(title)
+    return literal_text(fig)
+
+
+def _own_texts(fig: "Figure") -> "Iterator[Text]":
+    """Every text artist of ``fig`` that varstar placed: titles, labels, legends, annotations.
+
+    Tick labels and the axes' offset texts are left out: matplotlib writes
+    those itself, at drawing time, from numbers.
+    """
+    from matplotlib.axis import Axis, Tick
+    from matplotlib.text import Text
+
+    stack = [fig]
+    while stack:
+        artist = stack.pop()
+        skip = {id(artist.offsetText)} if isinstance(artist, Axis) else set()
+        for child in artist.get_children():
+            if isinstance(child, Tick) or id(child) in skip:
+                continue
+            if isinstance(child, Text):
+                yield child
+            stack.append(child)
+
+
+def literal_text(fig: "Figure") -> "Figure":
+    """Make every text varstar placed in ``fig`` show its characters literally, and return ``fig``.
+
+    Titles, labels, legends and annotations carry user text (target names,
+    star ids, band names).  matplotlib would read a pair of ``$`` in them as
+    mathematics (failing on ``"Star $x^$"``) and, with ``text.usetex`` set,
+    pass everything to LaTeX; varstar's figures use neither, so both are
+    switched off text by text.  Each figure function ends with this call.
+    """
+    for text in _own_texts(fig):
+        text.set_parse_math(False)
+        text.set_usetex(False)
     return fig
 
 
-def save(fig: "Figure", path) -> None:
-    """Save a figure (format from the file name, png by default), atomically."""
+def _stdout_is_terminal() -> bool:
+    try:
+        return bool(sys.stdout.isatty())
+    except (AttributeError, ValueError):
+        return False
+
+
+def save(fig: "Figure", path: "str | os.PathLike[str]") -> None:
+    """Save a figure through :func:`varstar.export.write_atomic`.
+
+    The format comes from the file name (png when it has no suffix, e.g. ``-``
+    for stdout or a FIFO); the figure is rendered into memory first, so a
+    FIFO, a device or stdout receives the finished bytes and a regular file is
+    replaced atomically.
+
+    Raises
+    ------
+    OutputError
+        The format is unknown, the output cannot be written (see
+        :func:`varstar.export.check_output_path`), a binary image would go to
+        stdout on a terminal, or matplotlib fails to draw the figure (the
+        message says what failed).
+    """
     import io
+    import os
     from pathlib import Path
 
+    import matplotlib
+
     from .errors import OutputError
-    from .export import write_atomic
+    from .export import STDOUT, check_output_path, write_atomic
 
     path = Path(path)
-    fmt = path.suffix.lstrip(".").lower() or "png"
+    suffix = path.suffix
+    if not suffix and os.path.islink(path):  # a link named without a suffix: its target's name decides
+        suffix = Path(os.path.realpath(path)).suffix
+    fmt = suffix.lstrip(".").lower() or "png"
+    supported = fig.canvas.get_supported_filetypes()
+    if fmt not in supported:
+        raise OutputError(f"{path}: unknown image format '{fmt}' (use .png, .pdf or .svg; matplotlib also writes "
+                          f"{', '.join('.' + k for k in sorted(supported) if k not in ('png', 'pdf', 'svg'))})")
+    check_output_path(path)  # before the cost of drawing
+    if str(path) == STDOUT and _stdout_is_terminal():  # '-' has no suffix: always png, binary
+        # as compressors do (common practice): binary data is not sent to a terminal
+        raise OutputError("-: standard output is a terminal, where a png image prints as garbage; "
+                          "redirect it (> file, | program) or give a file name")
     buf = io.BytesIO()
     try:
-        fig.savefig(buf, format=fmt, dpi=120)
-    except ValueError:
-        raise OutputError(f"{path}: unknown image format '{fmt}' (use .png, .pdf or .svg)") from None
+        with matplotlib.rc_context({"text.usetex": False}):  # tick labels are made while drawing
+            fig.savefig(buf, format=fmt, dpi=120)
+    except (ValueError, RuntimeError, OverflowError) as exc:
+        said = " ".join(str(exc).split())
+        said = f"{type(exc).__name__}: {said[:300]}{'…' if len(said) > 300 else ''}" if said else type(exc).__name__
+        raise OutputError(f"{path}: matplotlib could not draw the figure as {fmt} ({said}); nothing written") from exc
     write_atomic(path, buf.getvalue())
 
 
@@ -131,13 +217,15 @@ def coefficient_figure(fit) -> "Figure":
             ax.plot(xs, slope * xs + zero, "-", color="black", lw=1.2, label=label)
         for sid, xi, yi in zip(fit.star_ids, x, y):
             if np.isfinite(xi) and np.isfinite(yi):
-                ax.annotate(str(sid), (xi, yi), textcoords="offset points", xytext=(4, 3), fontsize=7, color="0.3")
+                # a star id is a label, not a reason to shrink the panels (in_layout=False): a long one runs over
+                ax.annotate(str(sid), (xi, yi), textcoords="offset points", xytext=(4, 3), fontsize=7, color="0.3",
+                            in_layout=False)
         ax.set_xlabel(xl)
         ax.set_ylabel(yl)
         ax.grid(alpha=0.3)
         ax.legend(fontsize="small")
     fig.suptitle(f"Transformation coefficients from {fit.n_stars} standard stars")
-    return fig
+    return literal_text(fig)
 
 
 def colour_figure(lc: pd.DataFrame, *, title: str = "", phase: np.ndarray | None = None, period_d: float | None = None) -> "Figure":
@@ -183,7 +271,7 @@ def colour_figure(lc: pd.DataFrame, *, title: str = "", phase: np.ndarray | None
         fig.legend(handles, labels, loc="outside right upper", title="night", fontsize="small")
     if title:
         fig.suptitle(title)
-    return fig
+    return literal_text(fig)
 
 
 def _bv_of_temperature(t_k: np.ndarray) -> np.ndarray:
@@ -225,7 +313,8 @@ def colour_magnitude_figure(field: pd.DataFrame, track: pd.DataFrame, *, title: 
             ax.errorbar(sub["bv"], sub["V"], xerr=sub["bv_err"], yerr=sub["V_err"], fmt=marker, ms=7, color=colour,
                         elinewidth=0.8, capsize=0, label=label)
             for r in sub.itertuples():
-                ax.annotate(str(r.star), (r.bv, r.V), textcoords="offset points", xytext=(5, 4), fontsize=8, color="0.3")
+                ax.annotate(str(r.star), (r.bv, r.V), textcoords="offset points", xytext=(5, 4), fontsize=8, color="0.3",
+                            in_layout=False)
     if len(track):
         t = track["bjd_tdb"].to_numpy()
         ax.errorbar(track["bv"], track["mag"], xerr=track["bv_err"], yerr=track["mag_err"], fmt="none",
@@ -241,7 +330,7 @@ def colour_magnitude_figure(field: pd.DataFrame, track: pd.DataFrame, *, title: 
     ax.legend(fontsize="small", loc="best")
     if title:
         ax.set_title(title)
-    return fig
+    return literal_text(fig)
 
 
 def periodogram_figure(
@@ -292,7 +381,7 @@ def periodogram_figure(
     axes[-1].set_xlabel("frequency (cycles per day)")
     if title:
         fig.suptitle(title)
-    return fig
+    return literal_text(fig)
 
 
 def phased_figure(
@@ -343,7 +432,7 @@ def phased_figure(
     axr.grid(alpha=0.3)
     if title:
         fig.suptitle(title)
-    return fig
+    return literal_text(fig)
 
 
 #: Marker and colour of each timing type in the O − C diagram (shape alone tells them apart).
@@ -396,4 +485,4 @@ def oc_figure(
     ax.legend(fontsize="small", loc="best")
     if title:
         fig.suptitle(title)
-    return fig
+    return literal_text(fig)
