@@ -374,6 +374,8 @@ def reference(data: bytes, ids: list[str], bands: list[str], source_name: str) -
         bad |= et is BAD or (isinstance(et, float) and not 0 < et <= EXPTIME_MAX)
         frame = c["frame"].strip() if "frame" in c else None
         bad |= frame == ""
+        # One rule for every id (varstar.target.id_problem): no control character, line or paragraph separator.
+        bad |= frame is not None and any(unicodedata.category(ch) in ("Cc", "Zl", "Zp") for ch in frame)
         if bad:
             v.problems.append(frozenset([k]))
             continue
@@ -401,6 +403,17 @@ def reference(data: bytes, ids: list[str], bands: list[str], source_name: str) -
                 v.problems.append(frozenset(same["line"]))
     if v.problems:
         return v
+    # A last line without a line end that is the only measurement of its exposure, while other exposures have
+    # two or more, looks cut short and is refused (varstar/measurements.py, _check_cut_line).
+    last_no = text.count("\n") + 1
+    if not data.endswith(b"\n") and kept[-1][0] == last_no and len(kept) > 1:
+        key = (rows["frame"].astype(str) + "\x00" + rows["band"]).to_numpy()
+        sizes = pd.Series(key).map(pd.Series(key).value_counts()).to_numpy()
+        mine = np.flatnonzero(rows["line"].to_numpy() == last_no)
+        if mine.size:
+            others = sizes[key != key[mine[0]]]
+            if sizes[mine[0]] == 1 and others.size and others.max() >= 2:
+                return Verdict(problems=[frozenset([last_no])])
     # The archive keeps one time, airmass and exposure time per exposure: its first row's (within the
     # tolerances above, the rows agree; varstar/night.py, reduce_night, takes the first row).
     for col in ("jd", "airmass", "exptime_s"):
@@ -430,9 +443,10 @@ def assert_same_rows(got: pd.DataFrame, want: pd.DataFrame) -> None:
 
 
 def frame_texts() -> st.SearchStrategy[str]:
-    """Free-text exposure ids: anything printable or not, but one line, no NUL, not a comment."""
+    """Free-text exposure ids: any printable text (the one rule for ids: no control character, line or
+    paragraph separator), not a comment."""
     return st.text(
-        alphabet=st.characters(blacklist_categories=("Cs",), blacklist_characters="\x00\r\n"), min_size=1, max_size=30
+        alphabet=st.characters(blacklist_categories=("Cs", "Cc", "Zl", "Zp")), min_size=1, max_size=30
     ).filter(lambda t: t.strip() != "" and not t.lstrip().startswith("#"))
 
 
@@ -935,8 +949,9 @@ def ref_target(doc: dict) -> dict | None:
     if not isinstance(tgt, dict) or not isinstance(site, dict) or not isinstance(stars, list) or not stars:
         return None
     name = tgt.get("name")
-    # Free text, but one line of printable text: control characters cannot be stored or shown safely.
-    if not isinstance(name, str) or not name.strip() or any(unicodedata.category(c) == "Cc" for c in name):
+    # Free text, but one line of printable text: control characters (and line or paragraph separators,
+    # the one rule for ids and names, varstar.target.id_problem) cannot be stored or shown safely.
+    if not isinstance(name, str) or not name.strip() or any(unicodedata.category(c) in ("Cc", "Zl", "Zp") for c in name):
         return None
     ra, dec = ref_angle(tgt.get("ra"), "ra"), ref_angle(tgt.get("dec"), "dec")
     if ra is None or dec is None:
@@ -955,7 +970,7 @@ def ref_target(doc: dict) -> dict | None:
         if not isinstance(s, dict):
             return None
         sid = s.get("id")
-        if not isinstance(sid, str) or not sid.strip() or any(unicodedata.category(c) == "Cc" for c in sid):
+        if not isinstance(sid, str) or not sid.strip() or any(unicodedata.category(c) in ("Cc", "Zl", "Zp") for c in sid):
             return None
         if sid.strip() in ids or s.get("role") not in ("target", "comparison", "check"):
             return None

@@ -192,11 +192,15 @@ def test_unknown_tables_are_kept():
 
 
 def test_read_target_from_file(tmp_path):
+    # read_target also checks the [ephemeris] that timings will use (parse_target keeps it as it is):
+    # the example's keys are not those of an ephemeris, so the file gets a valid one.
+    text = edited("epoch_bjd = 2460389.6123\nperiod_d = 0.567213\nharmonics = [1, 2, 3]",
+                  "epoch = 2460389.6123\nperiod = 0.567213")
     path = tmp_path / "alpha.toml"
-    path.write_text(EXAMPLE, encoding="utf-8")
+    path.write_text(text, encoding="utf-8")
     t = read_target(path)
     assert t.source == str(path)
-    assert t.source_text == EXAMPLE
+    assert t.source_text == text
     assert t.ra_deg == pytest.approx(283.51)
     assert "transformation" in t.extra
     # str path works the same

@@ -7,8 +7,6 @@ and the all-or-nothing write into the archive.
 
 from __future__ import annotations
 
-import dataclasses
-import hashlib
 import json
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -18,10 +16,9 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from .ensemble import EnsembleSettings, solve_ensemble
-from .errors import InputError
-from .measurements import parse_measurements, read_bytes
-from .target import Target
+from .errors import InputError, ReductionError
+from .measurements import file_sha256, is_regular_file, read_measurement_file
+from .target import Target, reduction_options
 from .timescale import exposure_times, night_label
 
 #: Standard-system columns of a light-curve point (NaN / -1 until transformed).
@@ -30,6 +27,7 @@ COMPARISON_COLUMNS = ("band", "star", "status", "reason", "offset", "excess", "c
 ENSEMBLE_COLUMNS = ("band", "calibration_err", "colour_extinction", "colour_extinction_err", "colour_reference", "n_kept")
 
 if TYPE_CHECKING:  # pragma: no cover
+    from .ensemble import EnsembleSettings
     from .transform import Coefficients, NightReference
 
 # Difference between a table's own airmass and ours that deserves a warning
@@ -61,53 +59,44 @@ class NightReduction:
 
 @dataclass(frozen=True)
 class IngestResult:
-    """What an ingest did: the nights added and the files skipped as already ingested."""
+    """What an ingest did: the nights added, the files skipped as already ingested, the nights replaced."""
 
     archive: str
     nights: tuple[dict[str, Any], ...] = ()
     skipped: tuple[dict[str, str], ...] = field(default_factory=tuple)
+    #: Labels of stored nights replaced by this ingest (``ingest(..., replace=True)``).
+    replaced: tuple[str, ...] = ()
 
     def to_dict(self) -> dict[str, Any]:
-        return {"archive": self.archive, "nights": list(self.nights), "skipped": list(self.skipped)}
+        return {"archive": self.archive, "nights": list(self.nights), "skipped": list(self.skipped),
+                "replaced": list(self.replaced)}
 
 
 def settings_from_target(target: Target) -> EnsembleSettings:
-    """Ensemble settings, with overrides from an optional ``[reduction]`` table."""
-    table = target.extra.get("reduction", {})
-    if not isinstance(table, dict):
-        raise InputError(f"{target.source}: [reduction] must be a table")
-    known = {f.name: f for f in dataclasses.fields(EnsembleSettings)}
-    kw: dict[str, Any] = {}
-    for key, val in table.items():
-        if key == "exclude":
-            continue
-        if key not in known:
-            raise InputError(f"{target.source}: [reduction].{key} is not a setting (known: {', '.join(sorted(known))})")
-        default = getattr(EnsembleSettings(), key)
-        if isinstance(val, bool) or not isinstance(val, (int, float)) or (isinstance(default, int) and not isinstance(val, int)):
-            raise InputError(f"{target.source}: [reduction].{key} must be a {type(default).__name__}, got {val!r}")
-        if val <= 0:
-            raise InputError(f"{target.source}: [reduction].{key} must be positive, got {val}")
-        kw[key] = val
+    """Ensemble settings, with overrides from an optional ``[reduction]`` table (see :func:`varstar.target.reduction_options`)."""
+    from .ensemble import EnsembleSettings  # here: scipy.special, not needed to refuse a bad file
+
+    kw, _ = reduction_options(target)
     return EnsembleSettings(**kw)
 
 
 def excluded_stars(target: Target) -> tuple[str, ...]:
     """Comparison stars the observer keeps out of every ensemble (``[reduction] exclude``)."""
-    table = target.extra.get("reduction", {})
-    names = table.get("exclude", []) if isinstance(table, dict) else []
-    if not isinstance(names, list) or not all(isinstance(n, str) for n in names):
-        raise InputError(f"{target.source}: [reduction].exclude must be a list of star ids, e.g. [\"C4\"]")
-    for n in names:
-        if n not in target.star_ids or target.star(n).role != "comparison":
-            raise InputError(f"{target.source}: [reduction].exclude names '{n}', which is not a comparison star")
-    return tuple(names)
+    return reduction_options(target)[1]
 
 
 def split_nights(target: Target, table: pd.DataFrame) -> dict[str, pd.DataFrame]:
     """Split a measurement table into nights (evening date at the site)."""
     labels = night_label(table["jd"].to_numpy(), target.site.longitude_deg)
     return {str(lab): table[labels == lab].reset_index(drop=True) for lab in np.unique(labels)}
+
+
+def _sources(table: pd.DataFrame, rows: np.ndarray | None = None) -> str:
+    """The file(s) some rows of a night's table came from, for messages."""
+    src = table["source"].to_numpy() if rows is None else table["source"].to_numpy()[rows]
+    names = sorted(pd.unique(src).tolist())
+    shown = ", ".join(str(n) for n in names[:5])
+    return shown + (f" and {len(names) - 5} more file(s)" if len(names) > 5 else "")
 
 
 def _check_bands(target: Target, table: pd.DataFrame) -> None:
@@ -141,6 +130,8 @@ def reduce_night(
     label
         Night label; default the evening date at the site.
     """
+    from .ensemble import solve_ensemble
+
     if table.empty:
         raise InputError("no measurements to reduce")
     settings = settings or settings_from_target(target)
@@ -192,33 +183,49 @@ def reduce_night(
     ens_rows = []
     band_reports: dict[str, Any] = {}
     exp_band = exp["band"].to_numpy()
+    # The ensemble sees the stars measured tonight, not every star of the target file (which may
+    # list thousands): its cost follows the night's data.  A comparison star absent all night
+    # (no data, so no part in the fit) is reported below as the ensemble reports one without
+    # usable measurements; it no longer enters the choice of the colour reference.
+    night_stars = np.unique(star_idx)  # indices into target.stars, measured tonight
+    local_star = np.full(len(star_ids), -1)
+    local_star[night_stars] = np.arange(night_stars.size)
+    night_names = [star_ids[i] for i in night_stars]
+    night_catalog = [target.stars[i] for i in night_stars]
+    n_absent = int(np.count_nonzero(is_comp & (local_star < 0)))
 
     # Catalogue colour of each star for the ensemble's colour-extinction term (B - V
     # when the catalogue has both; any colour index serves as the regressor).
-    colour = np.array([s.catalog["B"] - s.catalog["V"] if {"B", "V"} <= set(s.catalog) else np.nan for s in target.stars])
+    colour = np.array([s.catalog["B"] - s.catalog["V"] if {"B", "V"} <= set(s.catalog) else np.nan for s in night_catalog])
     for band in sorted(pd.unique(exp["band"])):
         in_band = np.flatnonzero(exp_band == band)  # global exposure indices, time order
         local = np.full(n_exp, -1)
         local[in_band] = np.arange(in_band.size)
         rows = np.flatnonzero(table["band"].to_numpy() == band)
-        cat = np.array([s.catalog.get(band, np.nan) for s in target.stars])
-        cat_err = np.array([s.catalog_err.get(band, 0.0) for s in target.stars])
-        sol = solve_ensemble(
-            local[exposure_of_row[rows]],
-            star_idx[rows],
-            table["mag"].to_numpy()[rows],
-            table["mag_err"].to_numpy()[rows],
-            n_exposures=in_band.size,
-            is_comparison=is_comp,
-            catalog_mag=cat,
-            catalog_err=cat_err,
-            time=exp["jd"].to_numpy()[in_band],
-            airmass=airmass[in_band],
-            good=(table["flag"].to_numpy()[rows] == 0) & np.isfinite(table["mag"].to_numpy()[rows]),
-            settings=settings,
-            star_names=star_ids,
-            colour=colour,
-        )
+        cat = np.array([s.catalog.get(band, np.nan) for s in night_catalog])
+        cat_err = np.array([s.catalog_err.get(band, 0.0) for s in night_catalog])
+        try:
+            sol = solve_ensemble(
+                local[exposure_of_row[rows]],
+                local_star[star_idx[rows]],
+                table["mag"].to_numpy()[rows],
+                table["mag_err"].to_numpy()[rows],
+                n_exposures=in_band.size,
+                is_comparison=is_comp[night_stars],
+                catalog_mag=cat,
+                catalog_err=cat_err,
+                time=exp["jd"].to_numpy()[in_band],
+                airmass=airmass[in_band],
+                good=(table["flag"].to_numpy()[rows] == 0) & np.isfinite(table["mag"].to_numpy()[rows]),
+                settings=settings,
+                star_names=night_names,
+                colour=colour,
+            )
+        except ReductionError as exc:
+            # The ensemble works on arrays and cannot know where they came from: say it here.
+            absent = (f"; {n_absent} comparison star(s) of {target.source} have no measurement in these files"
+                      if n_absent else "")
+            raise ReductionError(f"{_sources(table, rows)}, band {band}: {exc}{absent}") from None
         zp[in_band] = sol.zero_point
         zp_err[in_band] = sol.zero_point_err
         cal_err[in_band] = sol.calibration_err
@@ -228,9 +235,10 @@ def reduce_night(
         err_cal[rows] = sol.mag_err
         # Error of each comparison star's mean magnitude: 1/sqrt(sum of its weights).
         used = sol.used
-        w = 1.0 / (table["mag_err"].to_numpy()[rows][used] ** 2 + np.nan_to_num(sol.star_excess)[star_idx[rows][used]] ** 2)
+        in_fit = local_star[star_idx[rows][used]]
+        w = 1.0 / (table["mag_err"].to_numpy()[rows][used] ** 2 + np.nan_to_num(sol.star_excess)[in_fit] ** 2)
         with np.errstate(divide="ignore"):
-            mean_err = 1.0 / np.sqrt(np.bincount(star_idx[rows][used], w, minlength=len(star_ids)))
+            mean_err = 1.0 / np.sqrt(np.bincount(in_fit, w, minlength=night_stars.size))
         ens_rows.append(
             {
                 "band": band,
@@ -241,23 +249,29 @@ def reduce_night(
                 "n_kept": int(sum(st == "kept" for st in sol.star_status)),
             }
         )
-        for i, sid in enumerate(star_ids):
-            if roles[i] == "comparison":
-                out = sid in excluded
-                comp_rows.append(
-                    {
-                        "band": band,
-                        "star": sid,
-                        "status": "excluded" if out else sol.star_status[i],
-                        "reason": "excluded by [reduction] exclude in the target file" if out else sol.star_reason[i],
-                        "offset": float(sol.star_offset[i]),
-                        "excess": float(sol.star_excess[i]),
-                        "chi2_dof": float(sol.star_chi2_dof[i]),
-                        "tie_weight": float(sol.tie_weight[i]),
-                        "mean_err": float(mean_err[i]),
-                    }
-                )
-        band_reports[band] = {"ensemble": sol.to_dict()}
+        absent_reason = f"only 0 usable measurement(s); at least {settings.min_star_points} needed"
+        for i in np.flatnonzero(roles == "comparison"):
+            sid, k = star_ids[i], int(local_star[i])
+            out = sid in excluded
+            if k < 0:  # not measured tonight: as the ensemble reports a star without usable data
+                status, reason = "too_few_points", absent_reason
+                values = (np.nan, np.nan, np.nan, 0.0, np.inf)
+            else:
+                status, reason = sol.star_status[k], sol.star_reason[k]
+                values = (sol.star_offset[k], sol.star_excess[k], sol.star_chi2_dof[k], sol.tie_weight[k], mean_err[k])
+            comp_rows.append(
+                {
+                    "band": band,
+                    "star": sid,
+                    "status": "excluded" if out else status,
+                    "reason": "excluded by [reduction] exclude in the target file" if out else reason,
+                    **{key: float(v) for key, v in zip(("offset", "excess", "chi2_dof", "tie_weight", "mean_err"), values)},
+                }
+            )
+        summary = sol.to_dict()
+        for entry in summary["stars"]:  # the index of each star in the target file, as before
+            entry["index"] = int(night_stars[entry["index"]])
+        band_reports[band] = {"ensemble": summary}
 
     exposures = pd.DataFrame(
         {
@@ -336,14 +350,21 @@ def _night_report(
             for r in str(fl).split(";"):
                 reasons[r] = reasons.get(r, 0) + 1
         comp = comparisons[comparisons["band"] == band]
-        good = points[(points["band"] == band) & (points["quality"] == 0)]
+        in_band = points[points["band"] == band]
+        good = in_band[in_band["quality"] == 0]
         tgt = good[good["star"] == tid]
+        # Each check star measured in this band (one grouping, not one scan of the points per star of
+        # the target: a target file may list thousands of stars).
+        measured = set(pd.unique(in_band["star"]))
+        by_star = {sid: g for sid, g in good.groupby("star", sort=False)}
         checks = {}
         for s in target.stars_with_role("check"):
-            g = good[good["star"] == s.id]
+            if s.id not in measured:
+                continue
+            g = by_star.get(s.id, good.iloc[:0])
             st = _stats(g["mag"].to_numpy(), g["mag_err"].to_numpy())
             st["catalog"] = s.catalog.get(band)
-            st["offset_from_catalog"] = (st["mean"] - s.catalog[band]) if band in s.catalog and g.size else None
+            st["offset_from_catalog"] = (st["mean"] - s.catalog[band]) if band in s.catalog and len(g) else None
             checks[s.id] = st
         bands[band] = {
             "n_exposures": int(len(ex)),
@@ -386,52 +407,68 @@ def ingest(
     columns: Mapping[str, str] | None = None,
     settings: EnsembleSettings | None = None,
     timeout_s: float = 30.0,
+    replace: bool = False,
 ) -> IngestResult:
     """Reduce measurement files and add them to an archive, all or nothing.
 
     Files whose exact content is already in the archive are skipped (content
     hash).  The rows are grouped into nights by evening date; a night already in
-    the archive is refused (remove it first to re-reduce it).  Everything is
-    computed before the archive is opened for writing.
+    the archive is refused (remove it first to re-reduce it), unless
+    ``replace`` is given: then no file is skipped, and every night the files
+    hold replaces the stored night of the same date whole, in the same atomic
+    change (the old night's removal is recorded in ``/removals``, as by
+    :func:`remove_night`).  That is how a night stored from an incomplete file
+    is replaced by the complete one.  Everything is computed before the archive
+    is opened for writing.
+
+    A regular file is hashed first (read in bounded blocks) and then read and
+    checked piece by piece (:func:`varstar.measurements.read_measurement_file`),
+    which stops at the first fault; a pipe is read once.
     """
     from .archive import open_archive, tables, transaction
     from .archive.store import utc_now
 
     arch = open_archive(archive_path)
     target = arch.target
-    settings = settings or settings_from_target(target)
     if not files:
         raise InputError("no measurement files given")
-    blobs = [(Path(p), read_bytes(Path(p))) for p in files]
-    hashes = [hashlib.sha256(b).hexdigest() for _, b in blobs]
     with arch._open() as f:
         known = set(tables.read(f, "sources", ["sha256"])["sha256"])
         labels_before = set(tables.read(f, "nights", ["label"])["label"])
-    skipped, fresh = [], []
+    skipped: list[dict[str, str]] = []
+    parsed: list[tuple[Path, pd.DataFrame, str]] = []
     seen_here: set[str] = set()
-    for (p, b), h in zip(blobs, hashes):
-        if h in known or h in seen_here:
+    for p in map(Path, files):
+        # The hash first, so that a file already stored is skipped without being parsed; a pipe can
+        # be read only once, so it is hashed while it is parsed.
+        h = file_sha256(p) if is_regular_file(p) else None
+        if h is not None and (h in seen_here or (h in known and not replace)):
             skipped.append({"file": str(p), "sha256": h, "why": "already ingested (same content)"})
-        else:
-            seen_here.add(h)
-            fresh.append((p, b, h))
-    if not fresh:
+            continue
+        t, h_read = read_measurement_file(p, target.star_ids, columns)
+        if h is not None and h_read != h:
+            raise InputError(f"{p}: the file changed while it was being read; nothing was written, ingest again")
+        if h_read in seen_here or (h_read in known and not replace):
+            skipped.append({"file": str(p), "sha256": h_read, "why": "already ingested (same content)"})
+            continue
+        seen_here.add(h_read)
+        parsed.append((p, t, h_read))
+    if not parsed:
         return IngestResult(str(arch.path), (), tuple(skipped))
-
-    parsed = []
-    for p, b, h in fresh:
-        t = parse_measurements(b, str(p), target.star_ids, columns)
-        if len(fresh) > 1:
+    settings = settings or settings_from_target(target)
+    if len(parsed) > 1:
+        for p, t, _ in parsed:
             t["frame"] = p.name + ":" + t["frame"].astype(str)
-        parsed.append(t)
-    table = pd.concat(parsed, ignore_index=True)
+    table = pd.concat([t for _, t, _ in parsed], ignore_index=True)
     nights = split_nights(target, table)
-    for lab in nights:
-        if lab in labels_before:
-            raise InputError(
-                f"night {lab} is already in {arch.path}; ingest all files of a night together "
-                f"(the archive never changes a night once stored)"
-            )
+    stored = sorted(set(nights) & labels_before)
+    if stored and not replace:
+        lab = stored[0]
+        raise InputError(
+            f"night {lab} is already in {arch.path}; ingest all files of a night together (the archive never "
+            f"changes a night once stored); to replace the stored night with these files (say it was ingested "
+            f"from an incomplete file), take it out with 'varstar remove-night {arch.path} {lab}' and ingest again"
+        )
     reductions = [reduce_night(target, t, settings, label=lab) for lab, t in sorted(nights.items())]
     _add_history_notes(arch.comparisons(last_nights=HISTORY_NIGHTS), reductions)
     with arch._open() as f:
@@ -439,20 +476,36 @@ def ingest(
     if active is not None:
         for red in reductions:
             _apply_to_reduction(target, red, active)
-    sha_of = {str(p): h for p, _, h in fresh}
+    sha_of = {str(p): h for p, _, h in parsed}
+    names = ", ".join(sorted({p.name for p, _, _ in parsed}))
 
     with transaction(arch.path, timeout_s=timeout_s) as f:
         # Re-check under the lock: another process may have ingested meanwhile.
-        if set(tables.read(f, "sources", ["sha256"])["sha256"]) & set(sha_of.values()):
-            raise InputError(f"{arch.path}: another process ingested some of these files meanwhile; nothing was written")
-        if set(tables.read(f, "nights", ["label"])["label"]) & set(nights):
-            raise InputError(f"{arch.path}: another process ingested one of these nights meanwhile; nothing was written")
+        now_nights = tables.read(f, "nights", ["night", "label"])
+        if not replace:
+            if set(tables.read(f, "sources", ["sha256"])["sha256"]) & set(sha_of.values()):
+                raise InputError(f"{arch.path}: another process ingested some of these files meanwhile; nothing was written")
+            if set(now_nights["label"]) & set(nights):
+                raise InputError(f"{arch.path}: another process ingested one of these nights meanwhile; nothing was written")
+        else:
+            src = tables.read(f, "sources", ["night", "sha256"])
+            dropping = {int(n) for n, lab in zip(now_nights["night"], now_nights["label"]) if lab in nights}
+            elsewhere = {h for n, h in zip(src["night"], src["sha256"]) if int(n) not in dropping}
+            if elsewhere & set(sha_of.values()):
+                raise InputError(f"{arch.path}: some of these files are stored with another night; nothing was written")
         now_active = active_transformation(f)
         if (now_active and now_active[0]) != (active and active[0]):
             raise InputError(f"{arch.path}: another process changed the transformation meanwhile; nothing was written, ingest again")
+        now = utc_now()
+        replaced = []
+        if replace:
+            for n, lab in zip(now_nights["night"], now_nights["label"]):
+                if lab in nights:
+                    _drop_night(f, int(n), str(lab), reason=f"replaced by a new ingest of {names}", now=now)
+                    replaced.append(str(lab))
         for red in reductions:
-            _write_night(f, red, sha_of, utc_now())
-    return IngestResult(str(arch.path), tuple(r.report for r in reductions), tuple(skipped))
+            _write_night(f, red, sha_of, now)
+    return IngestResult(str(arch.path), tuple(r.report for r in reductions), tuple(skipped), tuple(sorted(replaced)))
 
 
 #: How many of the latest stored nights the comparison-star history note looks back on:
@@ -760,7 +813,7 @@ def _apply_to_reduction(target: Target, red: NightReduction, active: tuple[int, 
     cols, notes = standardise_night(target, coeffs, gap, p, airmass, red.comparisons, red.ensembles)
     if {"B", "V"} <= set(red.ensembles["band"]) and not np.isfinite(cols["mag_std"]).any():
         raise InputError(
-            f"night {red.label}: the B and V exposures never come within {gap * 1440:.0f} min of each other, so no "
+            f"{_sources(red.raw)} (night {red.label}): the B and V exposures never come within {gap * 1440:.0f} min of each other, so no "
             f"colour can be paired for the transformation; check that the files belong to the same night, or raise "
             f"[transformation] max_gap_minutes"
         )
@@ -870,33 +923,45 @@ def remove_night(archive_path: str | Path, label: str, *, reason: str = "", time
     why; the night's files can then be ingested again.  Stored period analyses are
     history and stay.
     """
-    from . import __version__
     from .archive import open_archive, tables, transaction
     from .archive.store import utc_now
 
     arch = open_archive(archive_path)
     with transaction(arch.path, timeout_s=timeout_s) as f:
-        nights = tables.read(f, "nights", ["night", "label", "n_exposures", "n_points"])
+        nights = tables.read(f, "nights", ["night", "label"])
         hit = np.flatnonzero(nights["label"] == label)
         if hit.size == 0:
             known = ", ".join(nights["label"].tolist()[-5:]) or "none"
             raise InputError(f"{arch.path}: no night '{label}' (nights are evening dates YYYY-MM-DD; latest: {known}); nothing changed")
-        i = int(hit[0])
-        night_id = int(nights["night"][i])
-        src = tables.read(f, "sources", ["night", "name"])
-        names = sorted(set(src["name"][src["night"] == night_id].tolist()))
-        remap = {}
-        for ref, col in (("exposures", "exposure"), ("sources", "source")):
-            keep = f[ref]["night"][()] != night_id
-            remap[col] = np.cumsum(keep) - 1  # old row -> new row (rows that stay)
-        for t in ("raw", "points", "exposures", "sources", "comparisons", "ensembles", "timings", "digests"):
-            keep = f[t]["night"][()] != night_id
-            tables.keep_rows(f, t, keep, {c: m for c, m in remap.items() if c in tables.TABLES[t]})
-        tables.keep_rows(f, "nights", nights["night"] != night_id)
-        tables.append(f, "removals", {
-            "night": [night_id], "label": [label], "removed_utc": [utc_now()], "software": [f"varstar {__version__}"],
-            "n_exposures": [int(nights["n_exposures"][i])], "n_points": [int(nights["n_points"][i])],
-            "sources": [", ".join(names)], "reason": [reason],
-        })
-    return {"archive": str(arch.path), "night": label, "n_exposures": int(nights["n_exposures"][i]),
-            "n_points": int(nights["n_points"][i]), "sources": names, "reason": reason}
+        record = _drop_night(f, int(nights["night"][int(hit[0])]), label, reason=reason, now=utc_now())
+    return {"archive": str(arch.path), **record}
+
+
+def _drop_night(f, night_id: int, label: str, *, reason: str, now: str) -> dict[str, Any]:
+    """Take every row of one night out of an open transaction and record the removal in ``/removals``.
+
+    The row numbers other tables hold into ``/exposures`` and ``/sources`` are
+    renumbered.  Returns what :func:`remove_night` reports.
+    """
+    from . import __version__
+    from .archive import tables
+
+    nights = tables.read(f, "nights", ["night", "n_exposures", "n_points"])
+    i = int(np.flatnonzero(nights["night"] == night_id)[0])
+    src = tables.read(f, "sources", ["night", "name"])
+    names = sorted(set(src["name"][src["night"] == night_id].tolist()))
+    remap = {}
+    for ref, col in (("exposures", "exposure"), ("sources", "source")):
+        keep = f[ref]["night"][()] != night_id
+        remap[col] = np.cumsum(keep) - 1  # old row -> new row (rows that stay)
+    for t in ("raw", "points", "exposures", "sources", "comparisons", "ensembles", "timings", "digests"):
+        keep = f[t]["night"][()] != night_id
+        tables.keep_rows(f, t, keep, {c: m for c, m in remap.items() if c in tables.TABLES[t]})
+    tables.keep_rows(f, "nights", nights["night"] != night_id)
+    tables.append(f, "removals", {
+        "night": [night_id], "label": [label], "removed_utc": [now], "software": [f"varstar {__version__}"],
+        "n_exposures": [int(nights["n_exposures"][i])], "n_points": [int(nights["n_points"][i])],
+        "sources": [", ".join(names)], "reason": [reason],
+    })
+    return {"night": label, "n_exposures": int(nights["n_exposures"][i]), "n_points": int(nights["n_points"][i]),
+            "sources": names, "reason": reason}

@@ -19,12 +19,12 @@ paired for the colour.
 
 from __future__ import annotations
 
-import math
 import re
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, Mapping
 
 from .errors import InputError
+from .target import finite_number, load_toml, read_toml_text
 
 if TYPE_CHECKING:  # pragma: no cover
     from .transform import Coefficients
@@ -43,18 +43,8 @@ _SETUP_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
 
 
 def _load(path: Path) -> dict[str, Any]:
-    try:
-        text = path.read_bytes().decode("utf-8")
-    except FileNotFoundError:
-        raise InputError(f"{path}: file not found") from None
-    except UnicodeDecodeError:
-        raise InputError(f"{path}: not UTF-8 text") from None
-    except OSError as exc:
-        raise InputError(f"{path}: cannot read: {exc.strerror}") from None
-    try:
-        return tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"{path}: not valid TOML: {exc}") from None
+    """A setups or coefficients file as a checked TOML document (:func:`varstar.target.load_toml`)."""
+    return load_toml(read_toml_text(path), str(path))
 
 
 def coefficients_from_table(table: Mapping[str, Any], where: str, *, source: str) -> tuple["Coefficients", float]:
@@ -67,10 +57,7 @@ def coefficients_from_table(table: Mapping[str, Any], where: str, *, source: str
     vals: dict[str, float] = {}
     for key in (*_VALUE_KEYS, *(k + "_err" for k in _VALUE_KEYS), "max_gap_minutes"):
         if key in table:
-            v = table[key]
-            if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
-                raise InputError(f"{where}.{key}: expected a finite number, got {v!r}")
-            vals[key] = float(v)
+            vals[key] = finite_number(table[key], f"{where}.{key}")
     have = [k for k in ("epsilon_v", "mu_bv") if k in vals]
     if len(have) == 1:
         missing = ({"epsilon_v", "mu_bv"} - set(have)).pop()
