@@ -724,3 +724,23 @@ def test_demo_out_onto_a_file_fails_cleanly(capsys, tmp_path):
     assert rc != 0 and out == ""
     assert err.startswith("error: ") and err.count("\n") == 1 and str(target) in err
     assert snapshot(tmp_path) == before
+
+
+def test_ingest_replace_swaps_a_night_ingested_from_a_cut_file(capsys, demo_data, tmp_path):
+    """A night first ingested from a file cut short is replaced whole by the complete file with
+    --replace; without it the complete file is refused in words and the archive is unchanged."""
+    full = demo_data.folder / "night-2026-09-12.csv"
+    cut = tmp_path / "cut.csv"
+    cut.write_text("".join(full.read_text().splitlines(keepends=True)[:1000]))
+    path = tmp_path / "a.h5"
+    ok(capsys, "init", path, demo_data.folder / "target.toml")
+    ok(capsys, "ingest", path, cut)
+    n_cut = varstar.open_archive(path).lightcurve().shape[0]
+    before = path.read_bytes()
+    rc, out, err = run(capsys, "ingest", path, full)
+    assert rc != 0 and "--replace" in err and path.read_bytes() == before
+    out = ok(capsys, "ingest", path, full, "--replace")
+    assert "replaced the stored night 2026-09-12" in out
+    arch = varstar.open_archive(path)
+    assert list(arch.nights()["label"]) == ["2026-09-12"] and arch.lightcurve().shape[0] > n_cut
+    assert ok(capsys, "verify", path).split(":")[1].strip().startswith("OK")

@@ -184,8 +184,10 @@ def cmd_init(args: argparse.Namespace) -> int:
 def cmd_ingest(args: argparse.Namespace) -> int:
     from .night import ingest
 
-    res = ingest(args.archive, args.files, columns=_parse_columns(args.column), timeout_s=args.wait)
+    res = ingest(args.archive, args.files, columns=_parse_columns(args.column), timeout_s=args.wait,
+                 replace=args.replace)
     text = [format_night_report(r) for r in res.nights]
+    text += [f"replaced the stored night {label} (its removal is recorded in the archive)" for label in res.replaced]
     text += [f"skipped {s['file']}: {s['why']}" for s in res.skipped]
     if not res.nights:
         text.append("nothing new: the archive is unchanged")
@@ -607,6 +609,8 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("files", type=Path, nargs="+", help="measurement tables (CSV, long or wide form)")
     sp.add_argument("--column", action="append", metavar="NAME=FILE_COLUMN", help="read varstar column NAME from the file's FILE_COLUMN (repeatable)")
     sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
+    sp.add_argument("--replace", action="store_true",
+                    help="replace a stored night of the same date with these files (e.g. the complete version of a file cut short)")
 
     sp = add("summary", cmd_summary, "overview of an archive: nights, bands, magnitude ranges")
     sp.add_argument("archive", type=Path)

@@ -467,7 +467,8 @@ def ingest(
         raise InputError(
             f"night {lab} is already in {arch.path}; ingest all files of a night together (the archive never "
             f"changes a night once stored); to replace the stored night with these files (say it was ingested "
-            f"from an incomplete file), take it out with 'varstar remove-night {arch.path} {lab}' and ingest again"
+            f"from an incomplete file), ingest again with --replace (or take it out with "
+            f"'varstar remove-night {arch.path} {lab}' first)"
         )
     reductions = [reduce_night(target, t, settings, label=lab) for lab, t in sorted(nights.items())]
     _add_history_notes(arch.comparisons(last_nights=HISTORY_NIGHTS), reductions)
