@@ -23,11 +23,14 @@ Journal file ``ARCHIVE.h5.journal`` (all integers little-endian)::
     trailer  32 s sha256 of everything above,  8 s  b"VSTAREND"
 
 A journal counts as committed only when its length is exactly what the header
-says and the trailer's digest matches; anything else (a writer killed while
-writing it, a torn write after power loss) is an uncommitted journal and is
-ignored.  Applying a committed journal writes whole runs of final bytes and
-truncates to ``new_len``, so applying it twice, or after a partial apply, gives
-the same file (idempotent).
+says and the trailer's digest matches.  A writer killed while writing it leaves
+a prefix, and a power loss before its flush may leave its end unwritten (zeros):
+both are incomplete, uncommitted journals and are ignored.  A journal written to
+its end whose bytes changed afterwards is *damaged*: it may hold a committed
+change, so it is never ignored (:func:`inspect_journal`; :mod:`.transaction`
+keeps it aside and refuses the archive).  Applying a committed journal writes
+whole runs of final bytes and truncates to ``new_len``, so applying it twice, or
+after a partial apply, gives the same file (idempotent).
 
 Why this and not something else: the archive is one HDF5 file whose library
 writes in place at arbitrary offsets (metadata, rewritten gzip chunks, free
@@ -42,8 +45,10 @@ that nothing in the archive changes before the commit point.
 from __future__ import annotations
 
 import dataclasses
+import errno
 import hashlib
 import os
+import stat
 import struct
 from collections.abc import Iterator
 from pathlib import Path
@@ -159,11 +164,16 @@ class PageOverlay:
         committed journal a reader overlays without applying it.
     length
         Current file length (default ``base_len``).
+    name
+        The archive's path, which the overlay gives as its ``repr``: h5py reports
+        that as the file's name (``h5py.File.filename``), so messages name the archive.
     """
 
     def __init__(self, fd: int, base_len: int | None = None, pages: dict[int, bytearray] | None = None,
-                 length: int | None = None) -> None:
+                 length: int | None = None, name: str | None = None) -> None:
         self._fd = fd
+        self._name = name
+        self._heaps_checked: set[int] = set()  # offsets of heap collections found sound (see _check_heap)
         self._base_len = os.fstat(fd).st_size if base_len is None else int(base_len)
         # Disk bytes at or beyond this offset read as zeros (set lower by a shrinking truncate).
         self._base_visible = self._base_len
@@ -172,8 +182,11 @@ class PageOverlay:
         self._pos = 0
         self.closed = False
 
+    def __repr__(self) -> str:
+        return self._name if self._name is not None else object.__repr__(self)
+
     @classmethod
-    def from_journal(cls, fd: int, journal: Journal) -> PageOverlay:
+    def from_journal(cls, fd: int, journal: Journal, name: str | None = None) -> PageOverlay:
         """The file after ``journal``, read from an archive it has not (or only partly) been applied to."""
         pages: dict[int, bytearray] = {}
         for off, data in journal.runs:
@@ -184,7 +197,7 @@ class PageOverlay:
                 pages[(off + k) // PAGE_SIZE] = page
         # Every byte below new_len that no run covers is on disk already: unchanged
         # old bytes below old_len, the pre-written new end above it.
-        return cls(fd, base_len=journal.new_len, pages=pages, length=journal.new_len)
+        return cls(fd, base_len=journal.new_len, pages=pages, length=journal.new_len, name=name)
 
     # -- file-object protocol ---------------------------------------------------
     def seekable(self) -> bool:
@@ -220,6 +233,15 @@ class PageOverlay:
         mv = memoryview(buf).cast("B")
         n = len(mv)
         pos = self._pos
+        self._fill(mv, pos)
+        if mv[:4] == _HEAP_MAGIC and pos not in self._heaps_checked:
+            self._check_heap(mv, pos)
+        self._pos = pos + n
+        return n
+
+    def _fill(self, mv: memoryview, pos: int) -> None:
+        """``mv`` filled with the overlay's bytes from ``pos`` on (zeros beyond the end)."""
+        n = len(mv)
         end = pos + n
         lim = max(min(end, self._base_visible, self._size), pos)
         got = pread_into(self._fd, mv[: lim - pos], pos) if lim > pos else 0
@@ -237,8 +259,28 @@ class PageOverlay:
                     ps = p * PAGE_SIZE
                     a, b = max(ps, pos), min(ps + PAGE_SIZE, stop)
                     mv[a - pos:b - pos] = self._pages[p][a - ps:b - ps]
-        self._pos = end
-        return n
+
+    def _check_heap(self, mv: memoryview, pos: int) -> None:
+        """Refuse (as a read error HDF5 reports) a global heap collection it cannot parse safely.
+
+        HDF5 reads a collection's first 4 KiB, then the rest in a second read that
+        does not start with the signature: the whole collection is read here and
+        walked at the first read (:func:`heap_collection_problem`).  HDF5 reads a
+        collection again whenever its cache let it go; one found sound is not
+        walked again by this overlay (what HDF5 itself writes into it later is sound).
+        """
+        data: memoryview | bytearray = mv
+        if len(mv) >= _HEAP_HEADER.size:
+            size = _HEAP_HEADER.unpack_from(mv, 0)[3]
+            if len(mv) < size <= self._size - pos:
+                data = bytearray(size)
+                data[: len(mv)] = mv
+                self._fill(memoryview(data)[len(mv):], pos + len(mv))
+        problem = heap_collection_problem(data, self._size - pos)
+        if problem:
+            raise DamagedFile(errno.EIO, f"global heap collection at byte {pos} is damaged: {problem}")
+        if len(data) >= _HEAP_HEADER.size and len(data) >= _HEAP_HEADER.unpack_from(data, 0)[3]:
+            self._heaps_checked.add(pos)  # (a partial first read of a too-large collection is not)
 
     def read(self, size: int = -1) -> bytes:
         if size is None or size < 0:
@@ -353,6 +395,52 @@ class PageOverlay:
         return Journal(old_len, new_len, tuple(runs), digest.digest() if new_len > old_len else b"")
 
 
+class DamagedFile(OSError):
+    """A read error the overlay raises for bytes HDF5 must not parse (an unsafe global heap collection)."""
+
+
+#: Signature of an HDF5 global heap collection, where variable-length text lives.
+_HEAP_MAGIC = b"GCOL"
+_HEAP_HEADER = struct.Struct("<4sB3sQ")  # signature, version, reserved, collection size
+_HEAP_OBJECT = struct.Struct("<HH4sQ")  # object index, reference count, reserved, object size
+_HEAP_OBJECT_KEY = struct.Struct("<H6xQ")  # the same, index and size only
+_HEAP_MIN_SIZE = 4096  # HDF5's smallest collection (H5HG_MINSIZE)
+
+
+def heap_collection_problem(data: memoryview | bytes, room: int) -> str | None:
+    """What is wrong with an HDF5 global heap collection HDF5 is about to parse; None if nothing.
+
+    HDF5 keeps variable-length text in "global heap collections", which carry no
+    checksum, and walks a collection's objects by their sizes (HDF5 file format
+    specification, "Global Heap").  An object of index 0 and size 0 (zeroed
+    bytes, a typical form of damage) makes that walk stand still: HDF5 then
+    loops forever.  The overlay therefore checks every collection HDF5 reads
+    before HDF5 sees it, with the same walk: header, then objects that must each
+    advance and fit inside the collection.  ``data`` starts at the collection;
+    it may be HDF5's first read of 4 KiB, in which case only what it holds is
+    walked.  ``room`` is the bytes from the collection to the end of the file.
+    """
+    if len(data) < _HEAP_HEADER.size:
+        return None
+    _, version, _, size = _HEAP_HEADER.unpack_from(data, 0)
+    if version != 1:
+        return f"version {version}"
+    if size < _HEAP_MIN_SIZE or size > room:
+        return f"a size of {size} bytes ({room} left in the file)"
+    end = min(size, len(data))
+    p = _HEAP_HEADER.size
+    unpack = _HEAP_OBJECT_KEY.unpack_from
+    while p + _HEAP_OBJECT.size <= end:
+        idx, osize = unpack(data, p)
+        need = osize if idx == 0 else _HEAP_OBJECT.size + ((osize + 7) & ~7)
+        if need <= 0:
+            return f"an empty object header at byte {p} of the collection"
+        if p + need > size:
+            return f"object {idx} at byte {p} runs past the collection's end"
+        p += need  # (index 0 is free space, normally the rest of the collection)
+    return None
+
+
 def _changed_pieces(start: int, new: bytes, old: bytearray) -> list[tuple[int, bytes]]:
     """Runs of the pages of ``new`` (starting at ``start``) that differ from ``old``."""
     out: list[tuple[int, bytes]] = []
@@ -398,23 +486,99 @@ def write_journal(jpath: Path, j: Journal) -> None:
     sync_dir(jpath.parent)
 
 
-def read_journal(jpath: Path) -> Journal | None:
-    """The committed journal at ``jpath``; None if there is none or it is incomplete or damaged."""
+#: What a file at the journal's path is (:func:`inspect_journal`).
+ABSENT, INCOMPLETE, COMMITTED, DAMAGED, FOREIGN = "absent", "incomplete", "committed", "damaged", "foreign"
+_TRAILER = _DIGEST_LEN + len(END_MAGIC)
+
+
+@dataclasses.dataclass(frozen=True)
+class JournalFile:
+    """What lies at a journal's path.
+
+    Attributes
+    ----------
+    state
+        ``absent``; ``incomplete`` (its writer died before the commit point: a
+        prefix of a journal, or one whose end was never written, so the archive
+        holds the state before it); ``committed`` (whole and checksummed:
+        ``journal`` holds it); ``damaged`` (a journal written to its end whose
+        bytes changed since: it may have been committed, so it can be neither
+        applied nor thrown away); ``foreign`` (not a varstar journal at all).
+    journal
+        The committed journal (state ``committed`` only).
+    why
+        For ``damaged`` and ``foreign``: what is wrong, in words.
+    """
+
+    state: str
+    journal: Journal | None = None
+    why: str = ""
+
+
+def inspect_journal(jpath: Path) -> JournalFile:
+    """Tell what lies at ``jpath``: no journal, an incomplete, committed or damaged one, or something else.
+
+    The writer writes a journal front to back and ends it with a digest and
+    ``VSTAREND``.  A writer killed before the commit point therefore leaves a
+    prefix (shorter than its header says, without the end mark), and a power
+    loss before the final flush may leave the unwritten end as zeros; both are
+    ``incomplete``.  A journal that has its end mark but fails its checksum or
+    length, or has the length of a whole journal but a wrong end mark, was
+    written completely and changed afterwards (a flipped bit, a bad sector): it
+    may be a committed change that was half written into the archive, so it is
+    ``damaged``, never ``incomplete``.  (A single changed byte anywhere in a
+    committed journal always gives ``damaged``.)
+    """
+    try:
+        st = os.lstat(jpath)
+    except FileNotFoundError:
+        return JournalFile(ABSENT)
+    if not stat.S_ISREG(st.st_mode):
+        kind = ("a directory" if stat.S_ISDIR(st.st_mode) else
+                "a symbolic link" if stat.S_ISLNK(st.st_mode) else "a special file")
+        return JournalFile(FOREIGN, why=f"{kind}, not a varstar journal")
     try:
         with open(jpath, "rb") as fh:
             blob = fh.read()
     except FileNotFoundError:
-        return None
-    if len(blob) < _HEADER.size + _DIGEST_LEN + len(END_MAGIC):
-        return None
+        return JournalFile(ABSENT)
+    ends = blob.endswith(END_MAGIC)
+    if not ends and blob[: len(MAGIC)] != MAGIC[: len(blob)]:
+        return JournalFile(FOREIGN, why=f"a file of {len(blob)} bytes that is not a varstar journal")
+    if len(blob) < _HEADER.size:
+        if ends:
+            return JournalFile(DAMAGED, why=f"it ends with the journal's end mark but is only {len(blob)} bytes long")
+        return JournalFile(INCOMPLETE)  # torn inside its header (an empty file included)
     magic, version, _, old_len, new_len, n_runs, data_len, tail = _HEADER.unpack_from(blob, 0)
-    if magic != MAGIC or version != VERSION:
-        return None
+    if magic != MAGIC:
+        return JournalFile(DAMAGED, why="its header mark is damaged")
+    if version != VERSION:
+        return JournalFile(DAMAGED, why=f"it says it is of journal version {version}, which this varstar does not know "
+                                        f"(written by another varstar version, or damaged)")
     body = _HEADER.size + n_runs * _INDEX.size + data_len
-    if len(blob) != body + _DIGEST_LEN + len(END_MAGIC) or blob[-len(END_MAGIC):] != END_MAGIC:
-        return None
+    if not ends:
+        if len(blob) < body + _TRAILER:
+            return JournalFile(INCOMPLETE)  # a prefix: its writer died while writing it
+        if not any(blob[-_TRAILER:]):
+            return JournalFile(INCOMPLETE)  # its end was never written (power lost before the flush)
+        return JournalFile(DAMAGED, why="its end mark is damaged")
+    if len(blob) != body + _TRAILER:
+        return JournalFile(DAMAGED, why=f"it is {len(blob):,} bytes long where its header says {body + _TRAILER:,}")
     if hashlib.sha256(memoryview(blob)[:body]).digest() != blob[body:body + _DIGEST_LEN]:
-        return None
+        return JournalFile(DAMAGED, why="its checksum does not match its contents")
+    return JournalFile(COMMITTED, journal=_decode(blob, old_len, new_len, n_runs, tail))
+
+
+def read_journal(jpath: Path) -> Journal | None:
+    """The committed journal at ``jpath``; None if there is none, or it is incomplete, damaged or foreign.
+
+    Use :func:`inspect_journal` to tell those apart (recovery must: a damaged
+    journal may hold a committed change and is never simply deleted).
+    """
+    return inspect_journal(jpath).journal
+
+
+def _decode(blob: bytes, old_len: int, new_len: int, n_runs: int, tail: bytes) -> Journal:
     runs = []
     at = _HEADER.size + n_runs * _INDEX.size
     for k in range(n_runs):
@@ -422,6 +586,55 @@ def read_journal(jpath: Path) -> Journal | None:
         runs.append((off, blob[at:at + length]))
         at += length
     return Journal(old_len, new_len, tuple(runs), tail if new_len > old_len else b"")
+
+
+def written_in(fd: int, jpath: Path) -> str:
+    """How much of a damaged journal's change the archive holds, in words (best effort).
+
+    Reads what the journal's header and index still say and compares each
+    changed region with the archive's bytes there.  The regions of a change are
+    written into the archive only after its commit, so: all equal means the
+    change was written in completely (a damaged region may differ where the
+    journal itself is damaged), none equal means it was not written in at all.
+    """
+    try:
+        with open(jpath, "rb") as fh:
+            blob = fh.read()
+        magic, _, _, old_len, _, n_runs, data_len, _ = _HEADER.unpack_from(blob, 0)
+    except (OSError, struct.error):
+        return "what it records cannot be read"
+    body = _HEADER.size + n_runs * _INDEX.size + data_len
+    if magic != MAGIC or n_runs > len(blob) // _INDEX.size or body > len(blob):
+        return "its header is damaged, so what it records cannot be told"
+    same = differ = 0
+    at = _HEADER.size + n_runs * _INDEX.size
+    for k in range(n_runs):
+        off, length = _INDEX.unpack_from(blob, _HEADER.size + k * _INDEX.size)
+        if at + length > body or off > 1 << 56:
+            return "its index is damaged, so what it records cannot be told"
+        new = blob[at:at + length]
+        at += length
+        # Only whole pages inside the old file tell: a journal holds a page only if it changed,
+        # and bytes past the old end were written into the archive before the commit anyway.
+        inside = min(off + length, old_len // PAGE_SIZE * PAGE_SIZE) - off
+        if inside <= 0:
+            continue
+        old = bytearray(inside)
+        got = pread_into(fd, memoryview(old), off)
+        if got == inside and old == new[:inside]:
+            same += 1
+        else:
+            differ += 1
+    n_runs = same + differ
+    if n_runs == 0:
+        return "it records no changed region inside the old file"
+    if differ == 0:
+        return f"all {n_runs} regions it changes already hold its new bytes: the change had been written into the archive"
+    if same == 0:
+        return (f"none of the {n_runs} regions it changes holds its new bytes: the change was not written into the "
+                f"archive, which holds the state before it (that change is lost: make it again)")
+    return (f"{same} of the {n_runs} regions it changes hold its new bytes and {differ} do not: the change was written "
+            f"into the archive in part, or completely where the journal itself is damaged")
 
 
 def tail_matches(fd: int, j: Journal) -> bool:

@@ -204,3 +204,21 @@ DIGEST_COLUMNS: dict[str, tuple[str, ...]] = {
 
 #: Row-number columns and the table whose rows they count.
 ROW_REFERENCES = {"exposure": "exposures", "source": "sources"}
+
+#: Code columns and the lookup column whose row numbers they hold (``band`` = row of
+#: ``/bands/name``).  A code column's integer type bounds how many names the lookup
+#: can hold: :func:`code_capacity`.
+CODES = {"band": ("bands", "name"), "star": ("stars", "id")}
+
+
+def code_capacity(code_column: str) -> int:
+    """How many names the codes of ``code_column`` (``band`` or ``star``) can address.
+
+    The smallest integer type any table gives that column decides (``uint8`` band
+    codes: 256 bands; ``uint16`` star codes: 65,536 stars).  Columns of that name
+    holding text (``/periods/star`` keeps the star id itself) are not codes.
+    """
+    import numpy as np
+
+    kinds = {cols[code_column] for cols in TABLES.values() if code_column in cols and cols[code_column][0] in "iu"}
+    return min(int(np.iinfo(np.dtype(k)).max) + 1 for k in kinds)

@@ -13,10 +13,17 @@ import numpy as np
 import pandas as pd
 
 from .. import __version__
-from ..errors import ArchiveError
+from ..errors import ArchiveError, VarstarError
 from ..target import Target, parse_target
 from . import tables
-from .layout import FORMAT_NAME, QUALITY_EXPOSURE_FLAGGED, QUALITY_NO_ZERO_POINT, QUALITY_UPSTREAM_FLAG, SCHEMA_VERSION
+from .layout import (
+    FORMAT_NAME,
+    QUALITY_EXPOSURE_FLAGGED,
+    QUALITY_NO_ZERO_POINT,
+    QUALITY_UPSTREAM_FLAG,
+    SCHEMA_VERSION,
+    code_capacity,
+)
 
 
 def utc_now() -> str:
@@ -34,6 +41,13 @@ def create_archive(path: str | Path, target: Target) -> "Archive":
     from ..setups import resolve_transformation
     from .transaction import create_new
 
+    n_max = code_capacity("star")
+    if len(target.stars) > n_max:
+        raise ArchiveError(
+            f"{path}: the target description {target.source} lists {len(target.stars):,} stars; an archive tells at "
+            f"most {n_max:,} apart (its star codes are 16-bit), so nothing was created. Keep only the stars the "
+            f"reduction uses (the target, its comparison and check stars) in the target file."
+        )
     coeffs = None
     if "transformation" in target.extra:
         coeffs = resolve_transformation(target.extra["transformation"], Path(target.source))
@@ -106,7 +120,16 @@ class Archive:
     @property
     def target(self) -> Target:
         with self._open() as f:
-            return parse_target(str(f["target"].attrs["toml"]), source=f"{self.path}:/target")
+            text = str(f["target"].attrs["toml"])
+        try:
+            return parse_target(text, source=f"{self.path}:/target")
+        except VarstarError as exc:
+            # it was valid when the archive was created: the stored copy changed since, or the rules did
+            raise ArchiveError(
+                f"{self.path}: the target description stored in the archive (/target) cannot be read: {exc}. It was "
+                f"valid when the archive was created, so the archive file is probably damaged: run 'varstar verify "
+                f"{self.path}', and put back a copy of the archive."
+            ) from None
 
     def nights(self) -> pd.DataFrame:
         """One row per ingested night (label, counts, time span, ingest date)."""

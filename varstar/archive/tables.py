@@ -7,7 +7,8 @@ from collections.abc import Iterable, Mapping
 import h5py
 import numpy as np
 
-from .layout import STR, TABLES
+from ..errors import ArchiveError
+from .layout import CODES, STR, TABLES, code_capacity
 
 # Rows per chunk of a numeric column.  An append rewrites the last (partial) chunk of
 # every column, so smaller chunks make each change cheaper; 16,384 rows (128 KiB of
@@ -30,6 +31,32 @@ def _encode_fixed(vals, code: str) -> np.ndarray:
     if any(len(b) > n for b in out):
         raise ValueError(f"text longer than {n} bytes for a {code} column")
     return np.array(out, dtype=code)
+
+
+def _as_numbers(vals, code: str, table: str, col: str) -> np.ndarray:
+    """Column values as ``code``, refusing integers the type cannot hold.
+
+    ``numpy`` converts out-of-range integers by wrapping them (257 becomes 1 as
+    ``uint8``), which would file a row under another band, star or night without a
+    word: such a value is refused instead, naming the column.
+    """
+    arr = np.asarray(vals)
+    dt = np.dtype(code)
+    if dt.kind in "iu" and arr.size:
+        info = np.iinfo(dt)
+        if arr.dtype.kind == "f":
+            bad = ~np.isfinite(arr) | (arr < info.min) | (arr > info.max)
+        elif arr.dtype.kind in "iub":
+            bad = (arr < info.min) | (arr > info.max) if arr.dtype.kind != "b" else np.zeros(arr.shape, bool)
+        else:  # objects (Python ints of any size): compare one by one, exactly
+            bad = np.array([not (info.min <= int(v) <= info.max) for v in arr.ravel()]).reshape(arr.shape)
+        if bad.any():
+            k = int(np.flatnonzero(bad)[0])
+            raise ArchiveError(
+                f"/{table}/{col}: value {arr.ravel()[k]!r} does not fit the column's type ({dt.name}: {info.min} to "
+                f"{info.max}); {int(bad.sum())} value(s) refused, nothing was written"
+            )
+    return arr.astype(dt, copy=False)
 
 
 def create_tables(root: h5py.Group, only: Iterable[str] | None = None) -> None:
@@ -87,15 +114,17 @@ def append(root: h5py.Group, table: str, columns: Mapping[str, np.ndarray | list
     start = n_rows(root, table)
     if n_new == 0:
         return start
+    arrays = {}  # every column converted (and checked) before any is written: no half-written row
     for col, code in spec.items():
-        ds = root[table][col]
         vals = columns[col]
         if code == STR:
-            arr = np.array([str(v) for v in vals], dtype=object)
+            arrays[col] = np.array([str(v) for v in vals], dtype=object)
         elif _fixed_text(code):
-            arr = _encode_fixed(vals, code)
+            arrays[col] = _encode_fixed(vals, code)
         else:
-            arr = np.asarray(vals).astype(code, copy=False)
+            arrays[col] = _as_numbers(vals, code, table, col)
+    for col, arr in arrays.items():
+        ds = root[table][col]
         ds.resize((start + n_new,))
         ds[start:] = arr
     return start
@@ -105,8 +134,9 @@ def read(root: h5py.Group, table: str, columns: Iterable[str] | None = None, sta
     """Read columns of ``table`` from row ``start`` on (text columns come back as ``str`` objects)."""
     spec = TABLES[table]
     out: dict[str, np.ndarray] = {}
+    g = root[table]
     for col in columns or spec:
-        ds = root[table][col]
+        ds = g[col]
         code = spec[col]
         if code == STR:
             out[col] = ds.asstr()[start:]
@@ -118,12 +148,23 @@ def read(root: h5py.Group, table: str, columns: Iterable[str] | None = None, sta
 
 
 def code_of(root: h5py.Group, table: str, column: str, value: str, *, add: bool) -> int:
-    """Index of ``value`` in a small lookup column, optionally appending it."""
+    """Index of ``value`` in a small lookup column, optionally appending it.
+
+    A new name is refused when its code would not fit the columns that hold these
+    codes (:func:`.layout.code_capacity`): 256 bands, 65,536 stars.
+    """
     values = list(root[table][column].asstr()[()])
     if value in values:
         return values.index(value)
     if not add:
         raise KeyError(value)
+    for code_col, (lookup, name_col) in CODES.items():
+        if (lookup, name_col) == (table, column) and len(values) >= code_capacity(code_col):
+            raise ArchiveError(
+                f"{root.file.filename}: cannot add {code_col} {value!r}: the archive already holds "
+                f"{len(values):,} {lookup}, the most its {code_col} codes can tell apart ({code_capacity(code_col):,}); "
+                f"nothing was written. Keep {lookup} of different projects in different archives."
+            )
     row = {c: [""] for c in TABLES[table]}
     row[column] = [value]
     return append(root, table, row)
@@ -152,5 +193,5 @@ def keep_rows(root: h5py.Group, table: str, keep: np.ndarray, remap: Mapping[str
             data = remap[col][data]
         ds.resize((n_keep,))
         if n_keep:
-            ds[:] = np.array([str(v) for v in data], dtype=object) if code == STR else data.astype(code, copy=False)
+            ds[:] = np.array([str(v) for v in data], dtype=object) if code == STR else _as_numbers(data, code, table, col)
     return int(keep.size - n_keep)

@@ -28,7 +28,20 @@ Recovery (:func:`recover`): a complete, checksummed journal is applied again
 (idempotent: it holds final bytes); an incomplete one is deleted (its writer died
 before the commit point, so the archive holds the state before).  Writers
 recover under the writer lock before they start; readers too when they find a
-committed journal and no live writer.
+committed journal and no live writer.  A journal that was written to its end
+but whose bytes changed since (:func:`~.journal.inspect_journal`: damaged) may
+hold a committed change half written into the archive: it is never deleted but
+renamed ``ARCHIVE.h5.journal.damaged-<UTC time>``, and every command but
+``varstar verify`` refuses the archive, saying what happened and what to do,
+until the user has checked the archive and removed that file.  Anything else at
+the journal's path (a user's file, a directory) is never touched: writers refuse.
+
+Damage (:mod:`.integrity`): before it changes anything a writer checks, read
+only, that every table and column of the layout can be opened and that the
+archive's record of its free space can be read (HDF5 reads that record only when
+writing, and fails, or crashes, on a damaged one); an HDF5 read failure inside a
+change, or inside a reader's ``with`` block, becomes one :class:`ArchiveError`
+naming what could not be read.
 
 Reading (:func:`open_read`)
     A reader holds a shared ``flock`` on the archive file for as long as its
@@ -39,6 +52,9 @@ Reading (:func:`open_read`)
     elsewhere) it reads through a :class:`~.journal.PageOverlay` of the journal,
     which shows the committed state without changing the file.  A committed
     change is never undone, so no reader sees the new state and later the old.
+    Readers always read through a :class:`~.journal.PageOverlay` (h5py's
+    file-object driver), which checks each global heap collection before HDF5
+    parses it (HDF5 loops forever on some damaged ones).
 
 Why not something else: the previous mechanism (copy, change the copy, rename)
 cost O(archive size) per change.  HDF5's own SWMR mode gives single-writer
@@ -57,11 +73,14 @@ without the journal of a killed writer loses that writer's committed change.
 from __future__ import annotations
 
 import contextlib
+import datetime as _dt
 import errno
 import fcntl
 import io
 import os
+import re
 import socket
+import stat
 import time
 from collections.abc import Iterator
 from pathlib import Path
@@ -70,6 +89,7 @@ from types import MappingProxyType
 import h5py
 
 from ..errors import ArchiveError
+from . import integrity
 from . import journal as jr
 
 _POLL_S = 0.02
@@ -89,6 +109,41 @@ def lock_path(path: Path) -> Path:
 
 def _tmp_path(path: Path) -> Path:
     return path.with_name(f".{path.name}.{os.getpid()}.tmp")
+
+
+#: What :func:`_mark_holder` writes into the lock file (empty when nobody holds it), or
+#: the start of it (a writer killed while writing it).
+_HOLDER_TEXT = re.compile(rb"\A(pid \d+ on [^\n]*|p(i(d( (\d+( (o(n)?)?)?)?)?)?)?)?\Z")
+
+
+def _open_lock(path: Path) -> int:
+    """Open (or create) the writer-lock file ``ARCHIVE.h5.lock``, refusing any other file of that name.
+
+    The lock file is varstar's: empty, or naming its holder.  A file of that
+    name with other contents, a symbolic link, a directory or a device is the
+    user's and is never truncated or written.
+    """
+    lp = lock_path(path)
+    try:
+        fd = os.open(lp, os.O_RDWR | os.O_CREAT | getattr(os, "O_NOFOLLOW", 0), 0o644)
+    except OSError as exc:
+        if exc.errno in (errno.ELOOP, errno.EISDIR, errno.ENXIO):
+            raise ArchiveError(_not_ours(path, lp, "is not varstar's lock file")) from None
+        raise ArchiveError(f"{path}: cannot create lock file {lp.name}: {exc.strerror}") from None
+    try:
+        st = os.fstat(fd)
+        ours = stat.S_ISREG(st.st_mode) and st.st_size <= 300 and _HOLDER_TEXT.match(os.pread(fd, 301, 0).strip())
+    except OSError:
+        ours = False
+    if not ours:
+        os.close(fd)
+        raise ArchiveError(_not_ours(path, lp, "is not varstar's lock file"))
+    return fd
+
+
+def _not_ours(path: Path, other: Path, what: str, done: str = "nothing was changed") -> str:
+    return (f"{path}: {other} {what}; varstar needs that name beside the archive and never overwrites a file it did "
+            f"not write. Rename or move {other.name} (it is not part of the archive), then try again; {done}.")
 
 
 def _holder(path: Path) -> str:
@@ -129,8 +184,8 @@ def _clear_holder(fd: int) -> None:
 def _try_writer_lock(path: Path) -> int | None:
     """The writer lock's descriptor if it is free right now, else None (never waits)."""
     try:
-        fd = os.open(lock_path(path), os.O_RDWR | os.O_CREAT, 0o644)
-    except OSError:
+        fd = _open_lock(path)
+    except ArchiveError:
         return None
     try:
         fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
@@ -144,11 +199,7 @@ def _try_writer_lock(path: Path) -> int | None:
 @contextlib.contextmanager
 def writer_lock(path: Path, timeout_s: float = 30.0) -> Iterator[None]:
     """Hold the archive's exclusive writer lock for the ``with`` block."""
-    lp = lock_path(path)
-    try:
-        fd = os.open(lp, os.O_RDWR | os.O_CREAT, 0o644)
-    except OSError as exc:
-        raise ArchiveError(f"{path}: cannot create lock file {lp.name}: {exc.strerror}") from None
+    fd = _open_lock(path)
     try:
         if not _flock_until(fd, fcntl.LOCK_EX, time.monotonic() + timeout_s):
             holder = os.pread(fd, 200, 0).decode("utf-8", "replace").strip() or "another process"
@@ -167,9 +218,17 @@ def writer_lock(path: Path, timeout_s: float = 30.0) -> Iterator[None]:
 
 
 def _remove_stale_temporaries(path: Path) -> None:
+    """Remove what a killed ``varstar init`` left: ``.ARCHIVE.h5.<pid>.tmp`` files holding HDF5 data only."""
     for stale in path.parent.glob(f".{path.name}.*.tmp"):
+        if not stale.name[len(path.name) + 2:-4].isdigit():
+            continue
         with contextlib.suppress(OSError):
-            stale.unlink()
+            st = os.lstat(stale)
+            if stat.S_ISREG(st.st_mode):
+                with open(stale, "rb") as fh:
+                    hdf5 = fh.read(8) == b"\x89HDF\r\n\x1a\n"
+                if hdf5:
+                    stale.unlink()
 
 
 # --------------------------------------------------------------------------- recovery
@@ -182,17 +241,22 @@ def recover(path: Path, timeout_s: float = 30.0) -> bool:
     fit the archive or the archive cannot be written.
     """
     jp = jr.journal_path(path)
-    if not jp.exists():
+    found = jr.inspect_journal(jp)
+    if found.state == jr.ABSENT:
         return True
-    j = jr.read_journal(jp)
-    if j is None:
-        # Incomplete: its writer died before the commit point; the archive holds
-        # the state before (maybe with unused bytes past HDF5's end, which the next
-        # change truncates away).
+    if found.state == jr.INCOMPLETE:
+        # Its writer died before the commit point; the archive holds the state
+        # before (maybe with unused bytes past HDF5's end, which the next change
+        # truncates away).
         with contextlib.suppress(FileNotFoundError):
             jp.unlink()
         jr.sync_dir(path.parent)
         return True
+    if found.state == jr.FOREIGN:
+        raise ArchiveError(_not_ours(path, jp, f"is {found.why}"))
+    if found.state == jr.DAMAGED:
+        raise _set_aside(path, jp, found.why)
+    j = found.journal
     fd = os.open(path, os.O_RDWR)
     try:
         if not _flock_until(fd, fcntl.LOCK_EX, time.monotonic() + timeout_s):
@@ -208,6 +272,58 @@ def recover(path: Path, timeout_s: float = 30.0) -> bool:
     finally:
         os.close(fd)
     return True
+
+
+def damaged_journals(path: Path) -> list[Path]:
+    """Journals of this archive that were found damaged and kept aside (``ARCHIVE.h5.journal.damaged-*``)."""
+    prefix = jr.journal_path(path).name + ".damaged-"
+    try:
+        return sorted(p for p in Path(path).parent.iterdir() if p.name.startswith(prefix))
+    except OSError:
+        return []
+
+
+def _set_aside(path: Path, jp: Path, why: str) -> ArchiveError:
+    """Rename a damaged journal to ``…journal.damaged-<UTC time>`` (never deleted); the error to raise."""
+    stamp = _dt.datetime.now(_dt.timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+    kept = jp.with_name(f"{jp.name}.damaged-{stamp}")
+    k = 1
+    while kept.exists():
+        k += 1
+        kept = jp.with_name(f"{jp.name}.damaged-{stamp}-{k}")
+    try:
+        fd = os.open(path, os.O_RDONLY)
+        try:
+            state = jr.written_in(fd, jp)
+        finally:
+            os.close(fd)
+    except OSError:
+        state = "the archive could not be read to tell how much of it was written in"
+    try:
+        os.rename(jp, kept)
+        jr.sync_dir(path.parent)
+    except OSError as exc:
+        return ArchiveError(
+            f"{path}: the journal of an earlier change, {jp.name}, is damaged ({why}) and could not be renamed "
+            f"aside ({exc.strerror}); nothing was changed. Move {jp.name} away yourself, then run 'varstar verify {path}'."
+        )
+    return ArchiveError(_damaged_message(path, kept, f"is damaged ({why}); {state}. It was kept as {kept.name}"))
+
+
+def _damaged_message(path: Path, kept: Path, what: str) -> str:
+    return (
+        f"{path}: the journal of an earlier change {what}. The change it held can neither be completed nor trusted, "
+        f"so this archive is not used until you have checked it; nothing was changed. Run 'varstar verify {path}': "
+        f"if it finds no problem but this journal, delete {kept.name} and carry on (making that change again if it "
+        f"is missing); otherwise put back a copy of the archive."
+    )
+
+
+def _refuse_damaged(path: Path) -> None:
+    kept = damaged_journals(path)
+    if kept:
+        names = ", ".join(k.name for k in kept)
+        raise ArchiveError(_damaged_message(path, kept[-1], f"was found damaged and is kept as {names}"))
 
 
 def _mismatch_message(path: Path, jp: Path) -> str:
@@ -235,6 +351,7 @@ def transaction(path: Path, *, timeout_s: float = 30.0, older_schema: bool = Fal
     with writer_lock(path, timeout_s):
         if not path.exists():
             raise ArchiveError(f"{path}: no such archive (create it with 'varstar init')")
+        _refuse_damaged(path)
         _remove_stale_temporaries(path)
         try:
             done = recover(path, timeout_s)
@@ -254,11 +371,14 @@ def transaction(path: Path, *, timeout_s: float = 30.0, older_schema: bool = Fal
         except OSError as exc:
             raise _write_error(path, exc) from None
         try:
-            overlay = jr.PageOverlay(fd)
+            _check_before_writing(path, fd, older_schema)
+            overlay = jr.PageOverlay(fd, name=str(path))
             try:
                 f = h5py.File(overlay, "r+")
-            except OSError:
-                raise ArchiveError(f"{path}: not a readable HDF5 archive") from None
+            except Exception as exc:  # noqa: BLE001
+                if isinstance(exc, OSError) or integrity.is_hdf5_failure(exc):
+                    raise ArchiveError(f"{path}: not a readable HDF5 archive") from None
+                raise
             try:
                 if not older_schema:
                     from .store import check_root
@@ -266,18 +386,68 @@ def transaction(path: Path, *, timeout_s: float = 30.0, older_schema: bool = Fal
                     check_root(f, path, writing=True)
                 yield f
             except BaseException as exc:
+                failed = integrity.unreadable(path, exc, writing=True) if integrity.is_hdf5_failure(exc) else None
                 with contextlib.suppress(Exception):
                     f.close()
+                if failed is not None:
+                    raise failed from None
                 if isinstance(exc, OSError):
                     raise _write_error(path, exc) from None
                 raise
             try:
                 f.close()  # HDF5 flushes everything it cached into the overlay; the disk is untouched
-            except OSError as exc:
-                raise _write_error(path, exc) from None
+            except Exception as exc:  # noqa: BLE001
+                if integrity.is_hdf5_failure(exc):
+                    raise integrity.unreadable(path, exc, writing=True) from None
+                if isinstance(exc, OSError):
+                    raise _write_error(path, exc) from None
+                raise
             _commit(path, fd, overlay, timeout_s)
         finally:
             os.close(fd)
+
+
+def _check_before_writing(path: Path, fd: int, older_schema: bool) -> None:
+    """Refuse, before anything is written, an archive whose structure or free-space record is damaged.
+
+    Read only, through its own handle: the format mark and schema, every table
+    and column of the layout (their object headers, not their data: the cost does
+    not grow with the archive), and the free-space record HDF5 reads only when
+    it writes (:func:`.integrity.free_space_problem`).  Damage in the data of
+    earlier nights that this change does not read is left for ``varstar verify``
+    to find; the change cannot make it worse.
+    """
+    from .store import check_root
+
+    problems: list[str] = []
+    try:
+        f = h5py.File(jr.PageOverlay(fd, name=str(path)), "r")
+    except Exception as exc:  # noqa: BLE001
+        if isinstance(exc, OSError) or integrity.is_hdf5_failure(exc):
+            raise ArchiveError(f"{path}: not a readable HDF5 archive") from None
+        raise
+    try:
+        try:
+            check_root(f, path, writing=not older_schema)
+            found, lengths = integrity.structure_problems(f, int(f.attrs["schema_version"]))
+            problems.extend(found or integrity.capacity_problems(lengths))
+        except Exception as exc:  # noqa: BLE001
+            if not integrity.is_hdf5_failure(exc):
+                raise
+            raise integrity.unreadable(path, exc, writing=True) from None
+    finally:
+        with contextlib.suppress(Exception):
+            f.close()
+    if not problems:
+        fs = integrity.free_space_problem(fd)
+        if fs:
+            problems.append(fs)
+    if problems:
+        more = f" (and {len(problems) - 2} more)" if len(problems) > 2 else ""
+        raise ArchiveError(
+            f"{path}: the archive is damaged: {'; '.join(problems[:2])}{more}. Nothing was written. Run 'varstar "
+            f"verify {path}' to see what is affected, and put back a copy of the archive."
+        )
 
 
 def _write_error(path: Path, exc: OSError) -> ArchiveError:
@@ -340,10 +510,7 @@ def create_new(path: Path, build) -> None:
     with writer_lock(path):
         if path.exists():
             raise ArchiveError(f"{path}: already exists; choose another name or remove it first")
-        # A journal left by a killed writer of a removed archive of the same name
-        # must never be applied to the new one.
-        with contextlib.suppress(FileNotFoundError):
-            jr.journal_path(path).unlink()
+        _clear_journal_path(path)
         tmp = _tmp_path(path)
         try:
             with h5py.File(tmp, "w", **CREATE_OPTIONS) as f:
@@ -369,13 +536,63 @@ def create_new(path: Path, build) -> None:
             raise
 
 
+def _clear_journal_path(path: Path) -> None:
+    """Before creating ``path``: the journal's name beside it must be free, or hold only a torn journal.
+
+    A journal there belongs to an earlier archive of the same name; it must never
+    be applied to the new one.  One its writer never finished (incomplete) holds
+    nothing and is removed.  A committed or damaged one holds a change of an
+    archive that may have been moved, and anything else is not ours: both are
+    left alone and the creation is refused.
+    """
+    jp = jr.journal_path(path)
+    found = jr.inspect_journal(jp)
+    if found.state == jr.INCOMPLETE:
+        with contextlib.suppress(FileNotFoundError):
+            jp.unlink()
+    elif found.state in (jr.COMMITTED, jr.DAMAGED):
+        raise ArchiveError(
+            f"{path}: {jp} holds a change to an earlier archive of this name (it is {found.state}) and the "
+            f"archive is not here; nothing was created. If you moved that archive, move {jp.name} beside it (the "
+            f"change is written in the next time it is opened); if you deleted it, delete {jp.name} too; or choose "
+            f"another name."
+        )
+    elif found.state == jr.FOREIGN:
+        raise ArchiveError(_not_ours(path, jp, f"exists and is {found.why}", "nothing was created"))
+    kept = damaged_journals(path)
+    if kept:
+        raise ArchiveError(
+            f"{path}: {kept[0]} is a damaged journal kept from an earlier archive of this name; nothing was created. "
+            f"Delete or move it (and any other {jp.name}.damaged-* file), or choose another name."
+        )
+
+
 # --------------------------------------------------------------------------- reading
 class _ReadFile(h5py.File):
     """A read-only :class:`h5py.File` that holds the archive's shared lock until it is closed."""
 
-    def __init__(self, name, lock: io.FileIO, **kwargs) -> None:
+    def __init__(self, name, lock: io.FileIO, path: Path, **kwargs) -> None:
         super().__init__(name, "r", **kwargs)
         self._varstar_lock = lock
+        self._varstar_path = path
+
+    def __exit__(self, exc_type, exc, tb) -> bool:
+        """Close; an HDF5 read failure of the block (or of closing) becomes one :class:`ArchiveError`."""
+        # worded before closing: naming the object that failed needs the file open
+        failed = integrity.unreadable(self._varstar_path, exc, writing=False) if (
+            exc is not None and integrity.is_hdf5_failure(exc)) else None
+        closing: BaseException | None = None
+        try:
+            super().__exit__(exc_type, exc, tb)
+        except Exception as close_exc:  # noqa: BLE001
+            closing = close_exc
+        if failed is not None:
+            raise failed from None
+        if closing is not None and exc is None:
+            if integrity.is_hdf5_failure(closing):
+                raise integrity.unreadable(self._varstar_path, closing, writing=False) from None
+            raise closing
+        return False
 
     def close(self) -> None:
         try:
@@ -386,18 +603,26 @@ class _ReadFile(h5py.File):
                 lock.close()  # closing the descriptor releases the flock
 
 
-def open_read(path: Path, *, timeout_s: float = 30.0) -> h5py.File:
+def open_read(path: Path, *, timeout_s: float = 30.0, damaged_ok: bool = False) -> h5py.File:
     """Open an archive for reading at its last committed state.
 
     The returned :class:`h5py.File` holds a shared lock on the archive until it
     is closed (use it in a ``with`` block), so a writer never writes into the
-    file while it is read.
+    file while it is read; an HDF5 read failure inside the block becomes an
+    :class:`ArchiveError` naming what could not be read.
+
+    A damaged journal (found now, or kept aside earlier) makes it refuse, unless
+    ``damaged_ok`` (for ``varstar verify``, which reports it): then the archive
+    is read as it is on disk.
     """
     path = Path(path)
     deadline = time.monotonic() + timeout_s
     through_journal = False
+    as_is = False  # a damaged journal was reported: read the archive as it is on disk (damaged_ok only)
     waiting_since: float | None = None
     while True:
+        if not damaged_ok:
+            _refuse_damaged(path)
         try:
             lock = open(path, "rb", buffering=0)  # noqa: SIM115 (closed by the returned file, or below)
         except FileNotFoundError:
@@ -410,17 +635,41 @@ def open_read(path: Path, *, timeout_s: float = 30.0) -> h5py.File:
                     f"{path}: another varstar process ({_holder(path)}) kept this archive busy for more than "
                     f"{timeout_s:g} s; try again when it has finished"
                 )
-            j = jr.read_journal(jr.journal_path(path))
-            if j is None:
-                return _open_file(path, path, lock, locking=False)
-            if through_journal:
-                if not jr.tail_matches(lock.fileno(), j):
+            found = jr.inspect_journal(jr.journal_path(path))
+            if found.state in (jr.ABSENT, jr.INCOMPLETE, jr.FOREIGN) or (found.state == jr.DAMAGED and as_is):
+                # nothing committed is pending (a writer refuses a foreign file there); read through
+                # an overlay all the same: it checks what HDF5 would parse unchecked (journal.PageOverlay)
+                return _open_file(path, jr.PageOverlay(lock.fileno(), name=str(path)), lock)
+            if through_journal and found.journal is not None:
+                if not jr.tail_matches(lock.fileno(), found.journal):
                     raise ArchiveError(_mismatch_message(path, jr.journal_path(path)))
-                return _open_file(path, jr.PageOverlay.from_journal(lock.fileno(), j), lock)
+                return _open_file(path, jr.PageOverlay.from_journal(lock.fileno(), found.journal, name=str(path)), lock)
         except BaseException:
             lock.close()
             raise
         lock.close()
+        if found.state == jr.DAMAGED:
+            # Kept aside under the writer lock when it is free (recover() does it and raises);
+            # refused either way, except by verify, which reads on and reports it.
+            err: ArchiveError | None = ArchiveError(
+                _damaged_message(path, jr.journal_path(path), f"is damaged ({found.why})"))
+            wfd = _try_writer_lock(path)
+            if wfd is not None:
+                try:
+                    recover(path, _READER_APPLY_WAIT_S)
+                    err = None  # meanwhile replaced by a sound journal, now written in
+                except ArchiveError as exc:
+                    err = exc
+                except OSError:
+                    pass
+                finally:
+                    _clear_holder(wfd)
+                    fcntl.flock(wfd, fcntl.LOCK_UN)
+                    os.close(wfd)
+            if err is not None and not damaged_ok:
+                raise err
+            as_is = err is not None
+            continue
         # A committed change is waiting to be written into the archive.
         wfd = _try_writer_lock(path)
         if wfd is None:
@@ -445,7 +694,11 @@ def open_read(path: Path, *, timeout_s: float = 30.0) -> h5py.File:
 
 def _open_file(path: Path, name, lock: io.FileIO, **kwargs) -> h5py.File:
     try:
-        return _ReadFile(name, lock, **kwargs)
-    except OSError:
+        return _ReadFile(name, lock, path, **kwargs)
+    except Exception as exc:  # noqa: BLE001
         lock.close()
-        raise ArchiveError(f"{path}: not a readable HDF5 archive") from None
+        if isinstance(exc, OSError) or integrity.is_hdf5_failure(exc):
+            detail = f" (HDF5: {integrity.hdf5_detail(exc)})" if integrity.is_hdf5_failure(exc) else ""
+            raise ArchiveError(f"{path}: not a readable HDF5 archive{detail}; if it is a varstar archive, it is "
+                               f"damaged: put back a copy") from None
+        raise
