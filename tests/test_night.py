@@ -205,3 +205,37 @@ def test_excluded_comparison_is_left_out(tmp_path):
     (tmp_path / "bad.toml").write_text((DEMO / "target.toml").read_text() + '\n[reduction]\nexclude = ["K1"]\n')
     with pytest.raises(InputError, match="not a comparison star"):
         varstar.night.excluded_stars(varstar.read_target(tmp_path / "bad.toml"))
+
+
+def test_implausible_instrumental_magnitudes_are_flagged_not_reduced(demo_data, tmp_path):
+    """A few target rows at instrumental magnitude 49 (a file error) lie ~58 mag from the comparison
+    stars of their exposures, beyond a detector's range (DETECTOR_RANGE_MAG, common practice): they
+    are stored flagged with a warning, and the light curve's good points stay within the truth's range."""
+    import varstar
+    from varstar.night import DETECTOR_RANGE_MAG
+
+    src = demo_data.folder / "night-2026-09-12.csv"
+    lines = src.read_text().splitlines()
+    header = lines[0].split(",")
+    i_star, i_mag = header.index("star"), header.index("mag")
+    bad = 0
+    for k in range(1, len(lines)):
+        cells = lines[k].split(",")
+        if cells[i_star] == "V1" and bad < 5 and k % 7 == 0:
+            cells[i_mag] = "49.0"
+            lines[k] = ",".join(cells)
+            bad += 1
+    assert bad == 5
+    path_csv = tmp_path / "night-2026-09-12.csv"
+    path_csv.write_text("\n".join(lines) + "\n")
+    path = tmp_path / "a.h5"
+    varstar.create_archive(path, varstar.read_target(demo_data.folder / "target.toml"))
+    res = varstar.ingest(path, [path_csv])
+    warns = " ".join(res.nights[0]["warnings"])
+    assert "5 measurement(s) of V1" in warns and f"{DETECTOR_RANGE_MAG:g} mag" in warns
+    arch = varstar.open_archive(path)
+    good = arch.lightcurve()
+    assert good["mag"].max() < 20  # the demo target is about 13 mag
+    every = arch.lightcurve(star="V1", include_flagged=True)
+    assert every["flags"].str.contains("implausible_magnitude").sum() == 5
+    assert len(every) - len(arch.lightcurve(star="V1")) == 5

@@ -111,6 +111,21 @@ def _check_bands(target: Target, table: pd.DataFrame) -> None:
             )
 
 
+#: Largest plausible difference (mag) between two stars measured in one exposure: a 16-bit
+#: detector spans 2.5 log10(65535) = 12.0 mag from one count to saturation (common practice),
+#: with half a magnitude to spare for the sky and aperture sums.
+DETECTOR_RANGE_MAG = 12.5
+
+
+def _implausible(mag: np.ndarray, is_comparison: np.ndarray, exposure: np.ndarray, n_exp: int) -> np.ndarray:
+    """Rows whose instrumental magnitude lies beyond :data:`DETECTOR_RANGE_MAG` of the median
+    comparison star of the same exposure (exposures without comparison stars: none)."""
+    comp = is_comparison & np.isfinite(mag)
+    ref = pd.Series(mag[comp]).groupby(exposure[comp]).median().reindex(range(n_exp)).to_numpy()
+    with np.errstate(invalid="ignore"):
+        return np.abs(mag - ref[exposure]) > DETECTOR_RANGE_MAG
+
+
 def reduce_night(
     target: Target,
     table: pd.DataFrame,
@@ -293,14 +308,28 @@ def reduce_night(
     raw = table.copy()
     raw["exposure"] = exposure_of_row
 
-    from .archive.layout import QUALITY_EXPOSURE_FLAGGED, QUALITY_NO_ZERO_POINT, QUALITY_UPSTREAM_FLAG
+    from .archive.layout import (
+        QUALITY_EXPOSURE_FLAGGED,
+        QUALITY_IMPLAUSIBLE,
+        QUALITY_NO_ZERO_POINT,
+        QUALITY_UPSTREAM_FLAG,
+    )
 
     measured = (roles[star_idx] != "comparison") & np.isfinite(table["mag"].to_numpy())
     e_rows = exposure_of_row[measured]
+    implausible = _implausible(table["mag"].to_numpy(), is_comp[star_idx], exposure_of_row, n_exp)[measured]
+    for sid in pd.unique(table["star"].to_numpy(dtype=object)[measured][implausible]):
+        n_bad = int(np.count_nonzero(implausible & (table["star"].to_numpy(dtype=object)[measured] == sid)))
+        warnings.append(
+            f"{n_bad} measurement(s) of {sid} lie more than {DETECTOR_RANGE_MAG:g} mag from the comparison stars "
+            "of the same exposure, beyond what one exposure of a detector can record: flagged "
+            "(implausible_magnitude), not reduced; check the file's magnitude column"
+        )
     quality = (
         np.where(flags[e_rows] != "", QUALITY_EXPOSURE_FLAGGED, 0)
         | np.where(table["flag"].to_numpy()[measured] != 0, QUALITY_UPSTREAM_FLAG, 0)
         | np.where(np.isfinite(zp[e_rows]), 0, QUALITY_NO_ZERO_POINT)
+        | np.where(implausible, QUALITY_IMPLAUSIBLE, 0)
     ).astype(np.uint8)
     points = pd.DataFrame(
         {

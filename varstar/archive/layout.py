@@ -26,6 +26,7 @@ STR = "str"  # marker for variable-length UTF-8 text
 QUALITY_EXPOSURE_FLAGGED = 1
 QUALITY_UPSTREAM_FLAG = 2
 QUALITY_NO_ZERO_POINT = 4
+QUALITY_IMPLAUSIBLE = 8  # instrumental magnitude beyond a detector's range from the comparison stars
 
 TABLES: dict[str, dict[str, str]] = {
     "bands": {"name": STR},

@@ -19,6 +19,7 @@ from . import tables
 from .layout import (
     FORMAT_NAME,
     QUALITY_EXPOSURE_FLAGGED,
+    QUALITY_IMPLAUSIBLE,
     QUALITY_NO_ZERO_POINT,
     QUALITY_UPSTREAM_FLAG,
     SCHEMA_VERSION,
@@ -505,4 +506,6 @@ def _quality_text(q: int, exposure_flags: str) -> str:
         parts.append("upstream_flag")
     if q & QUALITY_NO_ZERO_POINT:
         parts.append("no_zero_point")
+    if q & QUALITY_IMPLAUSIBLE:
+        parts.append("implausible_magnitude")
     return ";".join(p for p in parts if p)
