@@ -35,7 +35,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputError
-from .target import id_problem
+from .target import id_problem, open_input
 
 REQUIRED_LONG = ("jd", "band", "star", "mag", "mag_err")
 OPTIONAL = ("airmass", "exptime", "flag", "frame")
@@ -633,14 +633,7 @@ def _check_cut_line(out: pd.DataFrame, line: int, source: str) -> None:
 
 def _open(path: Path) -> BinaryIO:
     """Open a measurement file for reading, turning the usual OS failures into an :class:`InputError`."""
-    try:
-        return open(path, "rb")
-    except FileNotFoundError:
-        raise InputError(f"{path}: file not found") from None
-    except IsADirectoryError:
-        raise InputError(f"{path}: is a directory, not a measurement table") from None
-    except OSError as exc:
-        raise InputError(f"{path}: cannot read: {exc.strerror}") from None
+    return open_input(path, "a measurement table")
 
 
 def _read_error(path: Path, exc: OSError) -> InputError:

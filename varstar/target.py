@@ -15,7 +15,7 @@ import math
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Mapping
+from typing import Any, BinaryIO, Mapping
 
 from .errors import InputError
 
@@ -436,23 +436,35 @@ def parse_target(text: str, source: str = "<string>") -> Target:
 MAX_TOML_BYTES = 64 * 2**20
 
 
+def open_input(path: Path, what: str) -> BinaryIO:
+    """Open an input file for reading in binary, every usual OS failure as one :class:`InputError`.
+
+    ``what`` names what the file should be, for the message about a directory
+    (``"a TOML file"``, ``"a measurement table"``).
+    """
+    try:
+        return open(path, "rb")
+    except FileNotFoundError:
+        raise InputError(f"{path}: file not found") from None
+    except IsADirectoryError:
+        raise InputError(f"{path}: is a directory, not {what}") from None
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read: {exc.strerror}") from None
+    except ValueError:  # a NUL in a file name (e.g. given inside a TOML file: setups = "...")
+        raise InputError(f"{str(path)!r}: not a usable file name (it contains a NUL character)") from None
+
+
 def read_toml_text(p: Path) -> str:
     """The text of a TOML file (target, standard field, setups), every failure as an :class:`InputError`.
 
     At most :data:`MAX_TOML_BYTES` are read, so that a wrong path (a device, a
     huge file) costs little.
     """
-    try:
-        with open(p, "rb") as fh:
+    with open_input(p, "a TOML file") as fh:
+        try:
             raw = fh.read(MAX_TOML_BYTES + 1)
-    except FileNotFoundError:
-        raise InputError(f"{p}: file not found") from None
-    except IsADirectoryError:
-        raise InputError(f"{p}: is a directory, not a TOML file") from None
-    except OSError as exc:
-        raise InputError(f"{p}: cannot read: {exc.strerror}") from None
-    except ValueError:  # a NUL in a file name given inside a TOML file (setups = "...")
-        raise InputError(f"{str(p)!r}: not a usable file name (it contains a NUL character)") from None
+        except OSError as exc:
+            raise InputError(f"{p}: cannot read: {exc.strerror}") from None
     if len(raw) > MAX_TOML_BYTES:
         raise InputError(f"{p}: larger than {MAX_TOML_BYTES // 2**20} MiB; not a varstar TOML file")
     try:
