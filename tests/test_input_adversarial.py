@@ -614,3 +614,15 @@ def test_one_rule_for_every_id():
         assert set(t["frame"]) == {f"x{text_id}y"}
         t = parse_target(base.replace('id = "C1"', f'id = "C1{text_id}z"', 1), source="t.toml")
         assert t.star_ids[1] == f"C1{text_id}z"
+
+
+def test_python_api_numbers_refuse_huge_integers_in_words():
+    """The same rule from Python as from files: an integer too large for a float is an InputError
+    (the siblings of the TOML check in timings and transform)."""
+    from varstar.timings import ephemeris_from_table
+    from varstar.transform import Coefficients
+
+    with pytest.raises(InputError, match=r"\[ephemeris\]\.epoch"):
+        ephemeris_from_table({"epoch": 10**400, "period": 0.5, "kind": "minimum"}, "t.toml: [ephemeris]")
+    with pytest.raises(InputError, match="epsilon_v must be a number"):
+        Coefficients(epsilon_v=10**400, mu_bv=1.0)

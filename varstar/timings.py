@@ -192,9 +192,9 @@ def _number(table: Mapping, key: str, where: str, *, required: bool) -> float | 
         if required:
             raise InputError(f"{where}.{key} is missing: give it as a number")
         return None
-    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
-        raise InputError(f"{where}.{key} must be a finite number, got {v!r}")
-    return float(v)
+    from .target import finite_number  # the one numeric check (huge integers included)
+
+    return finite_number(v, f"{where}.{key}")
 
 
 def ephemeris_from_table(table: Mapping, where: str) -> Ephemeris:

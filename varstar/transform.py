@@ -135,7 +135,7 @@ def _finite_fields(obj: Any, names: Sequence[str], what: str, where: str = "") -
         value = getattr(obj, name)
         try:
             v = float(value)
-        except (TypeError, ValueError):
+        except (TypeError, ValueError, OverflowError):  # OverflowError: an integer too large for a float
             raise InputError(f"{what} {name} must be a number, got {value!r}{where}") from None
         if not math.isfinite(v):
             raise InputError(f"{what} {name} must be finite, got {value!r}{where}")
