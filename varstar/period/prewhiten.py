@@ -59,6 +59,7 @@ from varstar.period.refine import (
     _fit_sinusoids,
     _jf,
     _model_jac,
+    _solve_linear,
 )
 
 __all__ = ["amplitude_spectrum", "FoundFrequency", "PrewhiteningResult", "prewhiten"]
@@ -280,8 +281,8 @@ def _best_alias(tau, y, whiten, accepted, terms, nterms, trials) -> float:
     """
     a_mat = whiten(_design(tau, np.asarray(accepted, dtype=float), terms))
     wy = whiten(y)
-    gram = a_mat.T @ a_mat
-    r = wy - a_mat @ np.linalg.solve(gram, a_mat.T @ wy)
+    gram, beta = _solve_linear(a_mat, wy, len(accepted), terms)
+    r = wy - a_mat @ beta
     best, drop = float(trials[0]), -np.inf
     for f_try in trials:
         b_mat = whiten(_design(tau, np.array([f_try]), (nterms,))[:, 1:])
@@ -445,8 +446,12 @@ def prewhiten(
         # (common practice: aliases are told apart by the fit, not by the periodogram alone).
         f_best = f_new
         if aliases_cpd.size > 1:
-            f_best = _best_alias(t - t_ref, y, whiten, accepted, tuple(terms), nterms,
-                                 f_new + aliases_cpd[f_new + aliases_cpd > 0])  # aliases may lie beyond the grid
+            try:
+                f_best = _best_alias(t - t_ref, y, whiten, accepted, tuple(terms), nterms,
+                                     f_new + aliases_cpd[f_new + aliases_cpd > 0])  # aliases may lie beyond the grid
+            except ReductionError as exc:
+                stop.update(reason=f"the alias comparison at {f_new:.6f} c/d failed: {exc}", f=f_new)
+                break
         else:
             try:
                 trial = _fit_sinusoids(t, y, dy, np.append(accepted, f_new), new_terms, t_ref, whiten=whiten)

@@ -132,26 +132,32 @@ def _model_jac(p: np.ndarray, tau: np.ndarray, n_freq: int, nterms: Any, want_ja
     The loop runs over frequencies (a handful), never over measurements.
     """
     terms = _terms(n_freq, nterms)
-    model = np.full(tau.shape, p[0])
-    jac = np.empty((tau.size, p.size)) if want_jac else None
-    if want_jac:
-        jac[:, 0] = 1.0
-    for base, nt in zip(_bases(terms), terms):
-        k = np.arange(1, nt + 1, dtype=float)
-        width = 1 + 2 * nt
-        f = p[base]
-        a = p[base + 1 : base + width : 2]
-        b = p[base + 2 : base + width : 2]
-        # e^{i k x} as powers of e^{i x}: one complex exponential per point instead of
-        # K cosines and K sines (the harmonics' rounding error grows only as k eps)
-        z = np.cumprod(np.broadcast_to(np.exp(1j * (TWO_PI * f * tau))[:, None], (tau.size, nt)), axis=1)
-        c, s = z.real, z.imag
-        model += c @ a + s @ b
-        if want_jac:
-            jac[:, base + 1 : base + width : 2] = c
-            jac[:, base + 2 : base + width : 2] = s
-            jac[:, base] = (TWO_PI * tau) * ((s * (-a) + c * b) @ k)
+    fidx = _bases(terms)
+    lin = np.ones(p.size, dtype=bool)
+    lin[fidx] = False
+    x = _design(tau, p[fidx], terms)
+    model = x @ p[lin]
+    if not want_jac:
+        return model, None
+    jac = np.empty((tau.size, p.size))
+    jac[:, lin] = x
+    jac[:, fidx] = _freq_columns(x, p[lin], tau, terms)
     return model, jac
+
+
+def _freq_columns(x: np.ndarray, beta: np.ndarray, tau: np.ndarray, terms: tuple[int, ...]) -> np.ndarray:
+    """d model / d f_i = 2 pi tau sum_k k (b_k cos kx - a_k sin kx), one column per frequency.
+
+    ``x`` is :func:`_design`'s matrix and ``beta`` the linear parameters in its order.
+    """
+    d = np.empty((tau.size, len(terms)))
+    col = 1
+    for i, nt in enumerate(terms):
+        k = np.arange(1, nt + 1, dtype=float)
+        ab = beta[col : col + 2 * nt]
+        d[:, i] = x[:, col : col + 2 * nt : 2] @ (k * ab[1::2]) - x[:, col + 1 : col + 2 * nt : 2] @ (k * ab[0::2])
+        col += 2 * nt
+    return (TWO_PI * tau)[:, None] * d
 
 
 @dataclass(frozen=True, eq=False)
@@ -178,7 +184,8 @@ def _design(tau: np.ndarray, freqs: np.ndarray, terms: tuple[int, ...]) -> np.nd
     out[:, 0] = 1.0
     col = 1
     for f, nt in zip(freqs, terms):
-        # e^{i k x} as powers of e^{i x}: one complex exponential per point (see _model_jac)
+        # e^{i k x} as powers of e^{i x}: one complex exponential per point instead of
+        # K cosines and K sines (the harmonics' rounding error grows only as k eps)
         z = np.cumprod(np.broadcast_to(np.exp(1j * (TWO_PI * f * tau))[:, None], (tau.size, nt)), axis=1)
         out[:, col : col + 2 * nt : 2] = z.real
         out[:, col + 1 : col + 2 * nt : 2] = z.imag
@@ -203,14 +210,6 @@ def _solve_linear(a_mat: np.ndarray, wy: np.ndarray, n_freq: int, terms: tuple[i
             "too few phases covered; use fewer harmonics or more data"
         )
     return gram, np.linalg.solve(gram, a_mat.T @ wy)
-
-
-def _solve_lower(low: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """Forward substitution ``low x = b`` (numpy has no triangular solver; the matrices are small)."""
-    x = np.empty_like(b)
-    for i in range(b.size):
-        x[i] = (b[i] - low[i, :i] @ x[:i]) / low[i, i]
-    return x
 
 
 def _linear_start(y, tau, freqs, nterms, whiten: NightlyWhitener) -> np.ndarray:
@@ -246,7 +245,6 @@ def _variable_projection(y, tau, p, n_freq, nterms, whiten) -> tuple[np.ndarray,
     lin = np.ones(p.size, dtype=bool)
     lin[fidx] = False
     wy = whiten(y)
-    two_pi_tau = TWO_PI * tau
 
     def state(fr):
         q = p.copy()
@@ -256,14 +254,7 @@ def _variable_projection(y, tau, p, n_freq, nterms, whiten) -> tuple[np.ndarray,
         gram, beta = _solve_linear(a_mat, wy, n_freq, terms)
         q[lin] = beta
         r = wy - a_mat @ beta
-        d = np.empty((tau.size, n_freq))
-        col = 1
-        for i, nt in enumerate(terms):  # d model / d f_i = 2 pi tau sum k (b_k cos kx - a_k sin kx)
-            k = np.arange(1, nt + 1, dtype=float)
-            ab = beta[col : col + 2 * nt]
-            d[:, i] = two_pi_tau * (x[:, col : col + 2 * nt : 2] @ (k * ab[1::2]) - x[:, col + 1 : col + 2 * nt : 2] @ (k * ab[0::2]))
-            col += 2 * nt
-        return q, r, float(r @ r), a_mat, gram, whiten(d)
+        return q, r, float(r @ r), a_mat, gram, whiten(_freq_columns(x, beta, tau, terms))
 
     fr = p[fidx].copy()
     q, r, chi2, a_mat, gram, d = state(fr)
@@ -761,7 +752,7 @@ def fit_harmonics_aic(
         chol = np.linalg.cholesky(a_mat.T @ a_mat)
     except np.linalg.LinAlgError:  # the sampling does not separate the top harmonics: keep the start
         return start
-    proj = _solve_lower(chol, a_mat.T @ wy)
+    proj = np.linalg.solve(chol, a_mat.T @ wy)  # chol is lower triangular; the system is small
     total = float(wy @ wy)
     best_k, best_aic = int(min_nterms), np.inf
     for k in range(int(min_nterms), top + 1):
