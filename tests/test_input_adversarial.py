@@ -35,14 +35,18 @@ import io
 import re
 import shutil
 import unicodedata
+import sys
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 
+sys.path.insert(0, str(Path(__file__).parent))
+
+from test_cli import run
+
 import varstar
-from varstar.cli import main
 from varstar.ensemble import EnsembleSettings
 from varstar.errors import InputError, ReductionError
 from varstar.measurements import CHUNK_BYTES, MAX_LINE_BYTES, parse_measurements, parse_stream, read_measurement_file
@@ -57,13 +61,6 @@ HUGE = "1" + "0" * 400  # the issue's value: 1 followed by 400 zeros
 
 
 # --------------------------------------------------------------------------- helpers
-
-
-def run(capsys, *argv) -> tuple[int, str, str]:
-    capsys.readouterr()
-    rc = main([str(a) for a in argv])
-    out, err = capsys.readouterr()
-    return rc, out, err
 
 
 def digest(path: Path) -> str:

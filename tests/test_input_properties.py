@@ -41,6 +41,7 @@ import tempfile
 import unicodedata
 from contextlib import contextmanager
 from dataclasses import dataclass, field
+import sys
 from pathlib import Path
 from types import SimpleNamespace
 
@@ -49,6 +50,10 @@ import pandas as pd
 import pytest
 from hypothesis import HealthCheck, Phase, assume, given, settings
 from hypothesis import strategies as st
+
+sys.path.insert(0, str(Path(__file__).parent))
+
+from test_cli import run
 
 import varstar
 from varstar.cli import main
@@ -144,13 +149,6 @@ def sandbox(world, with_archive: bool = True):
         yield d, arch
     finally:
         shutil.rmtree(d, ignore_errors=True)
-
-
-def run(capsys, *argv) -> tuple[int, str, str]:
-    capsys.readouterr()
-    rc = main([str(a) for a in argv])
-    out, err = capsys.readouterr()
-    return rc, out, err
 
 
 def listing(folder: Path) -> dict[str, str]:

@@ -9,19 +9,16 @@ plus two cut from them: a V-only night and a night of only 12 exposures.
 from __future__ import annotations
 
 import hashlib
+import sys
 from pathlib import Path
 
 import pytest
 
+sys.path.insert(0, str(Path(__file__).parent))
+
+from test_cli import run
+
 import varstar
-from varstar.cli import main
-
-
-def run(capsys, *argv) -> tuple[int, str, str]:
-    capsys.readouterr()
-    rc = main([str(a) for a in argv])
-    out, err = capsys.readouterr()
-    return rc, out, err
 
 
 def _digest(path: Path) -> str:
