@@ -56,7 +56,7 @@ import numpy as np
 from scipy import special
 
 from varstar.errors import InputError, ReductionError
-from varstar.jsonsafe import json_float as _json_float
+from varstar.results import json_float as _json_float
 
 __all__ = ["EnsembleSettings", "EnsembleSolution", "solve_ensemble"]
 
@@ -529,7 +529,7 @@ def _solve_excess_grouped(
     return x
 
 
-def _paule_mandel(d: np.ndarray, v: np.ndarray) -> float:
+def paule_mandel(d: np.ndarray, v: np.ndarray) -> float:
     """Excess variance ``s2`` of values ``d`` with variances ``v`` (Paule & Mandel 1982).
 
     Solves ``sum (d - dbar)^2 / (v + s2) = n - 1`` with ``dbar`` the weighted mean
@@ -1145,7 +1145,7 @@ def solve_ensemble(
     while True:
         v = cat_err[gi_in][tie] ** 2 + var_M0[tie]
         dd = d[tie]
-        s_cat2 = _paule_mandel(dd, v)
+        s_cat2 = paule_mandel(dd, v)
         n_tie = int(np.count_nonzero(tie))
         if n_tie < 2:
             break

@@ -19,7 +19,6 @@ from __future__ import annotations
 import errno
 import io
 import json
-import math
 import os
 import secrets
 import stat
@@ -30,6 +29,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from .results import plain
+
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
 #: Columns of the exported light curve, in order.
@@ -38,24 +39,6 @@ LIGHTCURVE_COLUMNS = (
     "mag_untransformed", "mag_untransformed_err", "epsilon_v", "mu_bv", "k2_bv", "airmass", "night", "frame",
     "quality", "flags",
 )
-
-
-def plain(obj: Any) -> Any:
-    """Recursively turn numpy scalars/arrays and non-finite floats into JSON-safe Python values."""
-    if isinstance(obj, dict):
-        return {str(k): plain(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [plain(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return plain(obj.tolist())
-    if isinstance(obj, (np.bool_, bool)):
-        return bool(obj)
-    if isinstance(obj, (np.integer,)):
-        return int(obj)
-    if isinstance(obj, (float, np.floating)):
-        f = float(obj)
-        return f if math.isfinite(f) else None
-    return obj
 
 
 def to_json(obj: Any, *, indent: int | None = None) -> str:

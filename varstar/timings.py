@@ -61,7 +61,7 @@ from typing import Any, Literal
 import numpy as np
 
 from .errors import InputError, ReductionError
-from .jsonsafe import json_float as _jf, sd
+from .results import json_float as _jf, sd
 
 __all__ = [
     "ASYMMETRY_PVALUE",

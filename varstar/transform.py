@@ -54,7 +54,7 @@ import numpy as np
 from scipy import special
 
 from varstar.errors import InputError
-from varstar.jsonsafe import json_float as _json_float
+from varstar.results import json_float as _json_float
 
 __all__ = [
     "Coefficients",
@@ -147,7 +147,7 @@ def _finite_fields(obj: Any, names: Sequence[str], what: str, where: str = "") -
 def _paule_mandel(d: np.ndarray, v: np.ndarray) -> float:
     """Excess variance of ``d`` about its weighted mean (Paule & Mandel 1982, reference
     from memory): the ensemble's estimator, with this module's variance floor."""
-    from .ensemble import _paule_mandel as excess
+    from .ensemble import paule_mandel as excess
 
     return excess(d, np.maximum(v, _VAR_FLOOR))
 

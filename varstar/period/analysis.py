@@ -47,7 +47,7 @@ from typing import Any
 import numpy as np
 
 from varstar.errors import InputError, VarstarError
-from varstar.jsonsafe import json_float as _jf
+from varstar.results import json_float as _jf
 from varstar.period import (
     aliases,
     gls,

@@ -69,7 +69,7 @@ from typing import Any
 import numpy as np
 
 from varstar.errors import InputError
-from varstar.jsonsafe import json_float as _jf
+from varstar.results import json_float as _jf
 from varstar.period.refine import _check_freq, _check_series
 
 __all__ = ["pdm_theta", "pdm_search", "PeriodChoice", "choose_p_or_2p", "DEFAULT_BUDGET"]

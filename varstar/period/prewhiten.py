@@ -46,7 +46,7 @@ from typing import Any, Callable
 import numpy as np
 
 from varstar.errors import InputError, ReductionError
-from varstar.jsonsafe import sd
+from varstar.results import sd
 from varstar.period import gls
 from varstar.period.nightly import nightly_whitener
 from varstar.period.refine import (

@@ -47,7 +47,7 @@ from typing import Any
 import numpy as np
 
 from varstar.errors import InputError, ReductionError
-from varstar.jsonsafe import json_float as _jf, sd
+from varstar.results import json_float as _jf, sd
 from varstar.period.nightly import NightlyWhitener, nightly_whitener
 
 TWO_PI = 2.0 * math.pi

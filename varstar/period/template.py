@@ -146,7 +146,7 @@ from scipy.optimize import brentq
 from scipy.signal import find_peaks, peak_prominences
 
 from varstar.errors import InputError, ReductionError
-from varstar.jsonsafe import json_float as _jf, sd
+from varstar.results import json_float as _jf, sd
 from varstar.period.nightly import nightly_whitener
 from varstar.period.refine import _check_series
 
