@@ -16,6 +16,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
+from . import quality as qbits
 from .errors import InputError, ReductionError
 from .measurements import file_sha256, is_regular_file, read_measurement_file
 from .target import Target, reduction_options
@@ -308,13 +309,6 @@ def reduce_night(
     raw = table.copy()
     raw["exposure"] = exposure_of_row
 
-    from .archive.layout import (
-        QUALITY_EXPOSURE_FLAGGED,
-        QUALITY_IMPLAUSIBLE,
-        QUALITY_NO_ZERO_POINT,
-        QUALITY_UPSTREAM_FLAG,
-    )
-
     measured = (roles[star_idx] != "comparison") & np.isfinite(table["mag"].to_numpy())
     e_rows = exposure_of_row[measured]
     implausible = _implausible(table["mag"].to_numpy(), is_comp[star_idx], exposure_of_row, n_exp)[measured]
@@ -326,10 +320,10 @@ def reduce_night(
             "(implausible_magnitude), not reduced; check the file's magnitude column"
         )
     quality = (
-        np.where(flags[e_rows] != "", QUALITY_EXPOSURE_FLAGGED, 0)
-        | np.where(table["flag"].to_numpy()[measured] != 0, QUALITY_UPSTREAM_FLAG, 0)
-        | np.where(np.isfinite(zp[e_rows]), 0, QUALITY_NO_ZERO_POINT)
-        | np.where(implausible, QUALITY_IMPLAUSIBLE, 0)
+        np.where(flags[e_rows] != "", qbits.EXPOSURE_FLAGGED, 0)
+        | np.where(table["flag"].to_numpy()[measured] != 0, qbits.UPSTREAM_FLAG, 0)
+        | np.where(np.isfinite(zp[e_rows]), 0, qbits.NO_ZERO_POINT)
+        | np.where(implausible, qbits.IMPLAUSIBLE, 0)
     ).astype(np.uint8)
     points = pd.DataFrame(
         {

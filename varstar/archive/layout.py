@@ -22,12 +22,6 @@ STR = "str"  # marker for variable-length UTF-8 text
 # whole on every ingest (file checksums, night labels): HDF5 reads them as one block,
 # where variable-length text costs a heap lookup per row.
 
-#: Quality bits of a light-curve point (``/points/quality``); 0 means good.
-QUALITY_EXPOSURE_FLAGGED = 1
-QUALITY_UPSTREAM_FLAG = 2
-QUALITY_NO_ZERO_POINT = 4
-QUALITY_IMPLAUSIBLE = 8  # instrumental magnitude beyond a detector's range from the comparison stars
-
 TABLES: dict[str, dict[str, str]] = {
     "bands": {"name": STR},
     "stars": {"id": STR, "role": STR},

@@ -14,14 +14,11 @@ import pandas as pd
 
 from .. import __version__
 from ..errors import ArchiveError, VarstarError
+from ..quality import quality_words
 from ..target import Target, parse_target
 from . import tables
 from .layout import (
     FORMAT_NAME,
-    QUALITY_EXPOSURE_FLAGGED,
-    QUALITY_IMPLAUSIBLE,
-    QUALITY_NO_ZERO_POINT,
-    QUALITY_UPSTREAM_FLAG,
     SCHEMA_VERSION,
     code_capacity,
 )
@@ -297,7 +294,7 @@ class Archive:
             "night": lambda: _labels(labels, p["night"]),
             "frame": lambda: e["frame"],
             "quality": lambda: p["quality"],
-            "flags": lambda: _flag_texts(p["quality"], e["flags"]),
+            "flags": lambda: quality_words(p["quality"], e["flags"]),
         }
         df = pd.DataFrame({c: make[c]() for c in wanted})
         rank = np.argsort(np.argsort(np.asarray(bands, dtype=str))) if len(bands) else np.zeros(0, dtype=int)
@@ -488,24 +485,3 @@ def check_root(f: h5py.File, path: Path, *, writing: bool = False) -> None:
 def _labels(nights: dict[str, np.ndarray], ids: np.ndarray) -> np.ndarray:
     lookup = dict(zip(nights["night"].tolist(), nights["label"].tolist()))
     return np.array([lookup.get(int(i), "?") for i in np.unique(ids)], dtype=object)[np.searchsorted(np.unique(ids), ids)] if len(ids) else np.array([], dtype=object)
-
-
-def _flag_texts(quality: np.ndarray, exposure_flags: np.ndarray) -> np.ndarray:
-    """Per point: why it is flagged, in words ("" when good); ``exposure_flags`` per point."""
-    out = np.full(len(quality), "", dtype=object)
-    for i in np.flatnonzero(quality):  # only the (few) flagged points
-        out[i] = _quality_text(int(quality[i]), str(exposure_flags[i]))
-    return out
-
-
-def _quality_text(q: int, exposure_flags: str) -> str:
-    parts = []
-    if q & QUALITY_EXPOSURE_FLAGGED:
-        parts.append(exposure_flags)
-    if q & QUALITY_UPSTREAM_FLAG:
-        parts.append("upstream_flag")
-    if q & QUALITY_NO_ZERO_POINT:
-        parts.append("no_zero_point")
-    if q & QUALITY_IMPLAUSIBLE:
-        parts.append("implausible_magnitude")
-    return ";".join(p for p in parts if p)
