@@ -12,10 +12,10 @@ How the archive is filled (stated plainly, because it is not 3,650 calls of
 ``ingest``):
 
 * Between checkpoints, each night is reduced for real by
-  :func:`varstar.night.reduce_night` from its own measurement table (generated,
+  :func:`varstar.workflows.reduce.reduce_night` from its own measurement table (generated,
   written as CSV text and parsed by :func:`varstar.measurements.parse_measurements`,
   as ingest does), in a worker process, and written by the main process with
-  :func:`varstar.night._write_night` in its own :func:`varstar.archive.transaction`
+  :meth:`varstar.archive.ArchiveWriter.append_night` in its own change
   -- the same function and the same one-transaction-per-night that ``ingest``
   uses.  What this skips of ``ingest``: reading the file from disk, its SHA-256
   (the source's ``sha256`` column gets a digest of the night's CSV text instead),
@@ -24,7 +24,7 @@ How the archive is filled (stated plainly, because it is not 3,650 calls of
   names and sources renamed) for a quicker, less faithful run.
 * At each checkpoint (0, 1, 2, 5, 10 years, or what ``--years`` allows) the next
   night is written to a CSV file and ingested with the real
-  :func:`varstar.night.ingest`, timed in this (warm) process, and at the last
+  :func:`varstar.workflows.night.ingest`, timed in this (warm) process, and at the last
   checkpoint also as the command ``varstar ingest`` in a fresh process.
 
 Figures per checkpoint: the ingest's wall time, split into the reduction
@@ -110,7 +110,7 @@ def _init_worker(target_path: str, seed: int) -> None:
 def reduce_one(i: int):
     """Reduce night ``i`` in a worker: (i, NightReduction, sha256 of its CSV text, number of rows)."""
     from varstar.measurements import parse_measurements
-    from varstar.night import reduce_night
+    from varstar.workflows.reduce import reduce_night
 
     _, text = night_csv(i, _WORKER["seed"])
     name = f"night-{i:05d}.csv"
@@ -199,11 +199,11 @@ def time_ingest(archive: Path, csv: Path) -> dict[str, float]:
 
 
 def time_lightcurve(archive: Path) -> dict[str, float]:
-    from varstar.archive import Archive
+    from varstar.archive import ArchiveStore
 
-    arch = Archive(archive)
+    arch = ArchiveStore(archive)
     out = {}
-    from varstar.analyses import ANALYSIS_COLUMNS
+    from varstar.workflows.periods import ANALYSIS_COLUMNS
 
     for key, kw in (("lc_all_s", {}), ("lc_v_s", {"band": "V"}), ("lc_core_s", {"columns": ANALYSIS_COLUMNS})):
         times = []
@@ -254,8 +254,7 @@ def main(argv: list[str] | None = None) -> int:
     import h5py
 
     import varstar
-    from varstar.archive import transaction
-    from varstar.night import _write_night
+    from varstar.archive import ArchiveStore
 
     total = round(args.years * args.nights_per_year)
     marks = sorted({0, total} | {int(y * args.nights_per_year) for y in (1, 2, 5, 10) if y * args.nights_per_year <= total})
@@ -301,8 +300,8 @@ def main(argv: list[str] | None = None) -> int:
             for k, red, sha, n in source:
                 sha = hashlib.sha256(f"{sha}-{k}".encode()).hexdigest() if args.reuse else sha
                 t = time.perf_counter()
-                with transaction(archive) as f:
-                    _write_night(f, red, {s: sha for s in red.raw["source"].unique()}, "2036-01-01T00:00:00Z")
+                with ArchiveStore(archive).writing(now="2036-01-01T00:00:00Z") as w:
+                    w.append_night(red, {s: sha for s in red.raw["source"].unique()})
                 write_times.append(time.perf_counter() - t)
                 rows_total += n
                 if (k + 1) % 100 == 0:

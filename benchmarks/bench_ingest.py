@@ -7,7 +7,7 @@ fixed seed): by default 2,000 exposures in each of B and V, 30 stars, about
 small); then, for each repeat, a *fresh* Python process (so that its peak
 resident memory is the ingest's own) creates an archive and times
 
-* the first ``varstar.night.ingest`` call of the process (cold: it pays for the
+* the first ``varstar.workflows.night.ingest`` call of the process (cold: it pays for the
   lazy imports of astropy and the first time-scale set-up, as the command line does),
 * a second ingest into another new archive (warm),
 * the stages of a warm ingest one by one: reading the file, parsing and
@@ -93,9 +93,10 @@ def _env() -> dict[str, str]:
 def worker(folder: Path, trace: bool = True, threads: bool = False) -> dict[str, float]:
     """Run in a fresh process: time one cold ingest, one warm ingest and its stages."""
     t = time.perf_counter()
-    from varstar.archive import create_archive
+    from varstar.workflows.archive import create_archive
     from varstar.measurements import parse_measurements, read_bytes
-    from varstar.night import ingest, reduce_night
+    from varstar.workflows.night import ingest
+    from varstar.workflows.reduce import reduce_night
     from varstar.target import read_target
     from varstar.timescale import exposure_times
 
@@ -175,7 +176,7 @@ def probe() -> dict[str, float]:
     import numpy as np
 
     import varstar.archive  # noqa: F401  (numpy, pandas, h5py: loaded before ingest starts)
-    import varstar.night  # noqa: F401
+    import varstar.workflows.night  # noqa: F401
 
     out: dict[str, float] = {}
     t = time.perf_counter()

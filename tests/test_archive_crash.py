@@ -4,7 +4,7 @@ Every check compares what a reader sees with the only two states it may see: the
 archive before the change and after it, the latter computed by making the same
 change to a copy without interruption.  The changes are realistic: one night of
 an invented field (``simulate.synthetic_night``, fixed seeds), reduced by
-``night.reduce_night`` and written by the same ``_write_night`` that ``ingest``
+``reduce_night`` and written by the same ``ArchiveWriter.append_night`` that ``ingest``
 uses.  The promise tested is the one the standard library's ``sqlite3`` makes
 (common practice for embedded databases): a change commits whole or not at all.
 """
@@ -31,10 +31,10 @@ import pytest
 import varstar
 from varstar.archive import tables
 from varstar.archive.layout import STR, TABLES
-from varstar.archive.store import Archive
+from varstar.archive import ArchiveStore
 from varstar.errors import ArchiveError
 from varstar.measurements import parse_measurements
-from varstar.night import _write_night, reduce_night
+from varstar.workflows.reduce import reduce_night
 from varstar.simulate import measurements_csv, synthetic_night
 
 # ``varstar.archive`` re-exports the function ``transaction`` under the module's name.
@@ -84,14 +84,14 @@ def _add_night(path: Path, fld: Field, k: int, timeout_s: float = 30.0) -> None:
     """One change as ingest makes it: a whole night written in one transaction."""
     red = dataclasses.replace(fld.nights[k % len(fld.nights)], label=f"night-{k:04d}")
     sha = {s: hashlib.sha256(f"{s}-{k}".encode()).hexdigest() for s in red.raw["source"].unique()}
-    with TX.transaction(path, timeout_s=timeout_s) as f:
-        _write_night(f, red, sha, NOW)
+    with ArchiveStore(path).writing(timeout_s=timeout_s, now=NOW) as w:
+        w.append_night(red, sha)
 
 
 def _state(path: Path) -> str:
     """Digest of everything a reader sees; checks that every table is whole on the way."""
     h = hashlib.sha256()
-    with Archive(path)._open() as f:
+    with TX.open_read(path) as f:
         for key in sorted(f.attrs):
             h.update(f"{key}={f.attrs[key]!r}".encode())
         lengths = {}
@@ -302,12 +302,12 @@ def test_a_journal_that_does_not_fit_the_archive_is_refused(field, tmp_path):
     shutil.copyfile(other, path)
     replaced = path.read_bytes()
     with pytest.raises(ArchiveError, match=r"a\.h5\.journal does not fit this archive"):
-        Archive(path).nights()
+        ArchiveStore(path).nights()
     with pytest.raises(ArchiveError, match="does not fit this archive"):
         _add_night(path, field, 9)
     assert path.read_bytes() == replaced and jp.exists()
     jp.unlink()  # the documented way out: move the journal away
-    assert Archive(path).nights().empty
+    assert ArchiveStore(path).nights().empty
 
 
 def test_incomplete_journal_is_ignored_by_readers_and_removed_by_the_next_writer(field, tmp_path):
@@ -323,7 +323,7 @@ def test_incomplete_journal_is_ignored_by_readers_and_removed_by_the_next_writer
     assert _state(path) == before and jp.exists()
     _add_night(path, field, 6)
     assert not jp.exists()
-    assert len(Archive(path).nights()) == 2
+    assert len(ArchiveStore(path).nights()) == 2
 
 
 # --------------------------------------------------------------------------- (b) full disk
@@ -427,8 +427,8 @@ def test_two_ingests_at_once_are_serialised_and_both_land(field, tmp_path):
         p.join(120)
     assert [p.exitcode for p in procs] == [0, 0]
     assert recv1.recv() == 1 and recv2.recv() == 1
-    assert len(Archive(path).nights()) == 2
-    assert sorted(Archive(path).raw()["source"].unique()) == ["night0.csv", "night1.csv"]
+    assert len(ArchiveStore(path).nights()) == 2
+    assert sorted(ArchiveStore(path).raw()["source"].unique()) == ["night0.csv", "night1.csv"]
     _state(path)  # whole tables, counts consistent
 
 
@@ -462,7 +462,7 @@ def test_waiting_writer_names_the_holder_and_readers_are_not_blocked(field, tmp_
         release.set()
         proc.join(30)
     assert proc.exitcode == 0 and recv.recv() == "committed"
-    with Archive(path)._open() as f:
+    with TX.open_read(path) as f:
         assert list(tables.read(f, "bands", ["name"])["name"]) == ["B", "V", "R"]
 
 

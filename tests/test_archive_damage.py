@@ -41,7 +41,8 @@ import pytest
 
 import varstar
 from varstar.archive import tables
-from varstar.archive.integrity import verify
+from varstar.archive.transaction import open_read
+from varstar.archive.verify import verify
 from varstar.archive.layout import TABLES, code_capacity
 from varstar.cli import main
 from varstar.errors import ArchiveError
@@ -295,7 +296,7 @@ def test_a_zeroed_text_heap_is_refused_instead_of_hanging(three_nights, tmp_path
     code = textwrap.dedent(f"""
         import json, sys
         from varstar.cli import main
-        from varstar.archive.integrity import verify
+        from varstar.archive.verify import verify
         rep = verify({str(path)!r})
         rc = main(["export", {str(path)!r}, "-o", {str(tmp_path / "x.csv")!r}])
         print(json.dumps({{"problems": list(rep.problems), "rc": rc}}))
@@ -400,7 +401,7 @@ def test_the_256th_band_is_still_stored_and_decoded(demo_data, tmp_path):
     rc, _, err = run("ingest", path, demo_data.nights[0])
     assert rc == 0, err
     arch = varstar.open_archive(path)
-    with arch._open() as f:
+    with open_read(path) as f:
         names = list(tables.read(f, "bands", ["name"])["name"])
     assert len(names) == 256 and names[-2:] == ["B", "V"]
     lc = arch.lightcurve()

@@ -50,7 +50,7 @@ import varstar
 from varstar.ensemble import EnsembleSettings
 from varstar.errors import InputError, ReductionError
 from varstar.measurements import CHUNK_BYTES, MAX_LINE_BYTES, parse_measurements, parse_stream, read_measurement_file
-from varstar.night import reduce_night
+from varstar.workflows.reduce import reduce_night
 from varstar.target import MAX_TOML_DEPTH, id_problem, parse_target, read_target
 
 REPO = Path(__file__).resolve().parents[1]

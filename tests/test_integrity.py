@@ -22,7 +22,7 @@ from test_cli import one_json, run  # noqa: E402
 
 import varstar  # noqa: E402
 from varstar.archive import tables  # noqa: E402
-from varstar.archive.integrity import upgrade, verify  # noqa: E402
+from varstar.archive.verify import upgrade, verify  # noqa: E402
 from varstar.archive.layout import ADDED_IN, RETYPED_IN, SCHEMA_VERSION  # noqa: E402
 from varstar.errors import ArchiveError  # noqa: E402
 

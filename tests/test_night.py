@@ -19,6 +19,7 @@ import pytest
 import varstar
 from varstar.errors import InputError
 from varstar.simulate import demo_scenario, simulate, write_series
+from varstar.workflows.reduce import excluded_stars
 
 DEMO = Path(__file__).resolve().parents[1] / "demo_series"
 
@@ -204,7 +205,7 @@ def test_excluded_comparison_is_left_out(tmp_path):
     assert "variable" not in set(comps["status"])
     (tmp_path / "bad.toml").write_text((DEMO / "target.toml").read_text() + '\n[reduction]\nexclude = ["K1"]\n')
     with pytest.raises(InputError, match="not a comparison star"):
-        varstar.night.excluded_stars(varstar.read_target(tmp_path / "bad.toml"))
+        excluded_stars(varstar.read_target(tmp_path / "bad.toml"))
 
 
 def test_implausible_instrumental_magnitudes_are_flagged_not_reduced(demo_data, tmp_path):
@@ -212,7 +213,7 @@ def test_implausible_instrumental_magnitudes_are_flagged_not_reduced(demo_data, 
     stars of their exposures, beyond a detector's range (DETECTOR_RANGE_MAG, common practice): they
     are stored flagged with a warning, and the light curve's good points stay within the truth's range."""
     import varstar
-    from varstar.night import DETECTOR_RANGE_MAG
+    from varstar.workflows.reduce import DETECTOR_RANGE_MAG
 
     src = demo_data.folder / "night-2026-09-12.csv"
     lines = src.read_text().splitlines()

@@ -18,7 +18,7 @@ import pytest
 import varstar
 from varstar.cli import main
 from varstar.errors import InputError
-from varstar.night import transform_archive
+from varstar.workflows.standard import transform_archive
 from varstar.setups import read_setup, resolve_transformation
 from varstar.simulate import (
     Pulsation,

@@ -1,8 +1,8 @@
-"""Colour science from a transformed archive: B - V curve, temperature, field diagram.
+"""Colour science from a transformed light curve: the B - V curve, its extremes and temperatures.
 
-A thin shell over :mod:`varstar.transform` and the archive: it gathers the
-transformed points and the nightly ensemble tables and returns plain tables and
-JSON-ready summaries for the CLI and scripts.
+Computation on a light-curve DataFrame (:meth:`varstar.archive.ArchiveStore.lightcurve`);
+the field's colour-magnitude diagram, which needs the stored nightly tables, is
+:func:`varstar.workflows.standard.field_diagram`.
 """
 
 from __future__ import annotations
@@ -17,7 +17,6 @@ from .errors import ArchiveError, InputError
 from .transform import ballesteros_temperature
 
 if TYPE_CHECKING:  # pragma: no cover
-    from .archive import Archive
     from .target import Target
 
 #: What a temperature from an observed colour means without a colour excess.
@@ -105,68 +104,3 @@ def phases(bjd: np.ndarray, target: "Target") -> np.ndarray | None:
     if eph is None:
         return None
     return np.mod((np.asarray(bjd, float) - eph[0]) / eph[1], 1.0)
-
-
-def field_diagram(arch: "Archive", night: str) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """The stars of one night on the standard system, for a colour-magnitude diagram.
-
-    Returns
-    -------
-    (field, track)
-        ``field``: one row per comparison and check star (``star, role, status,
-        V, V_err, bv, bv_err``); comparison stars from their nightly mean
-        magnitudes put through the same transformation as the target, check
-        stars from their transformed points.  ``track``: the target's
-        transformed V points of the night.
-    """
-    from .night import night_reference_from_tables
-    from .transform import transform_target
-
-    from .night import active_transformation
-
-    target = arch.target
-    with arch._open() as f:
-        active = active_transformation(f)
-    if active is None:
-        raise ArchiveError(f"{arch.path}: no transformation coefficients yet; see 'varstar transform'")
-    _, coeffs, gap = active
-    comps = arch.comparisons()
-    comps = comps[comps["night_label"] == night]
-    if comps.empty:
-        raise ArchiveError(f"{arch.path}: no night '{night}' (see 'varstar summary')")
-    ens = arch.ensembles()
-    ens = ens[ens["night_label"] == night]
-    if not {"B", "V"} <= set(ens["band"]):
-        raise ArchiveError(f"{arch.path}: night {night} lacks B or V exposures: no colours")
-    ref = night_reference_from_tables(target, coeffs, comps, ens)
-    exp = arch.exposures()
-    x_mean = float(exp.loc[exp["night_label"] == night, "airmass"].mean())
-    rows = []
-    for s in target.stars_with_role("comparison"):
-        cb = comps[(comps["star"] == s.id) & (comps["band"] == "B")]
-        cv = comps[(comps["star"] == s.id) & (comps["band"] == "V")]
-        if cb.empty or cv.empty or not {"B", "V"} <= set(s.catalog):
-            continue
-        b = s.catalog["B"] + float(cb["offset"].iloc[0])
-        v = s.catalog["V"] + float(cv["offset"].iloc[0])
-        res = transform_target(
-            [0.0], [v], [float(cv["mean_err"].iloc[0])], [x_mean], [0.0], [b], [float(cb["mean_err"].iloc[0])], [x_mean],
-            ref, coeffs, max_gap_d=gap,
-        )
-        statuses = [str(cv["status"].iloc[0]), str(cb["status"].iloc[0])]
-        status = next((st for st in statuses if st != "kept"), "kept")
-        rows.append({"star": s.id, "role": "comparison", "status": status, "V": float(res.V.mag[0]),
-                     "V_err": float(res.V.mag_err[0]), "bv": float(res.V.colour[0]), "bv_err": float(res.V.colour_err[0])})
-    for s in target.stars_with_role("check"):
-        lc = arch.lightcurve(band="V", star=s.id)
-        lc = lc[(lc["night"] == night) & lc["transformed"]]
-        if lc.empty:
-            continue
-        n = len(lc)
-        rows.append({"star": s.id, "role": "check", "status": "kept", "V": float(lc["mag"].mean()),
-                     "V_err": float(lc["mag"].std(ddof=1) / math.sqrt(n)) if n > 1 else float(lc["mag_err"].iloc[0]),
-                     "bv": float(lc["bv"].mean()),
-                     "bv_err": float(lc["bv"].std(ddof=1) / math.sqrt(n)) if n > 1 else float(lc["bv_err"].iloc[0])})
-    track = arch.lightcurve(band="V")
-    track = track[(track["night"] == night) & track["transformed"]].reset_index(drop=True)
-    return pd.DataFrame(rows, columns=["star", "role", "status", "V", "V_err", "bv", "bv_err"]), track

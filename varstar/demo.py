@@ -49,19 +49,8 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
     the period, and time the maxima against the target's older ephemeris.
     Returns a JSON-ready dict: the folder, the files written and the summaries.
     """
-    from .archive import create_archive, open_archive
-    from .analyses import phased_data, phased_model
-    from .cli import (
-        format_coefficients,
-        format_colour,
-        format_night_report,
-        format_period,
-        format_summary,
-        format_timings,
-    )
-    from .colour import colour_summary, field_diagram, phases
+    from .colour import colour_summary, phases
     from .export import lightcurve_table, safe_filename, timings_table, to_json, write_atomic, write_csv
-    from .night import ingest, transform_archive
     from .plots import (
         coefficient_figure,
         colour_figure,
@@ -76,6 +65,18 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
     from .simulate import demo_files
     from .standards import fit_standard_field
     from .target import read_target
+    from .text import (
+        format_coefficients,
+        format_colour,
+        format_night_report,
+        format_period,
+        format_summary,
+        format_timings,
+    )
+    from .workflows.archive import create_archive, open_archive
+    from .workflows.night import ingest
+    from .workflows.periods import phased_data, phased_model
+    from .workflows.standard import field_diagram, transform_archive
 
     say = echo or (lambda _s: None)
     folder = _new_folder(out)
@@ -153,7 +154,7 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
     files += [pg_png, ph_png]
 
     # 6. Times of maximum light, O - C against the target's older ephemeris, and an updated ephemeris.
-    timed = arch.time_extrema(update=True)
+    timed = arch.time_extrema(update=True).to_dict()
     say("\n" + format_timings(timed))
     oc_png, timings_csv = folder / "o-c.png", folder / "timings.csv"
     save(oc_figure([t["cycle"] for t in timed["timings"]], [t["o_minus_c"] for t in timed["timings"]],

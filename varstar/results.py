@@ -4,7 +4,8 @@ A result is a frozen dataclass of numbers, their errors and what produced them.
 Its JSON form comes from one place: :func:`to_dict` walks the dataclass fields
 (nested results, tuples, mappings and numpy arrays included) and writes
 non-finite floats as ``None``, so ``--json`` prints exactly what the object
-holds.  A result class inherits :class:`Result` to get the method; a field that
+holds.  A result class inherits :class:`Result` to get the method (and
+``result["field"]`` reads, as for the dicts results once were); a field that
 must not appear in JSON (a large array kept for plotting, say) is named in the
 class attribute ``_json_exclude``.
 
@@ -82,3 +83,9 @@ class Result:
     def to_dict(self) -> dict[str, Any]:
         """JSON-safe plain dict of the fields (NaN becomes None)."""
         return to_dict(self)
+
+    def __getitem__(self, key: str) -> Any:
+        """``result["name"]`` reads a field, as scripts read the dicts these results replaced."""
+        if key not in {f.name for f in dataclasses.fields(self)}:  # type: ignore[arg-type]
+            raise KeyError(key)
+        return getattr(self, key)

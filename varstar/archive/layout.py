@@ -9,6 +9,15 @@ documented for people in ``docs/archive-format.md``; keep the two in step.
 
 from __future__ import annotations
 
+import datetime as _dt
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+from ..errors import ArchiveError
+
+if TYPE_CHECKING:  # pragma: no cover
+    import h5py
+
 FORMAT_NAME = "varstar-archive"
 SCHEMA_VERSION = 2
 
@@ -217,3 +226,30 @@ def code_capacity(code_column: str) -> int:
 
     kinds = {cols[code_column] for cols in TABLES.values() if code_column in cols and cols[code_column][0] in "iu"}
     return min(int(np.iinfo(np.dtype(k)).max) + 1 for k in kinds)
+
+
+def utc_now() -> str:
+    """The current UTC time as the archive records it (ISO 8601, seconds, ``Z``)."""
+    return _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def check_root(f: h5py.File, path: Path, *, writing: bool = False) -> None:
+    """Refuse files that are not varstar archives of a schema this version reads.
+
+    With ``writing``, also refuse an older schema: it must be upgraded first
+    (``varstar upgrade``, which keeps a backup), never silently.
+    """
+    if f.attrs.get("format") != FORMAT_NAME:
+        raise ArchiveError(f"{path}: not a varstar archive (no '{FORMAT_NAME}' format mark)")
+    version = int(f.attrs.get("schema_version", -1))
+    if version > SCHEMA_VERSION:
+        raise ArchiveError(
+            f"{path}: archive schema {version} is newer than this varstar understands ({SCHEMA_VERSION}); upgrade varstar"
+        )
+    if version < 1:
+        raise ArchiveError(f"{path}: archive has no valid schema version")
+    if writing and version < SCHEMA_VERSION:
+        raise ArchiveError(
+            f"{path}: archive schema {version} is older than this varstar's {SCHEMA_VERSION}; it can be read, but "
+            f"run 'varstar upgrade {path}' first to change it (the upgrade keeps a backup copy)"
+        )

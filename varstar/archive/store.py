@@ -1,12 +1,18 @@
-"""Reading and creating per-target archives."""
+"""Per-target archives: creating one, reading what it holds, and opening a change.
+
+:class:`ArchiveStore` reads (the light curve, nights, comparison stars, the
+histories) and opens writing transactions (:meth:`ArchiveStore.writing`,
+:mod:`.writes`); it knows nothing of the analyses, which live above it in
+:mod:`varstar.workflows` (whose :class:`varstar.Archive` adds them).
+"""
 
 from __future__ import annotations
 
-import datetime as _dt
+import contextlib
 import json
 from pathlib import Path
-from collections.abc import Sequence
-from typing import Any
+from collections.abc import Iterator, Sequence
+from typing import TYPE_CHECKING, Any
 
 import h5py
 import numpy as np
@@ -16,28 +22,24 @@ from .. import __version__
 from ..errors import ArchiveError, VarstarError
 from ..quality import quality_words
 from ..target import Target, parse_target
-from . import tables
-from .layout import (
-    FORMAT_NAME,
-    SCHEMA_VERSION,
-    code_capacity,
-)
+from . import records, tables
+from .layout import FORMAT_NAME, SCHEMA_VERSION, check_root, code_capacity, utc_now
+
+if TYPE_CHECKING:  # pragma: no cover
+    from ..transform import Coefficients
+    from .writes import ArchiveWriter
 
 
-def utc_now() -> str:
-    return _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
-
-
-def create_archive(path: str | Path, target: Target) -> "Archive":
+def create_archive(
+    path: str | Path, target: Target, transformation: tuple[Coefficients, float] | None = None
+) -> ArchiveStore:
     """Create a new, empty archive for ``target`` at ``path`` (never overwrites).
 
-    A ``[transformation]`` table in the target description (values, or a
-    reference to a setups file relative to the target file) becomes the
-    archive's first coefficient set.
+    ``transformation`` (coefficients, largest B-V pairing gap in days) becomes
+    the archive's first coefficient set.
     """
-    from ..night import add_transformation
-    from ..setups import resolve_transformation
     from .transaction import create_new
+    from .writes import add_transformation
 
     n_max = code_capacity("star")
     if len(target.stars) > n_max:
@@ -46,9 +48,6 @@ def create_archive(path: str | Path, target: Target) -> "Archive":
             f"most {n_max:,} apart (its star codes are 16-bit), so nothing was created. Keep only the stars the "
             f"reduction uses (the target, its comparison and check stars) in the target file."
         )
-    coeffs = None
-    if "transformation" in target.extra:
-        coeffs = resolve_transformation(target.extra["transformation"], Path(target.source))
 
     def build(f: h5py.File) -> None:
         f.attrs["format"] = FORMAT_NAME
@@ -62,25 +61,25 @@ def create_archive(path: str | Path, target: Target) -> "Archive":
         g.attrs["dec_deg"] = target.dec_deg
         tables.create_tables(f)
         tables.append(f, "stars", {"id": [s.id for s in target.stars], "role": [s.role for s in target.stars]})
-        if coeffs is not None:
-            add_transformation(f, coeffs[0], coeffs[1], utc_now())
+        if transformation is not None:
+            add_transformation(f, transformation[0], transformation[1], utc_now())
 
     create_new(Path(path), build)
-    return Archive(path)
+    return ArchiveStore(path)
 
 
-def open_archive(path: str | Path) -> "Archive":
-    """Open an existing archive for reading (changes go through :mod:`varstar.night`)."""
-    arch = Archive(path)
+def open_archive(path: str | Path) -> ArchiveStore:
+    """Open an existing archive for reading (changes go through :meth:`ArchiveStore.writing`)."""
+    arch = ArchiveStore(path)
     arch.check_format()
     return arch
 
 
-class Archive:
-    """A per-target archive on disk.
+class ArchiveStore:
+    """A per-target archive on disk: what it holds, and the one way to change it.
 
     Every method opens the file, reads what it needs and closes it again, so an
-    :class:`Archive` never holds the file open between calls and always sees the
+    :class:`ArchiveStore` never holds the file open between calls and always sees the
     last committed state.
     """
 
@@ -98,6 +97,21 @@ class Archive:
 
         return open_read(self.path)
 
+    @contextlib.contextmanager
+    def writing(self, *, timeout_s: float = 30.0, now: str | None = None) -> Iterator[ArchiveWriter]:
+        """One atomic change: ``with arch.writing() as w: ...`` (see :class:`.writes.ArchiveWriter`).
+
+        Waits up to ``timeout_s`` for another writer; everything written in the
+        block commits together, or nothing does.  ``now`` is the time stamp the
+        change records (default: the current UTC time; a fixed one makes a
+        rebuilt archive byte-identical).
+        """
+        from .transaction import transaction
+        from .writes import ArchiveWriter
+
+        with transaction(self.path, timeout_s=timeout_s) as f:
+            yield ArchiveWriter(f, self.path, now=now)
+
     def check_format(self) -> None:
         with self._open() as f:
             check_root(f, self.path)
@@ -111,7 +125,7 @@ class Archive:
         for col, lookup in names.items():
             if col in df:
                 df[col] = lookup[df[col].to_numpy()] if len(df) else pd.Series(dtype=object)
-        df.insert(1, "night_label", _labels(labels, df["night"].to_numpy()))
+        df.insert(1, "night_label", records.labels_of(pd.DataFrame(labels), df["night"].to_numpy()))
         return df
 
     # -- contents --------------------------------------------------------------
@@ -291,7 +305,7 @@ class Archive:
             "mu_bv": lambda: coeff("mu_bv"),
             "k2_bv": lambda: coeff("k2_bv"),
             "airmass": lambda: e["airmass"],
-            "night": lambda: _labels(labels, p["night"]),
+            "night": lambda: records.labels_of(pd.DataFrame(labels), p["night"]),
             "frame": lambda: e["frame"],
             "quality": lambda: p["quality"],
             "flags": lambda: quality_words(p["quality"], e["flags"]),
@@ -301,54 +315,32 @@ class Archive:
         order = np.lexsort((rank[p["band"]] if n else p["band"], p["bjd_tdb"]))  # by time, then band name
         return df.iloc[order].reset_index(drop=True)
 
-    def period(self, band: str = "all", star: str | None = None, *, store: bool = True, **options: Any):
-        """Period analysis of the light curve, recorded in the archive's period history.
-
-        ``band`` is a band name or ``"all"`` (multi-band); ``options`` go to
-        :func:`varstar.analyses.period_of_archive` and :func:`varstar.period.analyse`
-        (``min_period``, ``max_period``, ``oversampling``, ``nterms``, ``harmonics``,
-        ``bootstrap``, ``seed``, ``prewhitening``, ...).  Returns a
-        :class:`varstar.analyses.StoredPeriod` whose ``result`` is the
-        :class:`varstar.period.PeriodResult`.
-        """
-        from ..analyses import period_of_archive
-
-        return period_of_archive(self, band=band, star=star, store=store, **options)
-
     def periods(self) -> pd.DataFrame:
         """The period history: every stored analysis, oldest first (``result`` is its JSON record)."""
-        from ..analyses import period_history
-
-        return period_history(self)
-
-    def time_extrema(self, **options: Any) -> dict[str, Any]:
-        """Time the extrema the nights cover, store new timings, fit the ephemeris.
-
-        ``options`` go to :func:`varstar.analyses.timings_of_archive` (``band``,
-        ``kind``, ``night``, ``note``, ``store``, ``update``, ``seed``).  Returns the
-        JSON-ready dict ``varstar timings --json`` prints.
-        """
-        from ..analyses import timings_of_archive
-
-        return timings_of_archive(self, **options)
+        with self._open() as f:
+            if not tables.has_table(f, "periods"):
+                raise ArchiveError(f"{self.path}: this archive has no period table")
+            return records.history(f, "periods")
 
     def timings(self) -> pd.DataFrame:
         """Every stored timing, in time order (``night_label`` and ``band_name`` decoded)."""
-        from ..analyses import stored_timings
-
-        return stored_timings(self)
+        with self._open() as f:
+            return records.timings(f)
 
     def ephemerides(self) -> pd.DataFrame:
         """The ephemeris history, oldest first; the last entry is in force."""
-        from ..analyses import ephemeris_history
+        with self._open() as f:
+            return records.history(f, "ephemerides")
 
-        return ephemeris_history(self)
+    def source_hashes(self) -> set[str]:
+        """SHA-256 checksums of every stored source file (to skip files already ingested)."""
+        with self._open() as f:
+            return records.source_hashes(f)
 
-    def predict(self, start: str, end: str, **options: Any) -> dict[str, Any]:
-        """Coming extrema between two UTC dates; see :func:`varstar.analyses.predict_of_archive`."""
-        from ..analyses import predict_of_archive
-
-        return predict_of_archive(self, start, end, **options)
+    def active_transformation(self) -> tuple[int, Coefficients, float] | None:
+        """The coefficients in force: ``(number, coefficients, max_gap_d)``, or None before the first set."""
+        with self._open() as f:
+            return records.active_transformation(f)
 
     def transformations(self) -> pd.DataFrame:
         """Every coefficient set the archive has used, oldest first (the last is in force)."""
@@ -458,30 +450,3 @@ LIGHTCURVE_FIELDS: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
     "quality": ((), ()),
     "flags": ((), ("flags",)),
 }
-
-
-def check_root(f: h5py.File, path: Path, *, writing: bool = False) -> None:
-    """Refuse files that are not varstar archives of a schema this version reads.
-
-    With ``writing``, also refuse an older schema: it must be upgraded first
-    (``varstar upgrade``, which keeps a backup), never silently.
-    """
-    if f.attrs.get("format") != FORMAT_NAME:
-        raise ArchiveError(f"{path}: not a varstar archive (no '{FORMAT_NAME}' format mark)")
-    version = int(f.attrs.get("schema_version", -1))
-    if version > SCHEMA_VERSION:
-        raise ArchiveError(
-            f"{path}: archive schema {version} is newer than this varstar understands ({SCHEMA_VERSION}); upgrade varstar"
-        )
-    if version < 1:
-        raise ArchiveError(f"{path}: archive has no valid schema version")
-    if writing and version < SCHEMA_VERSION:
-        raise ArchiveError(
-            f"{path}: archive schema {version} is older than this varstar's {SCHEMA_VERSION}; it can be read, but "
-            f"run 'varstar upgrade {path}' first to change it (the upgrade keeps a backup copy)"
-        )
-
-
-def _labels(nights: dict[str, np.ndarray], ids: np.ndarray) -> np.ndarray:
-    lookup = dict(zip(nights["night"].tolist(), nights["label"].tolist()))
-    return np.array([lookup.get(int(i), "?") for i in np.unique(ids)], dtype=object)[np.searchsorted(np.unique(ids), ids)] if len(ids) else np.array([], dtype=object)

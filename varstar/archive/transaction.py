@@ -91,6 +91,7 @@ import h5py
 from ..errors import ArchiveError
 from . import integrity
 from . import journal as jr
+from .layout import check_root
 
 _POLL_S = 0.02
 #: HDF5 file creation options of new archives: HDF5 1.10 file format (readable by
@@ -344,7 +345,7 @@ def transaction(path: Path, *, timeout_s: float = 30.0, older_schema: bool = Fal
     into the archive in place; if it raises, nothing on disk has changed.
     Waits up to ``timeout_s`` for another writer (and for readers to finish
     when the change is written in).  The file must be a varstar archive of the
-    current schema (:func:`varstar.archive.store.check_root` with ``writing``);
+    current schema (:func:`varstar.archive.layout.check_root` with ``writing``);
     only the upgrade itself passes ``older_schema=True``.
     """
     path = Path(path)
@@ -381,8 +382,6 @@ def transaction(path: Path, *, timeout_s: float = 30.0, older_schema: bool = Fal
                 raise
             try:
                 if not older_schema:
-                    from .store import check_root
-
                     check_root(f, path, writing=True)
                 yield f
             except BaseException as exc:
@@ -417,8 +416,6 @@ def _check_before_writing(path: Path, fd: int, older_schema: bool) -> None:
     earlier nights that this change does not read is left for ``varstar verify``
     to find; the change cannot make it worse.
     """
-    from .store import check_root
-
     problems: list[str] = []
     try:
         f = h5py.File(jr.PageOverlay(fd, name=str(path)), "r")

@@ -1,0 +1,78 @@
+"""Decoded records of an open archive file, shared by the readers and the writer.
+
+Each function takes an open :class:`h5py.File` (a reader's or a writer's) and
+returns plain values or DataFrames with codes turned into names.  They are the
+only decoding of these tables, so :class:`.store.Archive` (between changes) and
+:class:`.writes.ArchiveWriter` (inside one) read them the same way.
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+import numpy as np
+import pandas as pd
+
+from . import tables
+
+if TYPE_CHECKING:  # pragma: no cover
+    import h5py
+
+    from ..transform import Coefficients
+
+
+def night_labels(f: h5py.File) -> pd.DataFrame:
+    """Columns ``night`` (number) and ``label`` (evening date) of every stored night."""
+    return pd.DataFrame(tables.read(f, "nights", ["night", "label"]))
+
+
+def labels_of(nights: pd.DataFrame, numbers: np.ndarray) -> np.ndarray:
+    """The label of each night number in ``numbers`` ("?" for an unknown number)."""
+    lookup = dict(zip(nights["night"].tolist(), nights["label"].tolist()))
+    if not len(numbers):
+        return np.array([], dtype=object)
+    unique = np.unique(numbers)
+    return np.array([lookup.get(int(i), "?") for i in unique], dtype=object)[np.searchsorted(unique, numbers)]
+
+
+def source_hashes(f: h5py.File) -> set[str]:
+    """SHA-256 checksums of every stored source file."""
+    return set(tables.read(f, "sources", ["sha256"])["sha256"])
+
+
+def active_transformation(f: h5py.File) -> tuple[int, Coefficients, float] | None:
+    """The coefficients in force (the last ``/transformations`` row): ``(number, coefficients, max_gap_d)``."""
+    from ..transform import Coefficients
+
+    rows = tables.read(f, "transformations")
+    if rows["transformation"].size == 0:
+        return None
+    k = -1
+    coeffs = Coefficients(
+        epsilon_v=float(rows["epsilon_v"][k]),
+        epsilon_v_err=float(rows["epsilon_v_err"][k]),
+        mu_bv=float(rows["mu_bv"][k]),
+        mu_bv_err=float(rows["mu_bv_err"][k]),
+        k2_bv=float(rows["k2_bv"][k]),
+        k2_bv_err=float(rows["k2_bv_err"][k]),
+        source=str(rows["source"][k]),
+    )
+    return int(rows["transformation"][k]), coeffs, float(rows["max_gap_d"][k])
+
+
+def history(f: h5py.File, table: str) -> pd.DataFrame:
+    """A history table (periods, ephemerides, timings, ...) whole; empty with its columns in an older schema."""
+    if not tables.has_table(f, table):
+        return pd.DataFrame(columns=list(tables.TABLES[table]))
+    return pd.DataFrame(tables.read(f, table))
+
+
+def timings(f: h5py.File) -> pd.DataFrame:
+    """Every stored timing with ``night_label`` and ``band_name`` decoded, in time order."""
+    t = history(f, "timings")
+    if not tables.has_table(f, "timings"):
+        return t.assign(night_label=[], band_name=[])
+    bands = tables.read(f, "bands", ["name"])["name"]
+    t["night_label"] = labels_of(night_labels(f), t["night"].to_numpy()) if len(t) else []
+    t["band_name"] = [str(bands[int(b)]) for b in t["band"]] if len(t) else []
+    return t.sort_values("bjd_tdb", kind="stable").reset_index(drop=True)

@@ -1,0 +1,408 @@
+"""The reduction of one night: a tidy measurement table in, the night's tables and report out.
+
+Computation only (no files, no archive): :func:`reduce_night` finds the
+exposures, their times (BJD_TDB) and airmasses, solves the ensemble per band
+(:func:`varstar.ensemble.solve_ensemble`), marks each light-curve point's
+quality (:mod:`varstar.quality`) and writes the night's report.
+:mod:`.night` stores the result in an archive.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import pandas as pd
+
+from .. import quality as qbits
+from ..errors import InputError, ReductionError
+from ..target import Target, reduction_options
+from ..timescale import exposure_times, night_label
+
+if TYPE_CHECKING:  # pragma: no cover
+    from ..ensemble import EnsembleSettings
+
+#: Standard-system columns of a light-curve point (NaN / -1 until transformed).
+STD_COLUMNS = ("mag_std", "mag_std_err", "cal_std_err", "bv_std", "bv_std_err", "bv_std_sys_err", "colour_gap_d", "transformation")
+#: Columns of a night's comparison-star table.
+COMPARISON_COLUMNS = ("band", "star", "status", "reason", "offset", "excess", "chi2_dof", "tie_weight", "mean_err")
+#: Columns of a night's ensemble table (one row per band).
+ENSEMBLE_COLUMNS = ("band", "calibration_err", "colour_extinction", "colour_extinction_err", "colour_reference", "n_kept")
+
+# Difference between a table's own airmass and ours that deserves a warning
+# (wrong coordinates, site or time zone upstream): common practice.
+_AIRMASS_WARN = 0.05
+
+
+@dataclass(frozen=True)
+class NightReduction:
+    """Everything the reduction of one night produced.
+
+    ``exposures`` has one row per exposure (sorted by time), ``raw`` the input
+    measurements with an ``exposure`` index into it, ``points`` the calibrated
+    magnitudes of the target and check stars, ``comparisons`` the status of each
+    comparison star per band, ``report`` the JSON-ready night summary.
+    """
+
+    label: str
+    exposures: pd.DataFrame
+    raw: pd.DataFrame
+    points: pd.DataFrame
+    comparisons: pd.DataFrame
+    ensembles: pd.DataFrame
+    report: dict[str, Any]
+
+    def to_dict(self) -> dict[str, Any]:
+        """The night's report (the tables are for the archive)."""
+        return self.report
+
+
+def settings_from_target(target: Target) -> EnsembleSettings:
+    """Ensemble settings, with overrides from an optional ``[reduction]`` table (see :func:`varstar.target.reduction_options`)."""
+    from ..ensemble import EnsembleSettings  # here: scipy.special, not needed to refuse a bad file
+
+    kw, _ = reduction_options(target)
+    return EnsembleSettings(**kw)
+
+
+def excluded_stars(target: Target) -> tuple[str, ...]:
+    """Comparison stars the observer keeps out of every ensemble (``[reduction] exclude``)."""
+    return reduction_options(target)[1]
+
+
+def split_nights(target: Target, table: pd.DataFrame) -> dict[str, pd.DataFrame]:
+    """Split a measurement table into nights (evening date at the site)."""
+    labels = night_label(table["jd"].to_numpy(), target.site.longitude_deg)
+    return {str(lab): table[labels == lab].reset_index(drop=True) for lab in np.unique(labels)}
+
+
+def sources_of(table: pd.DataFrame, rows: np.ndarray | None = None) -> str:
+    """The file(s) some rows of a night's table came from, for messages."""
+    src = table["source"].to_numpy() if rows is None else table["source"].to_numpy()[rows]
+    names = sorted(pd.unique(src).tolist())
+    shown = ", ".join(str(n) for n in names[:5])
+    return shown + (f" and {len(names) - 5} more file(s)" if len(names) > 5 else "")
+
+
+def _check_bands(target: Target, table: pd.DataFrame) -> None:
+    have = target.catalog_bands()
+    for band in pd.unique(table["band"]):
+        if band not in have:
+            rows = table[table["band"] == band]
+            src, line = rows["source"].iloc[0], int(rows["line"].iloc[0])
+            raise InputError(
+                f"{src}, line {line}: band '{band}' has no catalogue magnitude for any comparison star in "
+                f"{target.source}; add '{band} = ...' to the comparison stars there, or leave this band out"
+            )
+
+
+#: Largest plausible difference (mag) between two stars measured in one exposure: a 16-bit
+#: detector spans 2.5 log10(65535) = 12.0 mag from one count to saturation (common practice),
+#: with half a magnitude to spare for the sky and aperture sums.
+DETECTOR_RANGE_MAG = 12.5
+
+
+def _implausible(mag: np.ndarray, is_comparison: np.ndarray, exposure: np.ndarray, n_exp: int) -> np.ndarray:
+    """Rows whose instrumental magnitude lies beyond :data:`DETECTOR_RANGE_MAG` of the median
+    comparison star of the same exposure (exposures without comparison stars: none)."""
+    comp = is_comparison & np.isfinite(mag)
+    ref = pd.Series(mag[comp]).groupby(exposure[comp]).median().reindex(range(n_exp)).to_numpy()
+    with np.errstate(invalid="ignore"):
+        return np.abs(mag - ref[exposure]) > DETECTOR_RANGE_MAG
+
+
+def reduce_night(
+    target: Target,
+    table: pd.DataFrame,
+    settings: EnsembleSettings | None = None,
+    label: str | None = None,
+) -> NightReduction:
+    """Reduce one night's tidy measurement table (see :mod:`varstar.measurements`).
+
+    Parameters
+    ----------
+    target
+        The target description (stars, roles, catalogue magnitudes, site).
+    table
+        Measurements of one night, as :func:`varstar.measurements.parse_measurements` returns.
+    settings
+        Ensemble settings; default from the target's ``[reduction]`` table.
+    label
+        Night label; default the evening date at the site.
+    """
+    from ..ensemble import solve_ensemble
+
+    if table.empty:
+        raise InputError("no measurements to reduce")
+    settings = settings or settings_from_target(target)
+    _check_bands(target, table)
+    if label is None:
+        label = str(night_label(table["jd"].to_numpy()[:1], target.site.longitude_deg)[0])
+    star_ids = list(target.star_ids)
+    roles = np.array([s.role for s in target.stars])
+
+    # Exposures: one per (frame, band), ordered by time.
+    frame_code, _ = pd.factorize(table["frame"])
+    band_code, band_names = pd.factorize(table["band"])
+    codes, _ = pd.factorize(frame_code * len(band_names) + band_code)
+    _, first = np.unique(codes, return_index=True)
+    exp = table.iloc[first][["frame", "band", "jd", "airmass", "exptime_s"]].reset_index(drop=True)
+    order = np.argsort(exp["jd"].to_numpy(), kind="stable")
+    rank = np.empty_like(order)
+    rank[order] = np.arange(len(order))
+    exp = exp.iloc[order].reset_index(drop=True)
+    exposure_of_row = rank[codes]
+
+    site = target.site
+    times = exposure_times(exp["jd"].to_numpy(), target.ra_deg, target.dec_deg, site.latitude_deg, site.longitude_deg, site.elevation_m)
+    given = exp["airmass"].to_numpy(dtype=float)
+    airmass = np.where(np.isfinite(given), given, times.airmass)
+    warnings: list[str] = []
+    both = np.isfinite(given) & np.isfinite(times.airmass)
+    if both.any() and np.median(np.abs(given[both] - times.airmass[both])) > _AIRMASS_WARN:
+        warnings.append(
+            f"the table's airmass differs from the one computed for the site and target by "
+            f"{np.median(np.abs(given[both] - times.airmass[both])):.2f} (median): check coordinates, site and that jd is UTC"
+        )
+    below = ~np.isfinite(given) & ~np.isfinite(times.airmass)
+    if below.any():
+        warnings.append(f"the target is below the horizon at {int(below.sum())} exposure time(s): check coordinates, site and that jd is UTC")
+
+    n_exp = len(exp)
+    zp = np.full(n_exp, np.nan)
+    zp_err = np.full(n_exp, np.nan)
+    cal_err = np.full(n_exp, np.nan)
+    n_comp = np.zeros(n_exp, dtype=np.int64)
+    flags = np.full(n_exp, "", dtype=object)
+    mag_cal = np.full(len(table), np.nan)
+    err_cal = np.full(len(table), np.nan)
+    star_idx = pd.Index(star_ids).get_indexer(table["star"])
+    excluded = excluded_stars(target)
+    is_comp = (roles == "comparison") & ~np.isin(star_ids, excluded)
+    comp_rows = []
+    ens_rows = []
+    band_reports: dict[str, Any] = {}
+    exp_band = exp["band"].to_numpy()
+    # The ensemble sees the stars measured tonight, not every star of the target file (which may
+    # list thousands): its cost follows the night's data.  A comparison star absent all night
+    # (no data, so no part in the fit) is reported below as the ensemble reports one without
+    # usable measurements; it no longer enters the choice of the colour reference.
+    night_stars = np.unique(star_idx)  # indices into target.stars, measured tonight
+    local_star = np.full(len(star_ids), -1)
+    local_star[night_stars] = np.arange(night_stars.size)
+    night_names = [star_ids[i] for i in night_stars]
+    night_catalog = [target.stars[i] for i in night_stars]
+    n_absent = int(np.count_nonzero(is_comp & (local_star < 0)))
+
+    # Catalogue colour of each star for the ensemble's colour-extinction term (B - V
+    # when the catalogue has both; any colour index serves as the regressor).
+    colour = np.array([s.catalog["B"] - s.catalog["V"] if {"B", "V"} <= set(s.catalog) else np.nan for s in night_catalog])
+    for band in sorted(pd.unique(exp["band"])):
+        in_band = np.flatnonzero(exp_band == band)  # global exposure indices, time order
+        local = np.full(n_exp, -1)
+        local[in_band] = np.arange(in_band.size)
+        rows = np.flatnonzero(table["band"].to_numpy() == band)
+        cat = np.array([s.catalog.get(band, np.nan) for s in night_catalog])
+        cat_err = np.array([s.catalog_err.get(band, 0.0) for s in night_catalog])
+        try:
+            sol = solve_ensemble(
+                local[exposure_of_row[rows]],
+                local_star[star_idx[rows]],
+                table["mag"].to_numpy()[rows],
+                table["mag_err"].to_numpy()[rows],
+                n_exposures=in_band.size,
+                is_comparison=is_comp[night_stars],
+                catalog_mag=cat,
+                catalog_err=cat_err,
+                time=exp["jd"].to_numpy()[in_band],
+                airmass=airmass[in_band],
+                good=(table["flag"].to_numpy()[rows] == 0) & np.isfinite(table["mag"].to_numpy()[rows]),
+                settings=settings,
+                star_names=night_names,
+                colour=colour,
+            )
+        except ReductionError as exc:
+            # The ensemble works on arrays and cannot know where they came from: say it here.
+            absent = (f"; {n_absent} comparison star(s) of {target.source} have no measurement in these files"
+                      if n_absent else "")
+            raise ReductionError(f"{sources_of(table, rows)}, band {band}: {exc}{absent}") from None
+        zp[in_band] = sol.zero_point
+        zp_err[in_band] = sol.zero_point_err
+        cal_err[in_band] = sol.calibration_err
+        n_comp[in_band] = sol.n_comparisons
+        flags[in_band] = np.asarray(sol.exposure_flags, dtype=object)
+        mag_cal[rows] = sol.mag
+        err_cal[rows] = sol.mag_err
+        # Error of each comparison star's mean magnitude: 1/sqrt(sum of its weights).
+        used = sol.used
+        in_fit = local_star[star_idx[rows][used]]
+        w = 1.0 / (table["mag_err"].to_numpy()[rows][used] ** 2 + np.nan_to_num(sol.star_excess)[in_fit] ** 2)
+        with np.errstate(divide="ignore"):
+            mean_err = 1.0 / np.sqrt(np.bincount(in_fit, w, minlength=night_stars.size))
+        ens_rows.append(
+            {
+                "band": band,
+                "calibration_err": float(sol.calibration_err),
+                "colour_extinction": float(sol.colour_extinction),
+                "colour_extinction_err": float(sol.colour_extinction_err),
+                "colour_reference": float(sol.colour_reference),
+                "n_kept": int(sum(st == "kept" for st in sol.star_status)),
+            }
+        )
+        absent_reason = f"only 0 usable measurement(s); at least {settings.min_star_points} needed"
+        for i in np.flatnonzero(roles == "comparison"):
+            sid, k = star_ids[i], int(local_star[i])
+            out = sid in excluded
+            if k < 0:  # not measured tonight: as the ensemble reports a star without usable data
+                status, reason = "too_few_points", absent_reason
+                values = (np.nan, np.nan, np.nan, 0.0, np.inf)
+            else:
+                status, reason = sol.star_status[k], sol.star_reason[k]
+                values = (sol.star_offset[k], sol.star_excess[k], sol.star_chi2_dof[k], sol.tie_weight[k], mean_err[k])
+            comp_rows.append(
+                {
+                    "band": band,
+                    "star": sid,
+                    "status": "excluded" if out else status,
+                    "reason": "excluded by [reduction] exclude in the target file" if out else reason,
+                    **{key: float(v) for key, v in zip(("offset", "excess", "chi2_dof", "tie_weight", "mean_err"), values)},
+                }
+            )
+        summary = sol.to_dict()
+        for entry in summary["stars"]:  # the index of each star in the target file, as before
+            entry["index"] = int(night_stars[entry["index"]])
+        band_reports[band] = {"ensemble": summary}
+
+    exposures = pd.DataFrame(
+        {
+            "frame": exp["frame"].astype(str).to_numpy(dtype=object),
+            "band": exp_band,
+            "jd_utc": exp["jd"].to_numpy(),
+            "bjd_tdb": times.bjd_tdb,
+            "hjd_utc": times.hjd_utc,
+            "airmass": airmass,
+            "airmass_given": given,
+            "exptime_s": exp["exptime_s"].to_numpy(dtype=float),
+            "zero_point": zp,
+            "zero_point_err": zp_err,
+            "calibration_err": cal_err,
+            "n_comparisons": n_comp,
+            "flags": flags,
+        }
+    )
+    raw = table.copy()
+    raw["exposure"] = exposure_of_row
+
+    measured = (roles[star_idx] != "comparison") & np.isfinite(table["mag"].to_numpy())
+    e_rows = exposure_of_row[measured]
+    implausible = _implausible(table["mag"].to_numpy(), is_comp[star_idx], exposure_of_row, n_exp)[measured]
+    for sid in pd.unique(table["star"].to_numpy(dtype=object)[measured][implausible]):
+        n_bad = int(np.count_nonzero(implausible & (table["star"].to_numpy(dtype=object)[measured] == sid)))
+        warnings.append(
+            f"{n_bad} measurement(s) of {sid} lie more than {DETECTOR_RANGE_MAG:g} mag from the comparison stars "
+            "of the same exposure, beyond what one exposure of a detector can record: flagged "
+            "(implausible_magnitude), not reduced; check the file's magnitude column"
+        )
+    quality = (
+        np.where(flags[e_rows] != "", qbits.EXPOSURE_FLAGGED, 0)
+        | np.where(table["flag"].to_numpy()[measured] != 0, qbits.UPSTREAM_FLAG, 0)
+        | np.where(np.isfinite(zp[e_rows]), 0, qbits.NO_ZERO_POINT)
+        | np.where(implausible, qbits.IMPLAUSIBLE, 0)
+    ).astype(np.uint8)
+    points = pd.DataFrame(
+        {
+            "exposure": e_rows,
+            "star": table["star"].to_numpy(dtype=object)[measured],
+            "band": exp_band[e_rows],
+            "bjd_tdb": times.bjd_tdb[e_rows],
+            "mag": mag_cal[measured],
+            "mag_err": err_cal[measured],
+            "cal_err": cal_err[e_rows],
+            "quality": quality,
+            **{k: np.full(int(measured.sum()), -1 if k == "transformation" else np.nan) for k in STD_COLUMNS},
+        }
+    )
+    comparisons = pd.DataFrame(comp_rows, columns=list(COMPARISON_COLUMNS))
+    ensembles = pd.DataFrame(ens_rows, columns=list(ENSEMBLE_COLUMNS))
+    report = _night_report(target, label, table, exposures, points, comparisons, band_reports, warnings)
+    return NightReduction(label, exposures, raw, points, comparisons, ensembles, report)
+
+
+def _stats(mag: np.ndarray, err: np.ndarray) -> dict[str, float]:
+    return {
+        "n": int(mag.size),
+        "mean": float(np.mean(mag)) if mag.size else float("nan"),
+        "rms": float(np.std(mag, ddof=1)) if mag.size > 1 else float("nan"),
+        "predicted_rms": float(np.sqrt(np.mean(err**2))) if mag.size else float("nan"),
+    }
+
+
+def _night_report(
+    target: Target,
+    label: str,
+    table: pd.DataFrame,
+    exposures: pd.DataFrame,
+    points: pd.DataFrame,
+    comparisons: pd.DataFrame,
+    band_reports: dict[str, Any],
+    warnings: list[str],
+) -> dict[str, Any]:
+    tid = target.target_star.id
+    bands: dict[str, Any] = {}
+    for band, info in band_reports.items():
+        ex = exposures[exposures["band"] == band]
+        flagged = ex[ex["flags"] != ""]
+        reasons: dict[str, int] = {}
+        for fl in flagged["flags"]:
+            for r in str(fl).split(";"):
+                reasons[r] = reasons.get(r, 0) + 1
+        comp = comparisons[comparisons["band"] == band]
+        in_band = points[points["band"] == band]
+        good = in_band[in_band["quality"] == 0]
+        tgt = good[good["star"] == tid]
+        # Each check star measured in this band (one grouping, not one scan of the points per star of
+        # the target: a target file may list thousands of stars).
+        measured = set(pd.unique(in_band["star"]))
+        by_star = {sid: g for sid, g in good.groupby("star", sort=False)}
+        checks = {}
+        for s in target.stars_with_role("check"):
+            if s.id not in measured:
+                continue
+            g = by_star.get(s.id, good.iloc[:0])
+            st = _stats(g["mag"].to_numpy(), g["mag_err"].to_numpy())
+            st["catalog"] = s.catalog.get(band)
+            st["offset_from_catalog"] = (st["mean"] - s.catalog[band]) if band in s.catalog and len(g) else None
+            checks[s.id] = st
+        bands[band] = {
+            "n_exposures": int(len(ex)),
+            "n_used": int(len(ex) - len(flagged)),
+            "n_flagged": int(len(flagged)),
+            "flag_reasons": reasons,
+            "flagged_frames": [{"frame": str(r.frame), "jd_utc": float(r.jd_utc), "reasons": str(r.flags)} for r in flagged.itertuples()],
+            "comparisons_kept": comp.loc[comp["status"] == "kept", "star"].tolist(),
+            "comparisons_rejected": [
+                {"star": str(r.star), "status": str(r.status), "reason": str(r.reason)} for r in comp.itertuples() if r.status not in ("kept", "not_comparison")
+            ],
+            "calibration_err": float(ex["calibration_err"].iloc[0]) if len(ex) else float("nan"),
+            "median_zero_point_err": float(np.nanmedian(ex["zero_point_err"])) if len(ex) else float("nan"),
+            "target": {
+                "n": int(len(tgt)),
+                "mag_min": float(tgt["mag"].min()) if len(tgt) else None,
+                "mag_max": float(tgt["mag"].max()) if len(tgt) else None,
+                "median_mag_err": float(tgt["mag_err"].median()) if len(tgt) else None,
+            },
+            "check_stars": checks,
+            "ensemble": info["ensemble"],
+        }
+    return {
+        "night": label,
+        "sources": sorted(pd.unique(table["source"]).tolist()),
+        "n_measurements": int(len(table)),
+        "n_exposures": int(len(exposures)),
+        "n_flagged": int((exposures["flags"] != "").sum()),
+        "bjd_start": float(exposures["bjd_tdb"].min()),
+        "bjd_end": float(exposures["bjd_tdb"].max()),
+        "bands": bands,
+        "warnings": warnings,
+    }
