@@ -16,13 +16,14 @@ Also here: the two NaN-safe number helpers every core uses (:func:`json_float`,
 from __future__ import annotations
 
 import dataclasses
+import datetime as _dt
 import math
 from collections.abc import Mapping
 from typing import Any, ClassVar
 
 import numpy as np
 
-__all__ = ["Result", "json_float", "plain", "sd", "to_dict"]
+__all__ = ["Result", "json_float", "plain", "sd", "to_dict", "utc_now"]
 
 
 def json_float(x: Any) -> float | None:
@@ -40,6 +41,11 @@ def sd(variance: Any) -> float:
     """
     v = float(variance)
     return math.sqrt(v) if v >= 0.0 else math.nan
+
+
+def utc_now() -> str:
+    """The current UTC time as results and the archive record it (ISO 8601, seconds, ``Z``)."""
+    return _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
 def plain(obj: Any) -> Any:

@@ -9,7 +9,6 @@ documented for people in ``docs/archive-format.md``; keep the two in step.
 
 from __future__ import annotations
 
-import datetime as _dt
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -226,11 +225,6 @@ def code_capacity(code_column: str) -> int:
 
     kinds = {cols[code_column] for cols in TABLES.values() if code_column in cols and cols[code_column][0] in "iu"}
     return min(int(np.iinfo(np.dtype(k)).max) + 1 for k in kinds)
-
-
-def utc_now() -> str:
-    """The current UTC time as the archive records it (ISO 8601, seconds, ``Z``)."""
-    return _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
 def check_root(f: h5py.File, path: Path, *, writing: bool = False) -> None:

@@ -21,9 +21,10 @@ import pandas as pd
 from .. import __version__
 from ..errors import ArchiveError, VarstarError
 from ..quality import quality_words
+from ..results import utc_now
 from ..target import Target, parse_target
 from . import records, tables
-from .layout import FORMAT_NAME, SCHEMA_VERSION, check_root, code_capacity, utc_now
+from .layout import FORMAT_NAME, SCHEMA_VERSION, check_root, code_capacity
 
 if TYPE_CHECKING:  # pragma: no cover
     from ..transform import Coefficients

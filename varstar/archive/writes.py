@@ -21,10 +21,10 @@ import pandas as pd
 
 from .. import __version__
 from ..errors import InputError
-from ..results import plain
+from ..results import plain, utc_now
 from . import records, tables
 from .integrity import night_digests_of_range
-from .layout import DIGEST_COLUMNS, TABLES, utc_now
+from .layout import DIGEST_COLUMNS, TABLES
 
 if TYPE_CHECKING:  # pragma: no cover
     import h5py

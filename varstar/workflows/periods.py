@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
-from ..results import plain
+from ..results import plain, utc_now
 
 if TYPE_CHECKING:  # pragma: no cover
     from ..archive import ArchiveStore
@@ -85,7 +85,6 @@ def period_of_archive(
         with the points, so period errors include the nights' offsets.
     """
     from .. import __version__
-    from ..archive.layout import utc_now
     from ..period import analyse
 
     lc = archive.lightcurve(None if band == "all" else band, star, include_flagged=include_flagged, columns=ANALYSIS_COLUMNS)
