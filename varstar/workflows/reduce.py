@@ -112,6 +112,177 @@ def _implausible(mag: np.ndarray, is_comparison: np.ndarray, exposure: np.ndarra
         return np.abs(mag - ref[exposure]) > DETECTOR_RANGE_MAG
 
 
+@dataclass(frozen=True)
+class _NightStars:
+    """The target file's stars as tonight's measurements see them.
+
+    ``index`` maps each measurement row to its star in the target file; the
+    ensemble works on the stars measured tonight (``measured``, indices into the
+    target file; ``local`` maps a target-file index to its place among them, -1
+    when absent), so its cost follows the night's data, not the file's length.
+    """
+
+    ids: list[str]
+    roles: np.ndarray
+    index: np.ndarray
+    is_comparison: np.ndarray
+    excluded: tuple[str, ...]
+    measured: np.ndarray
+    local: np.ndarray
+    colour: np.ndarray
+    n_absent: int
+
+
+def _night_stars(target: Target, table: pd.DataFrame) -> _NightStars:
+    ids = list(target.star_ids)
+    roles = np.array([s.role for s in target.stars])
+    excluded = excluded_stars(target)
+    is_comp = (roles == "comparison") & ~np.isin(ids, excluded)
+    index = pd.Index(ids).get_indexer(table["star"])
+    measured = np.unique(index)
+    local = np.full(len(ids), -1)
+    local[measured] = np.arange(measured.size)
+    # Catalogue colour of each star for the ensemble's colour-extinction term (B - V
+    # when the catalogue has both; any colour index serves as the regressor).
+    cat = [target.stars[i].catalog for i in measured]
+    colour = np.array([c["B"] - c["V"] if {"B", "V"} <= set(c) else np.nan for c in cat])
+    # A comparison star absent all night (no data, so no part in the fit) is reported as the
+    # ensemble reports one without usable measurements; it does not enter the colour reference.
+    return _NightStars(ids, roles, index, is_comp, excluded, measured, local, colour,
+                       int(np.count_nonzero(is_comp & (local < 0))))
+
+
+def _exposures(table: pd.DataFrame) -> tuple[pd.DataFrame, np.ndarray]:
+    """One exposure per (frame, band), ordered by time; and the exposure of each measurement row."""
+    frame_code, _ = pd.factorize(table["frame"])
+    band_code, band_names = pd.factorize(table["band"])
+    codes, _ = pd.factorize(frame_code * len(band_names) + band_code)
+    _, first = np.unique(codes, return_index=True)
+    exp = table.iloc[first][["frame", "band", "jd", "airmass", "exptime_s"]].reset_index(drop=True)
+    order = np.argsort(exp["jd"].to_numpy(), kind="stable")
+    rank = np.empty_like(order)
+    rank[order] = np.arange(len(order))
+    return exp.iloc[order].reset_index(drop=True), rank[codes]
+
+
+def _times(target: Target, exp: pd.DataFrame) -> tuple[Any, np.ndarray, list[str]]:
+    """Times of the exposures, the airmass used (the table's where given, else computed) and warnings."""
+    site = target.site
+    times = exposure_times(exp["jd"].to_numpy(), target.ra_deg, target.dec_deg, site.latitude_deg, site.longitude_deg, site.elevation_m)
+    given = exp["airmass"].to_numpy(dtype=float)
+    warnings: list[str] = []
+    both = np.isfinite(given) & np.isfinite(times.airmass)
+    if both.any() and np.median(np.abs(given[both] - times.airmass[both])) > _AIRMASS_WARN:
+        warnings.append(
+            f"the table's airmass differs from the one computed for the site and target by "
+            f"{np.median(np.abs(given[both] - times.airmass[both])):.2f} (median): check coordinates, site and that jd is UTC"
+        )
+    below = ~np.isfinite(given) & ~np.isfinite(times.airmass)
+    if below.any():
+        warnings.append(f"the target is below the horizon at {int(below.sum())} exposure time(s): check coordinates, site and that jd is UTC")
+    return times, np.where(np.isfinite(given), given, times.airmass), warnings
+
+
+def _solve_band(
+    target: Target, table: pd.DataFrame, band: str, rows: np.ndarray, in_band: np.ndarray, exposure_of_row: np.ndarray,
+    exp: pd.DataFrame, airmass: np.ndarray, stars: _NightStars, settings: EnsembleSettings,
+) -> tuple[Any, np.ndarray]:
+    """The ensemble solution of one band (rows of ``table``, exposures ``in_band`` in time order),
+    and the error of each comparison star's mean magnitude, 1/sqrt(sum of its weights)."""
+    from ..ensemble import solve_ensemble
+
+    local = np.full(len(exp), -1)
+    local[in_band] = np.arange(in_band.size)
+    cat = [target.stars[i] for i in stars.measured]
+    try:
+        sol = solve_ensemble(
+            local[exposure_of_row[rows]],
+            stars.local[stars.index[rows]],
+            table["mag"].to_numpy()[rows],
+            table["mag_err"].to_numpy()[rows],
+            n_exposures=in_band.size,
+            is_comparison=stars.is_comparison[stars.measured],
+            catalog_mag=np.array([s.catalog.get(band, np.nan) for s in cat]),
+            catalog_err=np.array([s.catalog_err.get(band, 0.0) for s in cat]),
+            time=exp["jd"].to_numpy()[in_band],
+            airmass=airmass[in_band],
+            good=(table["flag"].to_numpy()[rows] == 0) & np.isfinite(table["mag"].to_numpy()[rows]),
+            settings=settings,
+            star_names=[stars.ids[i] for i in stars.measured],
+            colour=stars.colour,
+        )
+    except ReductionError as exc:
+        # The ensemble works on arrays and cannot know where they came from: say it here.
+        absent = (f"; {stars.n_absent} comparison star(s) of {target.source} have no measurement in these files"
+                  if stars.n_absent else "")
+        raise ReductionError(f"{sources_of(table, rows)}, band {band}: {exc}{absent}") from None
+    used = sol.used
+    in_fit = stars.local[stars.index[rows][used]]
+    w = 1.0 / (table["mag_err"].to_numpy()[rows][used] ** 2 + np.nan_to_num(sol.star_excess)[in_fit] ** 2)
+    with np.errstate(divide="ignore"):
+        mean_err = 1.0 / np.sqrt(np.bincount(in_fit, w, minlength=stars.measured.size))
+    return sol, mean_err
+
+
+def _comparison_rows(band: str, sol: Any, mean_err: np.ndarray, stars: _NightStars, settings: EnsembleSettings) -> list[dict[str, Any]]:
+    """One row per comparison star of the target file for this band: status, reason, offsets."""
+    absent_reason = f"only 0 usable measurement(s); at least {settings.min_star_points} needed"
+    out = []
+    for i in np.flatnonzero(stars.roles == "comparison"):
+        sid, k = stars.ids[i], int(stars.local[i])
+        excluded = sid in stars.excluded
+        if k < 0:  # not measured tonight: as the ensemble reports a star without usable data
+            status, reason = "too_few_points", absent_reason
+            values = (np.nan, np.nan, np.nan, 0.0, np.inf)
+        else:
+            status, reason = sol.star_status[k], sol.star_reason[k]
+            values = (sol.star_offset[k], sol.star_excess[k], sol.star_chi2_dof[k], sol.tie_weight[k], mean_err[k])
+        out.append({
+            "band": band,
+            "star": sid,
+            "status": "excluded" if excluded else status,
+            "reason": "excluded by [reduction] exclude in the target file" if excluded else reason,
+            **{key: float(v) for key, v in zip(("offset", "excess", "chi2_dof", "tie_weight", "mean_err"), values)},
+        })
+    return out
+
+
+def _points(
+    table: pd.DataFrame, exposures: pd.DataFrame, exposure_of_row: np.ndarray, stars: _NightStars,
+    mag_cal: np.ndarray, err_cal: np.ndarray, warnings: list[str],
+) -> pd.DataFrame:
+    """The light-curve points of the target and check stars, with their quality bits (warnings appended)."""
+    measured = (stars.roles[stars.index] != "comparison") & np.isfinite(table["mag"].to_numpy())
+    e_rows = exposure_of_row[measured]
+    implausible = _implausible(table["mag"].to_numpy(), stars.is_comparison[stars.index], exposure_of_row, len(exposures))[measured]
+    star = table["star"].to_numpy(dtype=object)[measured]
+    for sid in pd.unique(star[implausible]):
+        n_bad = int(np.count_nonzero(implausible & (star == sid)))
+        warnings.append(
+            f"{n_bad} measurement(s) of {sid} lie more than {DETECTOR_RANGE_MAG:g} mag from the comparison stars "
+            "of the same exposure, beyond what one exposure of a detector can record: flagged "
+            "(implausible_magnitude), not reduced; check the file's magnitude column"
+        )
+    flags, zp = exposures["flags"].to_numpy(), exposures["zero_point"].to_numpy()
+    quality = (
+        np.where(flags[e_rows] != "", qbits.EXPOSURE_FLAGGED, 0)
+        | np.where(table["flag"].to_numpy()[measured] != 0, qbits.UPSTREAM_FLAG, 0)
+        | np.where(np.isfinite(zp[e_rows]), 0, qbits.NO_ZERO_POINT)
+        | np.where(implausible, qbits.IMPLAUSIBLE, 0)
+    ).astype(np.uint8)
+    return pd.DataFrame({
+        "exposure": e_rows,
+        "star": star,
+        "band": exposures["band"].to_numpy()[e_rows],
+        "bjd_tdb": exposures["bjd_tdb"].to_numpy()[e_rows],
+        "mag": mag_cal[measured],
+        "mag_err": err_cal[measured],
+        "cal_err": exposures["calibration_err"].to_numpy()[e_rows],
+        "quality": quality,
+        **{k: np.full(int(measured.sum()), -1 if k == "transformation" else np.nan) for k in STD_COLUMNS},
+    })
+
+
 def reduce_night(
     target: Target,
     table: pd.DataFrame,
@@ -119,6 +290,10 @@ def reduce_night(
     label: str | None = None,
 ) -> NightReduction:
     """Reduce one night's tidy measurement table (see :mod:`varstar.measurements`).
+
+    The steps: exposures and their times and airmasses; per band, the ensemble
+    solution and each comparison star's status; the light-curve points of the
+    target and check stars with their quality bits; the night's report.
 
     Parameters
     ----------
@@ -131,198 +306,67 @@ def reduce_night(
     label
         Night label; default the evening date at the site.
     """
-    from ..ensemble import solve_ensemble
-
     if table.empty:
         raise InputError("no measurements to reduce")
     settings = settings or settings_from_target(target)
     _check_bands(target, table)
     if label is None:
         label = str(night_label(table["jd"].to_numpy()[:1], target.site.longitude_deg)[0])
-    star_ids = list(target.star_ids)
-    roles = np.array([s.role for s in target.stars])
-
-    # Exposures: one per (frame, band), ordered by time.
-    frame_code, _ = pd.factorize(table["frame"])
-    band_code, band_names = pd.factorize(table["band"])
-    codes, _ = pd.factorize(frame_code * len(band_names) + band_code)
-    _, first = np.unique(codes, return_index=True)
-    exp = table.iloc[first][["frame", "band", "jd", "airmass", "exptime_s"]].reset_index(drop=True)
-    order = np.argsort(exp["jd"].to_numpy(), kind="stable")
-    rank = np.empty_like(order)
-    rank[order] = np.arange(len(order))
-    exp = exp.iloc[order].reset_index(drop=True)
-    exposure_of_row = rank[codes]
-
-    site = target.site
-    times = exposure_times(exp["jd"].to_numpy(), target.ra_deg, target.dec_deg, site.latitude_deg, site.longitude_deg, site.elevation_m)
-    given = exp["airmass"].to_numpy(dtype=float)
-    airmass = np.where(np.isfinite(given), given, times.airmass)
-    warnings: list[str] = []
-    both = np.isfinite(given) & np.isfinite(times.airmass)
-    if both.any() and np.median(np.abs(given[both] - times.airmass[both])) > _AIRMASS_WARN:
-        warnings.append(
-            f"the table's airmass differs from the one computed for the site and target by "
-            f"{np.median(np.abs(given[both] - times.airmass[both])):.2f} (median): check coordinates, site and that jd is UTC"
-        )
-    below = ~np.isfinite(given) & ~np.isfinite(times.airmass)
-    if below.any():
-        warnings.append(f"the target is below the horizon at {int(below.sum())} exposure time(s): check coordinates, site and that jd is UTC")
+    exp, exposure_of_row = _exposures(table)
+    times, airmass, warnings = _times(target, exp)
+    stars = _night_stars(target, table)
 
     n_exp = len(exp)
-    zp = np.full(n_exp, np.nan)
-    zp_err = np.full(n_exp, np.nan)
-    cal_err = np.full(n_exp, np.nan)
+    per_exposure = {k: np.full(n_exp, np.nan) for k in ("zero_point", "zero_point_err", "calibration_err")}
     n_comp = np.zeros(n_exp, dtype=np.int64)
     flags = np.full(n_exp, "", dtype=object)
     mag_cal = np.full(len(table), np.nan)
     err_cal = np.full(len(table), np.nan)
-    star_idx = pd.Index(star_ids).get_indexer(table["star"])
-    excluded = excluded_stars(target)
-    is_comp = (roles == "comparison") & ~np.isin(star_ids, excluded)
-    comp_rows = []
-    ens_rows = []
+    comp_rows: list[dict[str, Any]] = []
+    ens_rows: list[dict[str, Any]] = []
     band_reports: dict[str, Any] = {}
     exp_band = exp["band"].to_numpy()
-    # The ensemble sees the stars measured tonight, not every star of the target file (which may
-    # list thousands): its cost follows the night's data.  A comparison star absent all night
-    # (no data, so no part in the fit) is reported below as the ensemble reports one without
-    # usable measurements; it no longer enters the choice of the colour reference.
-    night_stars = np.unique(star_idx)  # indices into target.stars, measured tonight
-    local_star = np.full(len(star_ids), -1)
-    local_star[night_stars] = np.arange(night_stars.size)
-    night_names = [star_ids[i] for i in night_stars]
-    night_catalog = [target.stars[i] for i in night_stars]
-    n_absent = int(np.count_nonzero(is_comp & (local_star < 0)))
-
-    # Catalogue colour of each star for the ensemble's colour-extinction term (B - V
-    # when the catalogue has both; any colour index serves as the regressor).
-    colour = np.array([s.catalog["B"] - s.catalog["V"] if {"B", "V"} <= set(s.catalog) else np.nan for s in night_catalog])
-    for band in sorted(pd.unique(exp["band"])):
+    for band in sorted(pd.unique(exp_band)):
         in_band = np.flatnonzero(exp_band == band)  # global exposure indices, time order
-        local = np.full(n_exp, -1)
-        local[in_band] = np.arange(in_band.size)
         rows = np.flatnonzero(table["band"].to_numpy() == band)
-        cat = np.array([s.catalog.get(band, np.nan) for s in night_catalog])
-        cat_err = np.array([s.catalog_err.get(band, 0.0) for s in night_catalog])
-        try:
-            sol = solve_ensemble(
-                local[exposure_of_row[rows]],
-                local_star[star_idx[rows]],
-                table["mag"].to_numpy()[rows],
-                table["mag_err"].to_numpy()[rows],
-                n_exposures=in_band.size,
-                is_comparison=is_comp[night_stars],
-                catalog_mag=cat,
-                catalog_err=cat_err,
-                time=exp["jd"].to_numpy()[in_band],
-                airmass=airmass[in_band],
-                good=(table["flag"].to_numpy()[rows] == 0) & np.isfinite(table["mag"].to_numpy()[rows]),
-                settings=settings,
-                star_names=night_names,
-                colour=colour,
-            )
-        except ReductionError as exc:
-            # The ensemble works on arrays and cannot know where they came from: say it here.
-            absent = (f"; {n_absent} comparison star(s) of {target.source} have no measurement in these files"
-                      if n_absent else "")
-            raise ReductionError(f"{sources_of(table, rows)}, band {band}: {exc}{absent}") from None
-        zp[in_band] = sol.zero_point
-        zp_err[in_band] = sol.zero_point_err
-        cal_err[in_band] = sol.calibration_err
+        sol, mean_err = _solve_band(target, table, band, rows, in_band, exposure_of_row, exp, airmass, stars, settings)
+        per_exposure["zero_point"][in_band] = sol.zero_point
+        per_exposure["zero_point_err"][in_band] = sol.zero_point_err
+        per_exposure["calibration_err"][in_band] = sol.calibration_err
         n_comp[in_band] = sol.n_comparisons
         flags[in_band] = np.asarray(sol.exposure_flags, dtype=object)
         mag_cal[rows] = sol.mag
         err_cal[rows] = sol.mag_err
-        # Error of each comparison star's mean magnitude: 1/sqrt(sum of its weights).
-        used = sol.used
-        in_fit = local_star[star_idx[rows][used]]
-        w = 1.0 / (table["mag_err"].to_numpy()[rows][used] ** 2 + np.nan_to_num(sol.star_excess)[in_fit] ** 2)
-        with np.errstate(divide="ignore"):
-            mean_err = 1.0 / np.sqrt(np.bincount(in_fit, w, minlength=night_stars.size))
-        ens_rows.append(
-            {
-                "band": band,
-                "calibration_err": float(sol.calibration_err),
-                "colour_extinction": float(sol.colour_extinction),
-                "colour_extinction_err": float(sol.colour_extinction_err),
-                "colour_reference": float(sol.colour_reference),
-                "n_kept": int(sum(st == "kept" for st in sol.star_status)),
-            }
-        )
-        absent_reason = f"only 0 usable measurement(s); at least {settings.min_star_points} needed"
-        for i in np.flatnonzero(roles == "comparison"):
-            sid, k = star_ids[i], int(local_star[i])
-            out = sid in excluded
-            if k < 0:  # not measured tonight: as the ensemble reports a star without usable data
-                status, reason = "too_few_points", absent_reason
-                values = (np.nan, np.nan, np.nan, 0.0, np.inf)
-            else:
-                status, reason = sol.star_status[k], sol.star_reason[k]
-                values = (sol.star_offset[k], sol.star_excess[k], sol.star_chi2_dof[k], sol.tie_weight[k], mean_err[k])
-            comp_rows.append(
-                {
-                    "band": band,
-                    "star": sid,
-                    "status": "excluded" if out else status,
-                    "reason": "excluded by [reduction] exclude in the target file" if out else reason,
-                    **{key: float(v) for key, v in zip(("offset", "excess", "chi2_dof", "tie_weight", "mean_err"), values)},
-                }
-            )
+        ens_rows.append({
+            "band": band,
+            "calibration_err": float(sol.calibration_err),
+            "colour_extinction": float(sol.colour_extinction),
+            "colour_extinction_err": float(sol.colour_extinction_err),
+            "colour_reference": float(sol.colour_reference),
+            "n_kept": int(sum(st == "kept" for st in sol.star_status)),
+        })
+        comp_rows += _comparison_rows(band, sol, mean_err, stars, settings)
         summary = sol.to_dict()
         for entry in summary["stars"]:  # the index of each star in the target file, as before
-            entry["index"] = int(night_stars[entry["index"]])
+            entry["index"] = int(stars.measured[entry["index"]])
         band_reports[band] = {"ensemble": summary}
 
-    exposures = pd.DataFrame(
-        {
-            "frame": exp["frame"].astype(str).to_numpy(dtype=object),
-            "band": exp_band,
-            "jd_utc": exp["jd"].to_numpy(),
-            "bjd_tdb": times.bjd_tdb,
-            "hjd_utc": times.hjd_utc,
-            "airmass": airmass,
-            "airmass_given": given,
-            "exptime_s": exp["exptime_s"].to_numpy(dtype=float),
-            "zero_point": zp,
-            "zero_point_err": zp_err,
-            "calibration_err": cal_err,
-            "n_comparisons": n_comp,
-            "flags": flags,
-        }
-    )
+    exposures = pd.DataFrame({
+        "frame": exp["frame"].astype(str).to_numpy(dtype=object),
+        "band": exp_band,
+        "jd_utc": exp["jd"].to_numpy(),
+        "bjd_tdb": times.bjd_tdb,
+        "hjd_utc": times.hjd_utc,
+        "airmass": airmass,
+        "airmass_given": exp["airmass"].to_numpy(dtype=float),
+        "exptime_s": exp["exptime_s"].to_numpy(dtype=float),
+        **per_exposure,
+        "n_comparisons": n_comp,
+        "flags": flags,
+    })
     raw = table.copy()
     raw["exposure"] = exposure_of_row
-
-    measured = (roles[star_idx] != "comparison") & np.isfinite(table["mag"].to_numpy())
-    e_rows = exposure_of_row[measured]
-    implausible = _implausible(table["mag"].to_numpy(), is_comp[star_idx], exposure_of_row, n_exp)[measured]
-    for sid in pd.unique(table["star"].to_numpy(dtype=object)[measured][implausible]):
-        n_bad = int(np.count_nonzero(implausible & (table["star"].to_numpy(dtype=object)[measured] == sid)))
-        warnings.append(
-            f"{n_bad} measurement(s) of {sid} lie more than {DETECTOR_RANGE_MAG:g} mag from the comparison stars "
-            "of the same exposure, beyond what one exposure of a detector can record: flagged "
-            "(implausible_magnitude), not reduced; check the file's magnitude column"
-        )
-    quality = (
-        np.where(flags[e_rows] != "", qbits.EXPOSURE_FLAGGED, 0)
-        | np.where(table["flag"].to_numpy()[measured] != 0, qbits.UPSTREAM_FLAG, 0)
-        | np.where(np.isfinite(zp[e_rows]), 0, qbits.NO_ZERO_POINT)
-        | np.where(implausible, qbits.IMPLAUSIBLE, 0)
-    ).astype(np.uint8)
-    points = pd.DataFrame(
-        {
-            "exposure": e_rows,
-            "star": table["star"].to_numpy(dtype=object)[measured],
-            "band": exp_band[e_rows],
-            "bjd_tdb": times.bjd_tdb[e_rows],
-            "mag": mag_cal[measured],
-            "mag_err": err_cal[measured],
-            "cal_err": cal_err[e_rows],
-            "quality": quality,
-            **{k: np.full(int(measured.sum()), -1 if k == "transformation" else np.nan) for k in STD_COLUMNS},
-        }
-    )
+    points = _points(table, exposures, exposure_of_row, stars, mag_cal, err_cal, warnings)
     comparisons = pd.DataFrame(comp_rows, columns=list(COMPARISON_COLUMNS))
     ensembles = pd.DataFrame(ens_rows, columns=list(ENSEMBLE_COLUMNS))
     report = _night_report(target, label, table, exposures, points, comparisons, band_reports, warnings)
