@@ -105,6 +105,56 @@ def _mean_curves(lc: pd.DataFrame, eph: Any) -> dict[str, Any]:
     return out
 
 
+def _time_nights(
+    archive: ArchiveStore, eph: Any, *, band: str | None, kind: str | None, night: str | None, seed: int
+) -> tuple[list[Any], list[Any]]:
+    """Timings and refusals of every extremum predicted in each night and band (or one night)."""
+    from ..timings import find_timings
+
+    whole = archive.lightcurve(band, columns=ANALYSIS_COLUMNS)
+    lc = whole
+    if night is not None:
+        if night not in set(archive.nights()["label"]):
+            raise InputError(f"{archive.path}: no night '{night}' (see 'varstar summary')")
+        lc = whole[whole["night"] == night]
+    if lc.empty:
+        raise InputError(f"{archive.path}: no good light-curve points{' in band ' + band if band else ''}; nothing to time")
+    gen = np.random.default_rng(seed)
+    # the mean curves come from every night, also when only one night is timed
+    templates = _mean_curves(whole, eph) if eph.kind == "maximum" else {}
+    found: list[Any] = []
+    refused: list[Any] = []
+    for (n, b), g in lc.groupby(["night", "band"], sort=True):
+        ts, rs = find_timings(g["bjd_tdb"].to_numpy(), g["mag"].to_numpy(), g["mag_err"].to_numpy(), str(n), str(b),
+                              eph, kind, rng=gen, template=templates.get(str(b)))
+        found += ts
+        refused += rs
+    return found, refused
+
+
+def _listing(before: pd.DataFrame, new: list[Any], cycles: np.ndarray, oc: np.ndarray, note: str) -> list[dict[str, Any]]:
+    """Every timing, stored and new, with its cycle and O - C, in time order."""
+    listing = []
+    stored_rows = list(before.itertuples())
+    for i in range(cycles.size):
+        if i < len(stored_rows):
+            r = stored_rows[i]
+            d = {"bjd_tdb": r.bjd_tdb, "err": r.err, "method": r.method, "band": r.band_name, "type": r.type,
+                 "night": r.night_label, "check_method": r.check_method, "check_bjd_tdb": r.check_bjd_tdb,
+                 "check_err": r.check_err, "disagree": bool(r.disagree), "n_points": int(r.n_points),
+                 "note": r.note, "new": False}
+        else:
+            t = new[i - len(stored_rows)]
+            d = {"bjd_tdb": t.bjd_tdb, "err": t.err, "method": t.method, "band": t.band, "type": t.type,
+                 "night": t.night, "check_method": t.second_method, "check_bjd_tdb": t.second_bjd_tdb,
+                 "check_err": t.second_err, "disagree": bool(t.disagree), "n_points": int(t.n_points),
+                 "note": "; ".join(x for x in (t.note, note) if x), "new": True}
+        d.update(cycle=float(cycles[i]), o_minus_c=float(oc[i]))
+        listing.append(d)
+    listing.sort(key=lambda d: d["bjd_tdb"])
+    return listing
+
+
 def timings_of_archive(
     archive: ArchiveStore,
     *,
@@ -129,7 +179,7 @@ def timings_of_archive(
     Everything is written in one atomic change; nothing is written when no
     extremum can be timed.
     """
-    from ..timings import find_timings, fit_ephemeris, o_minus_c
+    from ..timings import fit_ephemeris, o_minus_c
 
     eph_no, eph = active_ephemeris(archive)
     if eph is None:
@@ -137,23 +187,7 @@ def timings_of_archive(
             f"{archive.path}: no ephemeris: add an [ephemeris] table (epoch = BJD_TDB, period = days, "
             f"kind = \"minimum\" or \"maximum\") to the target description"
         )
-    whole = archive.lightcurve(band, columns=ANALYSIS_COLUMNS)
-    lc = whole
-    if night is not None:
-        if night not in set(archive.nights()["label"]):
-            raise InputError(f"{archive.path}: no night '{night}' (see 'varstar summary')")
-        lc = whole[whole["night"] == night]
-    if lc.empty:
-        raise InputError(f"{archive.path}: no good light-curve points{' in band ' + band if band else ''}; nothing to time")
-    gen = np.random.default_rng(seed)
-    # the mean curves come from every night, also when only one night is timed
-    templates = _mean_curves(whole, eph) if eph.kind == "maximum" else {}
-    found, refused = [], []
-    for (n, b), g in lc.groupby(["night", "band"], sort=True):
-        ts, rs = find_timings(g["bjd_tdb"].to_numpy(), g["mag"].to_numpy(), g["mag_err"].to_numpy(), str(n), str(b),
-                              eph, kind, rng=gen, template=templates.get(str(b)))
-        found += ts
-        refused += rs
+    found, refused = _time_nights(archive, eph, band=band, kind=kind, night=night, seed=seed)
     before = archive.timings()
     have = {(r.night_label, r.band_name, r.type, float(r.cycle)) for r in before.itertuples()}
     new = [t for t in found if (t.night, t.band, t.type, float(t.cycle)) not in have]
@@ -198,24 +232,7 @@ def timings_of_archive(
                 numbers["ephemeris"] = w.append_ephemeris(
                     fit.to_ephemeris(), f"fit of {fit.n_timings} timings ({fit.model})", fit, fit.note)
 
-    listing = []
-    stored_rows = list(before.itertuples())
-    for i in range(times.size):
-        if i < len(stored_rows):
-            r = stored_rows[i]
-            d = {"bjd_tdb": r.bjd_tdb, "err": r.err, "method": r.method, "band": r.band_name, "type": r.type,
-                 "night": r.night_label, "check_method": r.check_method, "check_bjd_tdb": r.check_bjd_tdb,
-                 "check_err": r.check_err, "disagree": bool(r.disagree), "n_points": int(r.n_points),
-                 "note": r.note, "new": False}
-        else:
-            t = new[i - len(stored_rows)]
-            d = {"bjd_tdb": t.bjd_tdb, "err": t.err, "method": t.method, "band": t.band, "type": t.type,
-                 "night": t.night, "check_method": t.second_method, "check_bjd_tdb": t.second_bjd_tdb,
-                 "check_err": t.second_err, "disagree": bool(t.disagree), "n_points": int(t.n_points),
-                 "note": "; ".join(x for x in (t.note, note) if x), "new": True}
-        d.update(cycle=float(cycles[i]), o_minus_c=float(oc[i]))
-        listing.append(d)
-    listing.sort(key=lambda d: d["bjd_tdb"])
+    listing = _listing(before, new, cycles, oc, note)
     return TimingsResult(**plain({
         "archive": str(archive.path),
         "ephemeris": dict(eph.to_dict(), entry=eph_no),
