@@ -51,7 +51,8 @@ from varstar.ensemble import EnsembleSettings
 from varstar.errors import InputError, ReductionError
 from varstar.measurements import CHUNK_BYTES, MAX_LINE_BYTES, parse_measurements, parse_stream, read_measurement_file
 from varstar.workflows.reduce import reduce_night
-from varstar.target import MAX_TOML_DEPTH, id_problem, parse_target, read_target
+from varstar.inputs import MAX_TOML_DEPTH, id_problem
+from varstar.target import parse_target, read_target
 
 REPO = Path(__file__).resolve().parents[1]
 DEMO = REPO / "demo_series"
@@ -602,7 +603,7 @@ def test_one_rule_for_every_id():
             parse_target(base.replace('id = "C1"', f'id = "{toml_id}"', 1), source="t.toml")
     assert tried == len(SEPARATORS) - 1 == 66, tried
     # The rule's pattern is exactly these categories (checked against the Unicode database).
-    from varstar.target import _NOT_IN_TEXT
+    from varstar.inputs import _NOT_IN_TEXT
 
     assert [chr(c) for c in range(0x110000) if _NOT_IN_TEXT.match(chr(c))] == SEPARATORS
     for text_id in PRINTABLE:  # inside the id: blanks at either end are not part of it

@@ -372,7 +372,7 @@ def reference(data: bytes, ids: list[str], bands: list[str], source_name: str) -
         bad |= et is BAD or (isinstance(et, float) and not 0 < et <= EXPTIME_MAX)
         frame = c["frame"].strip() if "frame" in c else None
         bad |= frame == ""
-        # One rule for every id (varstar.target.id_problem): no control character, line or paragraph separator.
+        # One rule for every id (varstar.inputs.id_problem): no control character, line or paragraph separator.
         bad |= frame is not None and any(unicodedata.category(ch) in ("Cc", "Zl", "Zp") for ch in frame)
         if bad:
             v.problems.append(frozenset([k]))
@@ -948,7 +948,7 @@ def ref_target(doc: dict) -> dict | None:
         return None
     name = tgt.get("name")
     # Free text, but one line of printable text: control characters (and line or paragraph separators,
-    # the one rule for ids and names, varstar.target.id_problem) cannot be stored or shown safely.
+    # the one rule for ids and names, varstar.inputs.id_problem) cannot be stored or shown safely.
     if not isinstance(name, str) or not name.strip() or any(unicodedata.category(c) in ("Cc", "Zl", "Zp") for c in name):
         return None
     ra, dec = ref_angle(tgt.get("ra"), "ra"), ref_angle(tgt.get("dec"), "dec")

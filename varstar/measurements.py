@@ -35,7 +35,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputError
-from .target import id_problem, open_input
+from .inputs import id_problem, open_input
 
 REQUIRED_LONG = ("jd", "band", "star", "mag", "mag_err")
 OPTIONAL = ("airmass", "exptime", "flag", "frame")
@@ -485,7 +485,7 @@ def _wide_form(df: pd.DataFrame, lines: np.ndarray, source: str) -> pd.DataFrame
 
 
 def _check_ids(values: np.ndarray, lines: np.ndarray, source: str, col: str) -> None:
-    """Every id of a column (band, frame) obeys the one rule for ids (:func:`varstar.target.id_problem`)."""
+    """Every id of a column (band, frame) obeys the one rule for ids (:func:`varstar.inputs.id_problem`)."""
     codes, uniq = pd.factorize(values)
     for k, u in enumerate(uniq):
         why = id_problem(u)

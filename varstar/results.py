@@ -51,7 +51,8 @@ def utc_now() -> str:
 def plain(obj: Any) -> Any:
     """Recursively turn results, numpy scalars/arrays and non-finite floats into JSON-safe values."""
     if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
-        return to_dict(obj)
+        own = getattr(obj, "to_dict", None)
+        return plain(own()) if callable(own) else to_dict(obj)
     if isinstance(obj, Mapping):
         return {str(k): plain(v) for k, v in obj.items()}
     if isinstance(obj, (list, tuple)):

@@ -24,7 +24,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any, Mapping
 
 from .errors import InputError
-from .target import finite_number, load_toml, read_toml_text
+from .inputs import finite_number, load_toml, read_toml_text
 
 if TYPE_CHECKING:  # pragma: no cover
     from .transform import Coefficients
@@ -43,7 +43,7 @@ _SETUP_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
 
 
 def _load(path: Path) -> dict[str, Any]:
-    """A setups or coefficients file as a checked TOML document (:func:`varstar.target.load_toml`)."""
+    """A setups or coefficients file as a checked TOML document (:func:`varstar.inputs.load_toml`)."""
     return load_toml(read_toml_text(path), str(path))
 
 
