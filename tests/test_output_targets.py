@@ -487,12 +487,14 @@ def test_demo_and_setups_write_through_the_one_writer():
     # Every file a command writes goes through export.write_atomic: no other writer in the shells.
     root = Path(varstar.__file__).parent
     offenders = []
-    for py in root.glob("*.py"):
+    for py in root.rglob("*.py"):
         text = py.read_text(encoding="utf-8")
+        name = py.relative_to(root).as_posix()
         for needle in ("os.replace(", ".write_bytes(", ".write_text(", "savefig(", ".to_csv(path", "tempfile."):
-            # simulate.write_series fills a scenario folder for scripts and benchmarks; it is no command's output
-            if needle in text and py.name not in ("export.py", "plots.py", "simulate.py"):
-                offenders.append(f"{py.name}: {needle}")
+            # simulate.write_series fills a scenario folder for scripts and benchmarks; it is no command's output;
+            # the archive writes through its own journal (archive/transaction.py)
+            if needle in text and name not in ("export.py", "plots.py", "simulate/files.py") and not name.startswith("archive/"):
+                offenders.append(f"{name}: {needle}")
     assert offenders == []
     plots = (root / "plots.py").read_text(encoding="utf-8")
     assert plots.count("savefig(") == 1 and "savefig(buf" in plots  # rendered into memory, then the writer

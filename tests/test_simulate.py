@@ -410,7 +410,11 @@ def test_synthetic_night_shapes_and_consistency(monkeypatch):
     def boom(*a, **k):
         raise AssertionError("synthetic_night must not call astropy")
 
-    monkeypatch.setattr(S, "exposure_times", boom)
+    import varstar.simulate.schedule
+    import varstar.timescale
+
+    monkeypatch.setattr(varstar.timescale, "exposure_times", boom)
+    monkeypatch.setattr(varstar.simulate.schedule, "exposure_times", boom)
     toml, df = S.synthetic_night(200, 12, seed=5, missing_fraction=0.0)
     assert list(df.columns) == list(S.MEASUREMENT_COLUMNS)
     assert len(df) == 200 * 12 * 2
