@@ -1,4 +1,4 @@
-"""Tests of varstar.plots: the light-curve figure and saving it.
+"""Tests of varstar.plots: what every figure draws, and saving it.
 
 Conventions checked (common practice in the trade): magnitude axes are
 inverted (brighter up), every point has its error bar, axes name the band, the
@@ -7,20 +7,43 @@ palette (black #000000, orange #E69F00, sky blue #56B4E9, bluish green #009E73,
 yellow #F0E442, blue #0072B2, vermillion #D55E00, reddish purple #CC79A7; from
 memory), nights told apart by colour *and* marker.  File signatures: PNG
 (ISO/IEC 15948: 89 50 4E 47 0D 0A 1A 0A), PDF ("%PDF-").
+
+Each figure function is called the way ``varstar.demo`` and ``varstar.cli``
+call it, on the demo's own data (the invented field of ``varstar.simulate``,
+fixed seed, ingested, transformed, period and timings found), and on small
+hand-built inputs with fixed seeds where a case needs a feature the demo lacks
+(a rejected standard star, a rejected comparison star, a night seen in one band
+only, primary and secondary timings).  The tests read the returned Figure's
+artists: panels, series, the plotted numbers, error bars, axis direction and
+limits, labels and legends.
 """
 
 from __future__ import annotations
 
 import re
+import shutil
 
 import numpy as np
 import pandas as pd
 import pytest
+from matplotlib.collections import PathCollection
 from matplotlib.colors import to_hex, to_rgb
 from matplotlib.container import ErrorbarContainer
+from matplotlib.figure import Figure
+from matplotlib.image import imread
 
 from varstar.errors import OutputError
-from varstar.plots import lightcurve_figure, save
+from varstar.plots import (
+    PALETTE,
+    coefficient_figure,
+    colour_figure,
+    colour_magnitude_figure,
+    lightcurve_figure,
+    oc_figure,
+    periodogram_figure,
+    phased_figure,
+    save,
+)
 
 OKABE_ITO = {"#000000", "#e69f00", "#56b4e9", "#009e73", "#f0e442", "#0072b2", "#d55e00", "#cc79a7"}
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
@@ -70,7 +93,7 @@ def test_axes_inverted_labelled_and_one_panel_per_band():
     fig = lightcurve_figure(lc, title="Wren-Hollow 7: V1")
     axes = fig.axes
     assert len(axes) == 2
-    fig.canvas.draw()  # limits and labels as they will be rendered
+    fig.draw_without_rendering()  # limits and labels as they will be rendered
     for ax, band in zip(axes, ["B", "V"]):  # bands in sorted order, one panel each
         lo, hi = ax.get_ylim()
         assert lo > hi, f"{band}: magnitude axis must be inverted (bright up), got ylim {lo, hi}"
@@ -223,3 +246,672 @@ def test_save_into_missing_folder_is_output_error(tmp_path):
     with pytest.raises(OutputError, match="missing"):
         save(fig, tmp_path / "missing" / "lc.png")
     assert list(tmp_path.iterdir()) == []
+
+
+# --------------------------------------------------------------------------- reading a figure
+
+
+def drawn(fig: Figure) -> Figure:
+    """Lay the figure out as it will be rendered (autoscaled limits, secondary axes), without pixels."""
+    fig.draw_without_rendering()
+    return fig
+
+
+def errorbar_series(ax) -> list[ErrorbarContainer]:
+    return [c for c in ax.containers if isinstance(c, ErrorbarContainer)]
+
+
+def series_by_label(ax) -> dict[str, ErrorbarContainer]:
+    return {c.get_label(): c for c in errorbar_series(ax)}
+
+
+def bars(container: ErrorbarContainer, axis: str = "y") -> tuple[np.ndarray, np.ndarray]:
+    """Centres and half-lengths of a series' error bars along ``axis`` (as drawn, from the bar segments)."""
+    assert container.has_yerr if axis == "y" else container.has_xerr, f"no {axis} error bars"
+    cols = container.lines[2]
+    col = cols[-1] if axis == "y" else cols[0]  # matplotlib draws x bars first, then y bars
+    segs = np.asarray(col.get_segments(), dtype=float)
+    k = 1 if axis == "y" else 0
+    return (segs[:, 0, k] + segs[:, 1, k]) / 2, np.abs(segs[:, 1, k] - segs[:, 0, k]) / 2
+
+
+def assert_magnitude_axis(ax) -> None:
+    lo, hi = ax.get_ylim()
+    assert lo > hi, f"magnitude axis must be inverted (bright up), got ylim {lo, hi}"
+
+
+def assert_view_fits(ax, x, y, xerr=0.0, yerr=0.0, slack: float = 1.3) -> None:
+    """Every point with its bars is inside the view, and the view is not much wider than the data.
+
+    matplotlib's default margins add 5 % a side (common practice: its documented
+    ``axes.xmargin``/``ymargin``), so a view over 1.3 times the data's span means
+    something else (a stray point, a wrong unit, a wrong offset) stretched it.
+    """
+    x, y = np.asarray(x, float), np.asarray(y, float)
+    xerr, yerr = np.broadcast_to(np.asarray(xerr, float), x.shape), np.broadcast_to(np.asarray(yerr, float), y.shape)
+    for (lo_v, hi_v), v, e, name in ((sorted(ax.get_xlim()), x, xerr, "x"), (sorted(ax.get_ylim()), y, yerr, "y")):
+        lo_d, hi_d = float(np.nanmin(v - e)), float(np.nanmax(v + e))
+        assert lo_v <= lo_d and hi_d <= hi_v, f"{name}: data {lo_d, hi_d} outside the view {lo_v, hi_v}"
+        assert hi_v - lo_v < slack * (hi_d - lo_d), f"{name}: view {lo_v, hi_v} much wider than the data {lo_d, hi_d}"
+
+
+def legend_texts(legend) -> list[str]:
+    assert legend is not None, "no legend"
+    return [t.get_text() for t in legend.get_texts()]
+
+
+def labelled_lines(ax, label: str):
+    return [ln for ln in ax.lines if ln.get_label() == label]
+
+
+# --------------------------------------------------------------------------- the demo's own inputs
+
+
+@pytest.fixture(scope="module")
+def demo(demo_data, demo_archive_path, tmp_path_factory):
+    """Every figure's input as ``varstar.demo`` makes it: standard-field fit, transformed archive, colour,
+    field diagram of the last night, period and timings (on a copy of the six-night demo archive)."""
+    from types import SimpleNamespace
+
+    from varstar.colour import colour_summary, phases
+    from varstar.setups import read_setup, save_setup
+    from varstar.standards import fit_standard_field
+    from varstar.workflows.archive import open_archive
+    from varstar.workflows.periods import phased_data, phased_model
+    from varstar.workflows.standard import field_diagram, transform_archive
+
+    folder = tmp_path_factory.mktemp("plots-demo")
+    archive = folder / "demo.h5"
+    shutil.copyfile(demo_archive_path, archive)
+    k2_bv = -0.03  # the demo's k''_bv (common practice for B - V)
+    fit = fit_standard_field([demo_data.folder / "standards.csv"], demo_data.folder / "standards.toml", k2_bv=k2_bv)
+    setups = folder / "setups.toml"
+    save_setup(setups, "demo-camera", fit.coefficients("standards.toml fit", k2_bv=k2_bv))
+    coeffs, gap = read_setup(setups, "demo-camera")
+    transform_archive(archive, coeffs, gap)
+    arch = open_archive(archive)
+    lc = arch.lightcurve()
+    colour = colour_summary(lc, arch.target)
+    last = str(arch.nights()["label"].iloc[-1])
+    field, track = field_diagram(arch, last)
+    found = arch.period(store=False)
+    lcp, resid = phased_data(found.result, found.lightcurve)
+    return SimpleNamespace(
+        name=arch.target.name, star=arch.target.target_star.id, fit=fit, lc_all=arch.lightcurve(include_flagged=True),
+        lc=lc, phase=phases(lc["bjd_tdb"].to_numpy(), arch.target), period_eph=colour["ephemeris"]["period"],
+        last=last, field=field, track=track, found=found, res=found.result, payload=found.to_dict(), lcp=lcp,
+        resid=resid, model=phased_model(found.result), timed=arch.time_extrema(store=False).to_dict(),
+    )
+
+
+def demo_lightcurve_figure(demo) -> Figure:
+    return lightcurve_figure(demo.lc_all, title=f"{demo.name}: {demo.star}", show_flagged=True)
+
+
+def demo_colour_figure(demo) -> Figure:
+    return colour_figure(demo.lc, title=f"{demo.name}: {demo.star}", phase=demo.phase, period_d=demo.period_eph)
+
+
+def demo_cmd_figure(demo) -> Figure:
+    return colour_magnitude_figure(demo.field, demo.track, title=f"{demo.name}, night {demo.last}")
+
+
+def demo_periodogram_figure(demo) -> Figure:
+    res = demo.res
+    return periodogram_figure(res.freq, res.power, best_frequency=res.aliases.best_frequency, fap_levels=res.fap_levels,
+                              peaks=demo.payload["aliases"][:4], theta=res.theta,
+                              title=f"{demo.name}: {demo.star}, {res.method}", ylabel="normalised power")
+
+
+def demo_phased_figure(demo) -> Figure:
+    res = demo.res
+    return phased_figure(demo.lcp, period_d=res.period, epoch_bjd=res.epoch, model=demo.model, residuals=demo.resid,
+                         title=f"{demo.name}: {demo.star}, P = {res.period:.7f} d")
+
+
+def oc_inputs(timed: dict) -> tuple[list, list, list, list]:
+    ts = timed["timings"]
+    return [t["cycle"] for t in ts], [t["o_minus_c"] for t in ts], [t["err"] for t in ts], [t["type"] for t in ts]
+
+
+def demo_oc_figure(demo) -> Figure:
+    timed = demo.timed
+    eph = timed["ephemeris"]
+    return oc_figure(*oc_inputs(timed), fit=dict(timed["fit"], reference=eph),
+                     reference=f"T0 = {eph['epoch']:.5f}, P = {eph['period']:.7f} d (BJD_TDB)", title=f"{demo.name}: O − C")
+
+
+# --------------------------------------------------------------------------- the checks themselves
+
+
+def test_the_checks_fail_on_wrong_figures():
+    """Each reading helper rejects the figure it guards against (so a test using it can fail)."""
+    fig = Figure()
+    ax = fig.subplots()
+    ax.errorbar([1.0, 2.0, 3.0], [13.0, 13.4, 13.2], yerr=[0.01, 0.01, 0.01], fmt="o")
+    drawn(fig)
+    with pytest.raises(AssertionError, match="inverted"):
+        assert_magnitude_axis(ax)  # magnitudes drawn faint-up
+    assert_view_fits(ax, [1.0, 2.0, 3.0], [13.0, 13.4, 13.2], yerr=0.01)
+    ax.plot([0.0], [0.0], "o")  # a stray point stretches the view
+    ax.relim()
+    ax.autoscale_view()
+    with pytest.raises(AssertionError, match="wider"):
+        assert_view_fits(ax, [1.0, 2.0, 3.0], [13.0, 13.4, 13.2], yerr=0.01)
+    with pytest.raises(AssertionError, match="outside"):
+        assert_view_fits(ax, [1.0, 2.0, 30.0], [13.0, 13.4, 13.2])
+    ax.invert_yaxis()
+    assert_magnitude_axis(ax)
+    # points without error bars are no error-bar series, and a series without x bars has none to read
+    fig2 = Figure()
+    ax2 = fig2.subplots()
+    ax2.plot([1.0, 2.0], [13.0, 13.1], "o")
+    assert errorbar_series(ax2) == []
+    c = ax2.errorbar([1.0, 2.0], [13.0, 13.1], yerr=[0.02, 0.03], fmt="o")
+    with pytest.raises(AssertionError, match="no x error bars"):
+        bars(c, "x")
+    np.testing.assert_allclose(bars(c, "y")[1], [0.02, 0.03])
+    with pytest.raises(AssertionError, match="no legend"):
+        legend_texts(ax2.get_legend())
+
+
+# --------------------------------------------------------------------------- light curve
+
+
+def test_lightcurve_of_the_demo_archive(demo):
+    lc = demo.lc_all
+    fig = drawn(demo_lightcurve_figure(demo))
+    bands = sorted(lc["band"].unique())
+    assert bands == ["B", "V"] and len(fig.axes) == 2  # one panel per band
+    t0 = x_offset(fig)
+    assert fig.axes[-1].get_xlabel() == f"BJD_TDB − {t0:.0f} (d)"
+    assert 0 <= lc["bjd_tdb"].min() - t0 < 100
+    assert lc["quality"].ne(0).any()  # the demo has flagged points (passing clouds)
+    for ax, band in zip(fig.axes, bands):
+        assert_magnitude_axis(ax)
+        assert ax.get_ylabel() == f"{band} (mag)"
+        sub = lc[lc["band"] == band]
+        good, bad = sub[sub["quality"] == 0], sub[sub["quality"] != 0]
+        series = series_by_label(ax)
+        # one series per night with good points, plus the flagged points apart
+        assert sorted(k for k in series if k != "flagged") == sorted(good["night"].unique())
+        assert ("flagged" in series) == (len(bad) > 0)
+        n_drawn = sum(xy(c)[0].size for c in series.values())
+        assert n_drawn == len(sub)
+        for c in series.values():
+            assert c.has_yerr
+        if len(bad):
+            x, y = xy(series["flagged"])
+            np.testing.assert_allclose(np.sort(x + t0), np.sort(bad["bjd_tdb"]), atol=1e-9)
+            good_x = np.concatenate([xy(c)[0] for k, c in series.items() if k != "flagged"])
+            assert not np.isin(np.round(x, 9), np.round(good_x, 9)).any()  # a flagged point is not among the good
+        assert_view_fits(ax, sub["bjd_tdb"] - t0, sub["mag"], yerr=sub["mag_err"])
+    nights = sorted(lc["night"].unique())
+    assert legend_texts(fig.legends[0]) == nights + ["flagged"]
+
+
+def test_lightcurve_legend_names_nights_and_flagged_points_of_every_panel():
+    """A night observed in V only, and flagged points in V only, still reach the legend (V is the second panel)."""
+    lc = make_lc(n_nights=3, n_flagged=2)
+    nights = sorted(lc["night"].unique())
+    lc = lc[~((lc["band"] == "B") & (lc["night"] == nights[2]))].copy()
+    lc.loc[lc["band"] == "B", "quality"] = 0
+    fig = lightcurve_figure(lc, show_flagged=True)
+    b_series, v_series = (series_by_label(ax) for ax in fig.axes)
+    assert sorted(b_series) == nights[:2] and sorted(v_series) == nights + ["flagged"]
+    assert legend_texts(fig.legends[0]) == nights + ["flagged"]
+    # the legend's entry for the V-only night is drawn in that night's colour (its error-bar proxy)
+    handle = fig.legends[0].legend_handles[2]
+    assert to_hex(handle.get_colors()[0], keep_alpha=False) == to_hex(v_series[nights[2]].lines[0].get_color())
+
+
+# --------------------------------------------------------------------------- transformation coefficients
+
+
+def invented_standard_fit():
+    """A standard field of 10 invented stars (seed 2026): V - v = 0.06 (B - V) - 21.3, B - V = 0.93 (b - v) + 0.12,
+    with star F07 read 0.25 mag too faint in v, so the fit rejects it."""
+    from varstar.transform import fit_coefficients
+
+    rng = np.random.default_rng(2026)
+    n = 10
+    bv = np.linspace(-0.1, 1.6, n)
+    V = np.linspace(10.2, 13.9, n)[rng.permutation(n)]
+    v_inst = V - 0.06 * bv + 21.3 + rng.normal(0, 0.006, n)
+    b_inst = v_inst + (bv - 0.12) / 0.93 + rng.normal(0, 0.006, n)
+    v_inst[6] += 0.25
+    ids = [f"F{k + 1:02d}" for k in range(n)]
+    return fit_coefficients(ids, V, np.full(n, 0.008), V + bv, np.full(n, 0.010), v_inst, np.full(n, 0.004),
+                            b_inst, np.full(n, 0.004))
+
+
+def check_coefficient_panels(fig, fit) -> None:
+    used = np.asarray(fit.used, bool)
+    assert len(fig.axes) == 2
+    panels = ((fit.x_v, fit.y_v, fit.xerr_v, fit.yerr_v, fit.epsilon_v, fit.zeta_v, "ε"),
+              (fit.x_bv, fit.y_bv, fit.xerr_bv, fit.yerr_bv, fit.mu_bv, fit.zeta_bv, "μ"))
+    for ax, (x, y, xe, ye, slope, zero, sym) in zip(fig.axes, panels):
+        x, y, xe, ye = (np.asarray(a, float) for a in (x, y, xe, ye))
+        series = series_by_label(ax)
+        std = series["standard stars"]
+        xs, ys = xy(std)
+        np.testing.assert_allclose(xs, x[used])
+        np.testing.assert_allclose(ys, y[used])
+        np.testing.assert_allclose(bars(std, "x")[1], xe[used])  # both variables carry errors
+        np.testing.assert_allclose(bars(std, "y")[1], ye[used])
+        assert to_hex(std.lines[0].get_color()) in OKABE_ITO
+        # the fitted line: the slope the fit reports, running through the used stars
+        (line,) = [ln for ln in ax.lines if ln.get_label().startswith(f"{sym} = ")]
+        lx, ly = np.asarray(line.get_xdata(), float), np.asarray(line.get_ydata(), float)
+        np.testing.assert_allclose(np.diff(ly) / np.diff(lx), slope, rtol=1e-9)
+        assert lx.min() <= x[used].min() and x[used].max() <= lx.max()
+        off = y[used] - np.interp(x[used], lx, ly)
+        assert np.all(np.abs(off) < 5 * np.hypot(ye[used], slope * xe[used]) + 0.05)
+        assert line.get_label().startswith(f"{sym} = {slope:+.4f} ± " if sym == "ε" else f"{sym} = {slope:.4f} ± ")
+        # every star named beside its point
+        fin = np.isfinite(x) & np.isfinite(y)
+        assert sorted(t.get_text() for t in ax.texts) == sorted(np.asarray(fit.star_ids)[fin])
+        assert_view_fits(ax, np.concatenate([x[fin], lx]), np.concatenate([y[fin], ly]), slack=1.5)
+        want = ["standard stars", line.get_label()] + (["rejected"] if (~used & fin).any() else [])
+        assert sorted(legend_texts(ax.get_legend())) == sorted(want)
+    x1, y1 = fig.axes[0].get_xlabel(), fig.axes[0].get_ylabel()
+    x2, y2 = fig.axes[1].get_xlabel(), fig.axes[1].get_ylabel()
+    assert "B − V" in x1 and "V − v" in y1 and "b − v" in x2 and "B − V" in y2
+    assert all(lab.endswith("(mag)") for lab in (x1, y1, x2, y2))
+    assert fig.get_suptitle() == f"Transformation coefficients from {fit.n_stars} standard stars"
+
+
+def test_coefficient_figure_of_the_demo_standard_field(demo):
+    fig = drawn(coefficient_figure(demo.fit))
+    check_coefficient_panels(fig, demo.fit)
+
+
+def test_coefficient_figure_shows_rejected_star_apart():
+    fit = invented_standard_fit()
+    assert [sid for sid, _ in fit.rejected] == ["F07"] and not fit.used[6]
+    # the slopes come back from the invented truth (numbers this test made)
+    assert abs(fit.epsilon_v - 0.06) < 0.01 and abs(fit.mu_bv - 0.93) < 0.03
+    fig = drawn(coefficient_figure(fit))
+    check_coefficient_panels(fig, fit)
+    for ax, x, y in ((fig.axes[0], fit.x_v, fit.y_v), (fig.axes[1], fit.x_bv, fit.y_bv)):
+        series = series_by_label(ax)
+        rej, std = series["rejected"], series["standard stars"]
+        np.testing.assert_allclose(xy(rej)[0], [x[6]])
+        np.testing.assert_allclose(xy(rej)[1], [y[6]])
+        assert xy(std)[0].size == 9
+        assert rej.lines[0].get_marker() != std.lines[0].get_marker()
+        assert to_hex(rej.lines[0].get_color()) != to_hex(std.lines[0].get_color())
+        assert to_hex(rej.lines[0].get_color()) in OKABE_ITO
+
+
+# --------------------------------------------------------------------------- colour curve
+
+
+def ballesteros_kk(bv):
+    """Ballesteros (2012) T = 4600 K (1/(0.92 (B-V) + 1.7) + 1/(0.92 (B-V) + 0.62)), in kK (from memory)."""
+    bv = np.asarray(bv, float)
+    return 4.6 * (1.0 / (0.92 * bv + 1.7) + 1.0 / (0.92 * bv + 0.62))
+
+
+def test_colour_figure_of_the_demo_archive(demo):
+    lc = demo.lc
+    sel = np.isfinite(lc["bv"].to_numpy())
+    d = lc[sel]
+    assert len(d) > 100
+    fig = drawn(demo_colour_figure(demo))
+    assert len(fig.axes) == 2  # against time, and against phase
+    found = re.search(r"BJD_TDB − (\d+) \(d\)", fig.axes[0].get_xlabel())
+    assert found, fig.axes[0].get_xlabel()  # the time system and unit on the time axis
+    t0 = float(found.group(1))
+    assert fig.axes[0].get_xlabel() == f"BJD_TDB − {t0:.0f} (d)" and 0 <= d["bjd_tdb"].min() - t0 < 100
+    assert fig.axes[1].get_xlabel() == f"phase (period {demo.period_eph:.6f} d)"
+    nights = sorted(d["night"].unique())
+    xs_of = (d["bjd_tdb"].to_numpy() - t0, np.asarray(demo.phase)[sel])
+    for ax, x_all in zip(fig.axes, xs_of):
+        assert ax.get_ylabel() == "B − V (mag)"
+        series = series_by_label(ax)
+        assert sorted(series) == nights
+        style = set()
+        for night, c in series.items():
+            m = (d["night"] == night).to_numpy()
+            x, y = xy(c)
+            np.testing.assert_allclose(x, x_all[m], atol=1e-9)
+            np.testing.assert_allclose(y, d["bv"].to_numpy()[m])
+            np.testing.assert_allclose(bars(c)[1], d["bv_err"].to_numpy()[m])
+            colour = to_hex(c.lines[0].get_color())
+            assert colour in OKABE_ITO
+            style.add((colour, c.lines[0].get_marker()))
+        assert len(style) == len(nights)
+        assert_view_fits(ax, x_all, d["bv"], yerr=d["bv_err"])
+        # the temperature scale on the right reads the Ballesteros temperature of the B - V at the same height
+        (sec,) = ax.child_axes
+        assert "T_eff" in sec.get_ylabel() and "Ballesteros 2012" in sec.get_ylabel() and "(kK)" in sec.get_ylabel()
+        for bv in np.quantile(d["bv"], [0.1, 0.5, 0.9]):
+            y_parent = ax.transData.transform((0.0, bv))[1]
+            y_sec = sec.transData.transform((0.0, float(ballesteros_kk(bv))))[1]
+            assert abs(y_parent - y_sec) < 0.5, (bv, y_parent, y_sec)  # pixels
+    assert np.all((xs_of[1] >= 0) & (xs_of[1] < 1))
+    assert legend_texts(fig.legends[0]) == nights
+
+
+def test_colour_figure_without_phase_skips_points_without_colour():
+    lc = make_lc(n_nights=2, bands=("V",), n_flagged=0)
+    rng = np.random.default_rng(8)
+    lc["bv"] = 0.35 + 0.1 * rng.standard_normal(len(lc))
+    lc["bv_err"] = 0.01
+    lc.loc[lc.index[:5], "bv"] = np.nan  # untransformed points: no colour
+    fig = drawn(colour_figure(lc))
+    assert len(fig.axes) == 1
+    ax = fig.axes[0]
+    ys = np.concatenate([xy(c)[1] for c in errorbar_series(ax)])
+    np.testing.assert_allclose(np.sort(ys), np.sort(lc["bv"].dropna()))
+    assert len(ax.child_axes) == 1
+
+
+# --------------------------------------------------------------------------- colour-magnitude diagram
+
+
+def check_cmd(fig, field, track) -> None:
+    ax, cax = fig.axes  # the diagram and its colour bar
+    assert_magnitude_axis(ax)
+    assert ax.get_xlabel() == "B − V (mag)" and ax.get_ylabel() == "V (mag)"
+    series = series_by_label(ax)
+    kinds = {
+        "comparison stars": (field["role"] == "comparison") & (field["status"] == "kept"),
+        "comparison stars, rejected": (field["role"] == "comparison") & (field["status"] != "kept"),
+        "check stars": field["role"] == "check",
+    }
+    markers, colours = set(), set()
+    for label, m in kinds.items():
+        sub = field[m]
+        assert (label in series) == bool(len(sub)), label
+        if not len(sub):
+            continue
+        c = series[label]
+        np.testing.assert_allclose(xy(c)[0], sub["bv"])
+        np.testing.assert_allclose(xy(c)[1], sub["V"])
+        np.testing.assert_allclose(bars(c, "x")[1], sub["bv_err"])
+        np.testing.assert_allclose(bars(c, "y")[1], sub["V_err"])
+        markers.add(c.lines[0].get_marker())
+        colours.add(to_hex(c.lines[0].get_color()))
+    assert len(markers) == len(colours) == sum(bool(m.any()) for m in kinds.values())
+    assert colours <= OKABE_ITO
+    assert sorted(t.get_text() for t in ax.texts) == sorted(field["star"])
+    # the target's path over the night: points coloured by hours since the first one, with their error bars
+    (sc,) = [c for c in ax.collections if isinstance(c, PathCollection)]  # the scatter; bars are LineCollections
+    t = track["bjd_tdb"].to_numpy()
+    np.testing.assert_allclose(sc.get_offsets(), np.column_stack([track["bv"], track["mag"]]))
+    np.testing.assert_allclose(sc.get_array(), (t - t.min()) * 24.0)
+    assert sc.get_cmap().name == "cividis"  # a colour map made for colour-blind readers (Nuñez et al. 2018, from memory)
+    (path_bars,) = [c for c in errorbar_series(ax) if c.lines[0] is None]
+    np.testing.assert_allclose(bars(path_bars, "y")[0], track["mag"])
+    np.testing.assert_allclose(bars(path_bars, "y")[1], track["mag_err"])
+    np.testing.assert_allclose(bars(path_bars, "x")[1], track["bv_err"])
+    assert "hours" in cax.get_ylabel() and "BJD_TDB" in cax.get_ylabel()
+    assert sorted(legend_texts(ax.get_legend())) == sorted([k for k, m in kinds.items() if m.any()] + ["target over the night"])
+    assert_view_fits(ax, np.concatenate([field["bv"], track["bv"]]), np.concatenate([field["V"], track["mag"]]),
+                     xerr=np.concatenate([field["bv_err"], track["bv_err"]]),
+                     yerr=np.concatenate([field["V_err"], track["mag_err"]]))
+
+
+def test_colour_magnitude_figure_of_the_demo_night(demo):
+    field, track = demo.field, demo.track
+    assert set(field["role"]) == {"comparison", "check"} and len(track) > 50
+    fig = drawn(demo_cmd_figure(demo))
+    check_cmd(fig, field, track)
+    assert fig.axes[0].get_title() == f"{demo.name}, night {demo.last}"
+
+
+def test_colour_magnitude_figure_shows_a_rejected_comparison_apart(demo):
+    field = demo.field.copy()
+    field.loc[field["star"] == "C3", "status"] = "rejected"
+    fig = drawn(colour_magnitude_figure(field, demo.track))
+    check_cmd(fig, field, demo.track)
+    series = series_by_label(fig.axes[0])
+    c3 = field[field["star"] == "C3"]
+    np.testing.assert_allclose(xy(series["comparison stars, rejected"])[1], c3["V"])
+    assert not np.isin(xy(series["comparison stars"])[1], c3["V"]).any()
+
+
+# --------------------------------------------------------------------------- periodogram
+
+
+def test_periodogram_figure_of_the_demo_period(demo):
+    res, peaks = demo.res, demo.payload["aliases"][:4]
+    fig = drawn(demo_periodogram_figure(demo))
+    assert len(fig.axes) == 2  # periodogram, and the PDM statistic on the same grid
+    ax, axt = fig.axes
+    freq, power = np.asarray(res.freq), np.asarray(res.power)
+    curve = ax.lines[0]
+    np.testing.assert_allclose(curve.get_xdata(), freq)
+    np.testing.assert_allclose(curve.get_ydata(), power)
+    assert to_hex(curve.get_color()) in OKABE_ITO
+    lo, hi = ax.get_ylim()
+    assert lo == 0 and power.max() <= hi < 1.3 * power.max()
+    xl = ax.get_xlim()
+    assert xl[0] <= freq.min() and freq.max() <= xl[1] and xl[1] - xl[0] < 1.3 * np.ptp(freq)
+    assert ax.get_ylabel() == "normalised power" and axt.get_xlabel() == "frequency (cycles per day)"
+    # false-alarm levels: one horizontal line each, at the power it needs
+    for fap, level in res.fap_levels.items():
+        (line,) = labelled_lines(ax, f"false-alarm probability {fap:g}")
+        assert list(line.get_ydata()) == [level, level]
+    assert len({ln.get_linestyle() for ln in ax.lines if ln.get_label().startswith("false-alarm")}) == len(res.fap_levels)
+    # the best peak marked as such, at the highest power of the grid, the others apart
+    assert peaks[0]["relation"] == "best"
+    (best,) = labelled_lines(ax, "best peak")
+    assert best.get_xdata()[0] == peaks[0]["frequency"] and best.get_ydata()[0] == peaks[0]["power"]
+    assert best.get_ydata()[0] == pytest.approx(power.max())
+    assert abs(best.get_xdata()[0] - freq[np.argmax(power)]) < 0.01  # refined, within a grid step or so
+    others = labelled_lines(ax, "other strong peaks")
+    assert sorted(float(ln.get_xdata()[0]) for ln in others) == sorted(p["frequency"] for p in peaks[1:])
+    assert best.get_marker() != others[0].get_marker()
+    assert to_hex(best.get_color()) in OKABE_ITO and to_hex(others[0].get_color()) in OKABE_ITO
+    notes = [t.get_text() for t in ax.texts]
+    assert len(notes) == len(peaks) and notes[0].startswith("best")
+    for p, note in zip(peaks, notes):
+        assert f"P = {1 / p['frequency']:.5f} d" in note
+    assert legend_texts(ax.get_legend()) == [f"false-alarm probability {f:g}" for f in sorted(res.fap_levels)] + [
+        "best peak", "other strong peaks"]
+    # the PDM panel: theta on the same grid, the best frequency marked
+    np.testing.assert_allclose(axt.lines[0].get_xdata(), freq)
+    np.testing.assert_allclose(axt.lines[0].get_ydata(), res.theta)
+    assert "PDM" in axt.get_ylabel()
+    assert [ln.get_xdata()[0] for ln in axt.lines[1:]] == [res.aliases.best_frequency]
+    assert ax.get_xlim() == axt.get_xlim()
+
+
+def test_periodogram_figure_alone():
+    freq = np.linspace(0.1, 6.0, 600)
+    power = 0.9 * np.exp(-0.5 * ((freq - 2.5) / 0.01) ** 2) + 0.02
+    fig = drawn(periodogram_figure(freq, power, best_frequency=freq[np.argmax(power)]))
+    assert len(fig.axes) == 1
+    ax = fig.axes[0]
+    assert len(ax.lines) == 1 and ax.get_xlabel() == "frequency (cycles per day)"
+    assert ax.get_ylabel() == "power (generalised Lomb–Scargle)" and ax.get_ylim()[0] == 0
+    assert legend_texts(ax.get_legend()) == []
+
+
+# --------------------------------------------------------------------------- phased light curve
+
+
+def test_phased_figure_of_the_demo_period(demo):
+    res, lc, resid = demo.res, demo.lcp, demo.resid
+    fig = drawn(demo_phased_figure(demo))
+    assert len(fig.axes) == 2
+    ax, axr = fig.axes
+    assert_magnitude_axis(ax)
+    assert_magnitude_axis(axr)  # positive residual = fainter than the fit, drawn down like the data
+    assert ax.get_ylabel() == "magnitude" and axr.get_ylabel() == "data − fit (mag)"
+    xlabel = axr.get_xlabel()
+    assert f"P = {res.period:.6f} d" in xlabel and f"BJD_TDB {res.epoch:.5f}" in xlabel and "two cycles" in xlabel
+    bands = sorted(lc["band"].unique())
+    assert bands == ["B", "V"]
+    phase = np.mod((lc["bjd_tdb"].to_numpy() - res.epoch) / res.period, 1.0)
+    main, rest = errorbar_series(ax), errorbar_series(axr)
+    assert len(main) == len(rest) == 2 * len(bands)  # each band twice: two cycles
+    styles = set()
+    for k, band in enumerate(bands):
+        m = (lc["band"] == band).to_numpy()
+        for j, shift in enumerate((0.0, 1.0)):
+            c, r = main[2 * k + j], rest[2 * k + j]
+            np.testing.assert_allclose(xy(c)[0], phase[m] + shift)
+            np.testing.assert_allclose(xy(c)[1], lc["mag"].to_numpy()[m])
+            np.testing.assert_allclose(bars(c)[1], lc["mag_err"].to_numpy()[m])
+            np.testing.assert_allclose(xy(r)[0], phase[m] + shift)
+            np.testing.assert_allclose(xy(r)[1], resid[m])
+            np.testing.assert_allclose(bars(r)[1], lc["mag_err"].to_numpy()[m])
+            assert to_hex(c.lines[0].get_color()) == to_hex(r.lines[0].get_color())
+        styles.add((to_hex(main[2 * k].lines[0].get_color()), main[2 * k].lines[0].get_marker()))
+        # the model drawn over both cycles, and the data minus that curve are the residuals drawn below
+        model_lines = [ln for ln in ax.lines if to_hex(ln.get_color()) == "#000000"][2 * k: 2 * k + 2]
+        px, py = (np.asarray(a, float) for a in (model_lines[0].get_xdata(), model_lines[0].get_ydata()))
+        np.testing.assert_allclose(np.asarray(model_lines[1].get_xdata()), px + 1.0)
+        np.testing.assert_allclose(np.asarray(model_lines[1].get_ydata()), py)
+        drawn_resid = lc["mag"].to_numpy()[m] - np.interp(phase[m], px, py, period=1.0)
+        assert np.median(np.abs(drawn_resid - resid[m])) < 0.003, band  # mag; the model grid's interpolation
+        # a curve drawn shifted by a tenth of a cycle would not match
+        shifted = lc["mag"].to_numpy()[m] - np.interp(phase[m] + 0.1, px, py, period=1.0)
+        assert np.median(np.abs(shifted - resid[m])) > 0.03
+    assert len(styles) == len(bands) and {s[0] for s in styles} <= OKABE_ITO
+    assert sorted(legend_texts(ax.get_legend())) == sorted(bands + ["fitted model"])
+    assert_view_fits(ax, np.concatenate([phase, phase + 1.0]), np.tile(lc["mag"].to_numpy(), 2),
+                     yerr=np.tile(lc["mag_err"].to_numpy(), 2))
+    zero = [ln for ln in axr.lines if ln.get_transform() == axr.get_yaxis_transform()]  # lines across the panel
+    assert [list(ln.get_ydata()) for ln in zero] == [[0.0, 0.0]]  # the zero line of the residuals
+
+
+def test_phased_figure_names_the_model_when_only_a_later_band_has_one():
+    lc = make_lc(n_nights=2, n_flagged=0)
+    ph = np.linspace(0, 1, 100, endpoint=False)
+    model = {"V": (ph, 13.05 + 0.3 * np.sin(2 * np.pi * ph))}  # B (the first band) has no model
+    fig = phased_figure(lc, period_d=0.46173, epoch_bjd=2461295.65, model=model, residuals=np.zeros(len(lc)))
+    assert sorted(legend_texts(fig.axes[0].get_legend())) == ["B", "V", "fitted model"]
+
+
+# --------------------------------------------------------------------------- O - C diagram
+
+
+def assert_oc_view(ax, cycle, oc_min, err_min) -> None:
+    """The view holds the timings with their bars, the zero line and the ephemeris curves, and little else."""
+    curves = [ln for ln in ax.lines if ln.get_label().endswith(" ephemeris")]
+    xs = np.concatenate([cycle] + [np.asarray(ln.get_xdata(), float) for ln in curves])
+    ys = np.concatenate([oc_min, [0.0]] + [np.asarray(ln.get_ydata(), float) for ln in curves])
+    assert_view_fits(ax, xs, ys, yerr=np.concatenate([err_min, np.zeros(ys.size - cycle.size)]))
+
+
+def test_oc_figure_of_the_demo_timings(demo):
+    timed = demo.timed
+    cycle, oc, err, types = (np.asarray(a) for a in oc_inputs(timed))
+    assert len(cycle) >= 4 and set(types) == {"maximum"}
+    fig = drawn(demo_oc_figure(demo))
+    assert len(fig.axes) == 1
+    ax = fig.axes[0]
+    assert ax.get_xlabel() == "cycle number E" and ax.get_ylabel() == "O − C (minutes)"
+    assert "BJD_TDB" in ax.get_title(loc="left")
+    (c,) = errorbar_series(ax)
+    assert c.get_label() == f"maximum ({len(cycle)})"
+    np.testing.assert_allclose(xy(c)[0], cycle.astype(float))
+    np.testing.assert_allclose(xy(c)[1], oc.astype(float) * 1440.0)
+    np.testing.assert_allclose(bars(c)[1], err.astype(float) * 1440.0)
+    # the linear ephemeris fitted to these timings runs through them
+    (lin,) = labelled_lines(ax, "linear ephemeris")
+    at = np.interp(cycle.astype(float), np.asarray(lin.get_xdata()), np.asarray(lin.get_ydata()))
+    assert abs(np.median(oc.astype(float) * 1440.0 - at)) < 3 * np.median(err.astype(float) * 1440.0)
+    assert_oc_view(ax, cycle.astype(float), oc.astype(float) * 1440.0, err.astype(float) * 1440.0)
+    assert "linear ephemeris" in legend_texts(ax.get_legend())
+
+
+def test_oc_figure_tells_timing_types_apart_and_draws_both_ephemerides():
+    """Invented eclipse timings (seed 31): primaries at whole cycles, secondaries at half cycles, against a
+    reference ephemeris whose epoch is 0.00045 d early and period 5e-6 d short."""
+    from varstar.timings import fit_ephemeris
+
+    rng = np.random.default_rng(31)
+    t0_ref, p_ref = 2461300.1230, 1.2345678
+    t0_true, p_true = t0_ref + 0.00045, p_ref + 5e-6
+    e_prim = np.sort(rng.choice(np.arange(0, 401), 24, replace=False)).astype(float)
+    e_sec = np.sort(rng.choice(np.arange(0, 400), 12, replace=False)) + 0.5
+    cycle = np.concatenate([e_prim, e_sec])
+    types = ["primary"] * e_prim.size + ["secondary"] * e_sec.size
+    err = np.full(cycle.size, 0.0002)
+    times = t0_true + p_true * cycle + rng.normal(0, 0.0002, cycle.size)
+    oc = times - (t0_ref + p_ref * cycle)
+    fit = fit_ephemeris(cycle, times, err, kind="minimum").to_dict()
+    fig = drawn(oc_figure(cycle, oc, err, types, fit=dict(fit, reference={"epoch": t0_ref, "period": p_ref}),
+                          reference=f"T0 = {t0_ref:.5f}, P = {p_ref:.7f} d (BJD_TDB)"))
+    ax = fig.axes[0]
+    series = series_by_label(ax)
+    assert sorted(series) == ["primary (24)", "secondary (12)"]
+    prim, sec = series["primary (24)"], series["secondary (12)"]
+    for c, m in ((prim, slice(0, 24)), (sec, slice(24, None))):
+        np.testing.assert_allclose(xy(c)[0], cycle[m])
+        np.testing.assert_allclose(xy(c)[1], oc[m] * 1440.0)
+        np.testing.assert_allclose(bars(c)[1], err[m] * 1440.0)
+        assert to_hex(c.lines[0].get_color()) in OKABE_ITO
+    assert prim.lines[0].get_marker() != sec.lines[0].get_marker()
+    assert to_hex(prim.lines[0].get_color()) != to_hex(sec.lines[0].get_color())
+    assert to_hex(sec.lines[0].get_markerfacecolor()) == "#ffffff"  # secondaries hollow
+    assert to_hex(prim.lines[0].get_markerfacecolor()) == to_hex(prim.lines[0].get_color())
+    # the fitted linear ephemeris, relative to the reference, has the invented truth's offset and slope
+    (lin,) = labelled_lines(ax, "linear ephemeris")
+    lx, ly = np.asarray(lin.get_xdata(), float), np.asarray(lin.get_ydata(), float)
+    slope = np.polyfit(lx, ly, 1)
+    assert slope[0] == pytest.approx(5e-6 * 1440.0, abs=0.002)  # minutes per cycle
+    assert slope[1] == pytest.approx(0.00045 * 1440.0, abs=0.3)  # minutes at E = 0
+    assert lx.min() == cycle.min() and lx.max() == cycle.max()
+    assert len(labelled_lines(ax, "quadratic ephemeris")) == 1
+    assert sorted(legend_texts(ax.get_legend())) == ["linear ephemeris", "primary (24)", "quadratic ephemeris",
+                                                     "secondary (12)"]
+    assert_oc_view(ax, cycle, oc * 1440.0, err * 1440.0)
+
+
+# --------------------------------------------------------------------------- pixels
+
+
+def png_rgb(fig: Figure, path) -> np.ndarray:
+    save(fig, path)
+    return imread(path)[..., :3]
+
+
+def chromatic(rgb: np.ndarray) -> np.ndarray:
+    """Pixels with a colour of their own: axes, text, grid and the white ground are all grey (r = g = b)."""
+    return (rgb.max(axis=-1) - rgb.min(axis=-1)) > 0.25
+
+
+DEMO_FIGURES = {
+    "lightcurve": (demo_lightcurve_figure, PALETTE[0]),  # the first night
+    "colour": (demo_colour_figure, PALETTE[0]),
+    "colour_magnitude": (demo_cmd_figure, PALETTE[0]),  # comparison stars
+    "periodogram": (demo_periodogram_figure, PALETTE[0]),  # the power curve
+    "phased": (demo_phased_figure, PALETTE[0]),  # the first band
+    "oc": (demo_oc_figure, PALETTE[2]),  # times of maximum
+}
+
+
+@pytest.mark.parametrize("name", sorted(DEMO_FIGURES) + ["coefficients"])
+def test_saved_png_shows_the_drawn_data(demo, name, tmp_path):
+    if name == "coefficients":
+        fig, colour = coefficient_figure(demo.fit), PALETTE[0]
+    else:
+        make, colour = DEMO_FIGURES[name]
+        fig = make(demo)
+    rgb = png_rgb(fig, tmp_path / f"{name}.png")
+    w, h = fig.get_size_inches()
+    assert rgb.shape == (round(h * 120), round(w * 120), 3)
+    assert rgb.std() > 0.05
+    n_colour = int(chromatic(rgb).sum())
+    assert n_colour > 300, n_colour
+    # the data's own colour is on the image (the tolerance allows for markers drawn with alpha 0.8-0.9 on white)
+    near = np.linalg.norm(rgb - np.asarray(to_rgb(colour)), axis=-1) < 0.2
+    assert near.sum() > 50, near.sum()
+
+
+def test_png_check_tells_an_empty_figure_from_a_drawn_one(tmp_path):
+    empty = make_lc(n_nights=1).iloc[:0]
+    rgb = png_rgb(lightcurve_figure(empty), tmp_path / "empty.png")
+    assert rgb.std() > 0.01  # the frame, ticks and text are there...
+    assert chromatic(rgb).sum() == 0  # ...but nothing coloured: no data
+    blank = png_rgb(Figure(), tmp_path / "blank.png")
+    assert blank.std() == 0
+    drawn_rgb = png_rgb(lightcurve_figure(make_lc(n_nights=1)), tmp_path / "one-night.png")
+    assert chromatic(drawn_rgb).sum() > 300

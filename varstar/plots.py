@@ -86,8 +86,13 @@ def lightcurve_figure(lc: pd.DataFrame, *, title: str = "", show_flagged: bool =
         axes[0].text(0.5, 0.5, "no observations", ha="center", va="center", transform=axes[0].transAxes)
     axes[-1].set_xlabel(f"BJD_TDB − {t0:.0f} (d)")
     if nights:
-        handles, labels = axes[0].get_legend_handles_labels()
-        fig.legend(handles, labels, loc="outside right upper", title="night", fontsize="small")
+        # every panel's entries: a night seen in one band only, or flagged points in one band only, count too
+        seen = {}
+        for ax in axes:
+            for h, lab in zip(*ax.get_legend_handles_labels()):
+                seen.setdefault(lab, h)
+        labels = [str(n) for n in nights if str(n) in seen] + (["flagged"] if "flagged" in seen else [])
+        fig.legend([seen[lab] for lab in labels], labels, loc="outside right upper", title="night", fontsize="small")
     if title:
         fig.suptitle(title)
     return literal_text(fig)
@@ -360,7 +365,8 @@ def periodogram_figure(
     for k, (fap, level) in enumerate(sorted((fap_levels or {}).items())):
         ax.axhline(level, ls=styles[k % len(styles)], color="0.35", lw=0.9, label=f"false-alarm probability {fap:g}")
     for pk in peaks or []:
-        best = abs(pk["frequency"] - best_frequency) < 1e-12
+        # the best peak may carry its refined frequency, off the grid's best_frequency: its relation names it
+        best = pk.get("relation") == "best" or abs(pk["frequency"] - best_frequency) < 1e-12
         ax.plot(pk["frequency"], pk["power"], "v" if best else "^", color=PALETTE[5] if best else PALETTE[1], ms=8,
                 label="best peak" if best else "other strong peaks")
         ax.annotate(("best" if best else pk.get("relation", "")) + f"\nP = {1 / pk['frequency']:.5f} d",
@@ -407,6 +413,7 @@ def phased_figure(
     fig = _figure(2, width=9.0, height_per=3.0)
     ax, axr = fig.subplots(2, 1, sharex=True, gridspec_kw={"height_ratios": [3, 1]})
     phase = np.mod((lc["bjd_tdb"].to_numpy() - epoch_bjd) / period_d, 1.0)
+    model_label = "fitted model"  # a harmonic series or an eclipse template: named once, on the first band that has one
     for k, band in enumerate(sorted(pd.unique(lc["band"]))):
         m = (lc["band"] == band).to_numpy()
         colour, marker = PALETTE[k % len(PALETTE)], MARKERS[k % len(MARKERS)]
@@ -420,7 +427,8 @@ def phased_figure(
             order = np.argsort(ph)
             for shift in (0.0, 1.0):
                 ax.plot(ph[order] + shift, mag[order], "-", color="black", lw=1.1,
-                        label="harmonic fit" if (shift == 0 and k == 0) else None)
+                        label=model_label if shift == 0 else None)
+            model_label = None
     ax.invert_yaxis()
     ax.set_ylabel("magnitude")
     ax.grid(alpha=0.3)
