@@ -14,7 +14,7 @@ from __future__ import annotations
 import json
 from collections.abc import Mapping, Sequence
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Protocol
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -30,23 +30,6 @@ if TYPE_CHECKING:  # pragma: no cover
     import h5py
 
     from ..transform import Coefficients
-
-
-class ReducedNight(Protocol):
-    """What :meth:`ArchiveWriter.append_night` stores (a :class:`varstar.workflows.reduce.NightReduction`).
-
-    ``exposures``, ``raw``, ``points``, ``comparisons`` and ``ensembles`` are
-    DataFrames whose columns carry the stored tables' column names, with stars
-    and bands by name and exposures numbered from 0 within the night.
-    """
-
-    label: str
-    exposures: pd.DataFrame
-    raw: pd.DataFrame
-    points: pd.DataFrame
-    comparisons: pd.DataFrame
-    ensembles: pd.DataFrame
-    report: dict[str, Any]
 
 
 def add_transformation(f: h5py.File, coeffs: Coefficients, max_gap_d: float, now: str) -> int:
@@ -111,10 +94,15 @@ class ArchiveWriter:
         return tables.n_rows(self._f, "ephemerides")
 
     # -- nights -----------------------------------------------------------------------------
-    def append_night(self, red: ReducedNight, sha_of: Mapping[str, str]) -> int:
+    def append_night(self, red: Any, sha_of: Mapping[str, str]) -> int:
         """Store one reduced night with its raw measurements, sources and checksums; return its number.
 
-        ``sha_of`` maps each source name in ``red.raw["source"]`` to its file's SHA-256.
+        ``red`` is a :class:`varstar.workflows.reduce.NightReduction`: its
+        ``exposures``, ``raw``, ``points``, ``comparisons`` and ``ensembles``
+        DataFrames carry the stored tables' column names (stars and bands by
+        name, exposures numbered from 0 within the night), with its ``label``
+        and ``report``.  ``sha_of`` maps each source name in ``red.raw["source"]``
+        to its file's SHA-256.
         """
         f = self._f
         stars = pd.Index(tables.read(f, "stars", ["id"])["id"])

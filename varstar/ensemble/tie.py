@@ -20,7 +20,7 @@ from scipy import special
 
 from varstar.ensemble.linear import LinearFit, zero_point_variance
 from varstar.ensemble.settings import EnsembleSettings
-from varstar.ensemble.vetting import MAD_TO_SIGMA
+from varstar.ensemble.vetting import MAD_TO_SIGMA, bisect_decreasing
 from varstar.errors import ReductionError
 
 __all__ = ["Calibration", "CatalogTie", "calibrate", "paule_mandel", "select_tie"]
@@ -47,18 +47,7 @@ def paule_mandel(d: np.ndarray, v: np.ndarray) -> float:
 
     if q(0.0) <= 0:
         return 0.0
-    lo, hi = 0.0, float(np.var(d)) * n + float(np.max(v))
-    while q(hi) > 0:
-        hi *= 4.0
-    for _ in range(200):
-        mid = 0.5 * (lo + hi)
-        if q(mid) > 0:
-            lo = mid
-        else:
-            hi = mid
-        if hi - lo <= 1e-15 + 1e-12 * hi:
-            break
-    return 0.5 * (lo + hi)
+    return bisect_decreasing(q, float(np.var(d)) * n + float(np.max(v)), grow=4.0, steps=200, atol=1e-15, rtol=1e-12)
 
 
 @dataclass(frozen=True)

@@ -11,6 +11,8 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 from dataclasses import dataclass
 
 import numpy as np
@@ -205,16 +207,29 @@ def robust_scale_extra(r: np.ndarray, err: np.ndarray) -> float:
 
     if f(0.0) <= 0:
         return 0.0
-    lo, hi = 0.0, MAD_TO_SIGMA * float(np.median(np.abs(r))) + 1e-12
+    return bisect_decreasing(f, MAD_TO_SIGMA * float(np.median(np.abs(r))) + 1e-12, grow=2.0, steps=100, atol=1e-12, rtol=1e-9)
+
+
+def bisect_decreasing(
+    f: Callable[[float], float], hi: float, *, grow: float, steps: int, atol: float, rtol: float
+) -> float:
+    """Root in ``(0, inf)`` of a function decreasing through zero, with ``f(0) > 0``, by bisection.
+
+    ``hi`` is multiplied by ``grow`` until ``f(hi) <= 0``; then at most ``steps``
+    halvings, stopping when the bracket is narrower than ``atol + rtol * hi``.
+    Bisection, not a library root finder: it cannot leave the bracket, and the
+    result stays the same number on every platform.
+    """
+    lo = 0.0
     while f(hi) > 0:
-        hi *= 2.0
-    for _ in range(100):
+        hi *= grow
+    for _ in range(steps):
         mid = 0.5 * (lo + hi)
         if f(mid) > 0:
             lo = mid
         else:
             hi = mid
-        if hi - lo <= 1e-12 + 1e-9 * hi:
+        if hi - lo <= atol + rtol * hi:
             break
     return 0.5 * (lo + hi)
 
