@@ -268,6 +268,7 @@ STAGES = (
     ("  eclipse template", "varstar/period/template.py", None, "varstar/period/analysis.py"),
     ("  nightly covariance", "varstar/period/nightly.py", None, "varstar/period/analysis.py"),
     ("  prewhitening", "varstar/period/prewhiten.py", None, "varstar/period/analysis.py"),
+    ("  joint fit of further frequencies", "varstar/period/sinusoids.py", None, "varstar/period/analysis.py"),
     ("JSON record", "varstar/results.py", None, "varstar/workflows/periods.py"),
     ("plots", "varstar/plots.py", None, "varstar/cli.py"),
     ("storing in the archive", "varstar/archive/transaction.py", ("transaction",), "varstar/archive/store.py"),

@@ -83,7 +83,7 @@ def test_alias_choice_by_schur_complement_equals_refitting_everything():
     alone (Schur complement); refitting the whole model at each trial must rank them the same
     (block least squares, common linear algebra), also with nightly covariances."""
     from varstar.period.prewhiten import _best_alias
-    from varstar.period.refine import _fit_sinusoids
+    from varstar.period.sinusoids import fit_sinusoids as _fit_sinusoids
 
     rng = np.random.default_rng(12)
     t = np.sort(np.concatenate([n + rng.uniform(0.0, 0.3, 40) for n in range(25)]))

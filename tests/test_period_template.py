@@ -28,7 +28,7 @@ import numpy as np
 import pytest
 
 from varstar.errors import InputError, ReductionError
-from varstar.period import template as tpl
+from varstar.period import template_fit as tpl
 from varstar.period.nightly import nightly_whitener
 from varstar.period.refine import fit_harmonics
 from varstar.period.template import TemplateFit, fit_template_period

@@ -317,7 +317,7 @@ def demo(demo_data, demo_archive_path, tmp_path_factory):
     from varstar.setups import read_setup, save_setup
     from varstar.standards import fit_standard_field
     from varstar.workflows.archive import open_archive
-    from varstar.workflows.periods import phased_data, phased_model
+    from varstar.period import phased_data, phased_model
     from varstar.workflows.standard import field_diagram, transform_archive
 
     folder = tmp_path_factory.mktemp("plots-demo")

@@ -236,7 +236,7 @@ def cmd_colour(args: argparse.Namespace) -> int:
 
 
 def cmd_period(args: argparse.Namespace) -> int:
-    from .workflows.periods import phased_data, phased_model
+    from .period import phased_data, phased_model
     from .workflows.archive import open_archive
     from .plots import periodogram_figure, phased_figure, save
 

@@ -75,7 +75,7 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
     )
     from .workflows.archive import create_archive, open_archive
     from .workflows.night import ingest
-    from .workflows.periods import phased_data, phased_model
+    from .period import phased_data, phased_model
     from .workflows.standard import field_diagram, transform_archive
 
     say = echo or (lambda _s: None)

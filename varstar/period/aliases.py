@@ -25,7 +25,8 @@ from typing import Any
 import numpy as np
 
 from varstar.errors import InputError
-from varstar.period.refine import _check_freq, _jf
+from varstar.results import Result, json_float
+from varstar.period._common import check_freq
 
 __all__ = ["spectral_window", "find_peaks", "relate", "AliasPeak", "AliasReport", "alias_report"]
 
@@ -55,7 +56,7 @@ def spectral_window(t: Any, freq: Any) -> np.ndarray:
     t = np.asarray(t, dtype=float)
     if t.ndim != 1 or t.size == 0 or not np.all(np.isfinite(t)):
         raise InputError("spectral window: give a non-empty 1-D array of finite times")
-    freq = _check_freq(freq)
+    freq = check_freq(freq)
     tt = t - t.mean()  # |sum| does not depend on the time origin; this keeps phases precise
     n = t.size
     out = np.empty(freq.size)
@@ -89,7 +90,7 @@ def find_peaks(
     min_separation : float, optional
         Minimum distance between returned peaks (cycles/day).
     """
-    freq = _check_freq(freq)
+    freq = check_freq(freq)
     power = np.asarray(power, dtype=float)
     if power.shape != freq.shape:
         raise InputError(f"find_peaks: {freq.size} frequencies but {power.size} powers")
@@ -174,7 +175,7 @@ def relate(
 
 
 @dataclass(frozen=True)
-class AliasPeak:
+class AliasPeak(Result):
     """One periodogram peak and its relation to the best one."""
 
     period: float
@@ -183,57 +184,45 @@ class AliasPeak:
     power_ratio: float
     relation: str
 
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-safe plain dict."""
-        return {
-            "period": _jf(self.period),
-            "frequency": _jf(self.frequency),
-            "power": _jf(self.power),
-            "power_ratio": _jf(self.power_ratio),
-            "relation": self.relation,
-        }
-
 
 @dataclass(frozen=True)
-class AliasReport:
+class AliasReport(Result):
     """The strongest peaks, their relations to the best peak, and a verdict.
 
     Attributes
     ----------
-    peaks : tuple of AliasPeak
-        Strongest first; ``peaks[0]`` is the best (relation ``"best"``).
     secure : bool
         False when another peak reaches ``secure_ratio`` of the best peak's power.
     note : str
         The verdict in plain words, with what would settle the choice.
     secure_ratio, baseline_days : float
         The settings used.
+    peaks : tuple of AliasPeak
+        Strongest first; ``peaks[0]`` is the best (relation ``"best"``).
     """
 
-    peaks: tuple[AliasPeak, ...]
     secure: bool
     note: str
     secure_ratio: float
     baseline_days: float
+    peaks: tuple[AliasPeak, ...]
 
     @property
     def best_period(self) -> float:
+        """Period of the best peak (days)."""
         return self.peaks[0].period
 
     @property
     def best_frequency(self) -> float:
+        """Frequency of the best peak (cycles/day)."""
         return self.peaks[0].frequency
 
     def to_dict(self) -> dict[str, Any]:
-        """JSON-safe plain dict."""
+        """JSON-safe plain dict: the best peak's period and frequency, then the fields."""
         return {
-            "best_period": _jf(self.best_period),
-            "best_frequency": _jf(self.best_frequency),
-            "secure": bool(self.secure),
-            "note": self.note,
-            "secure_ratio": float(self.secure_ratio),
-            "baseline_days": float(self.baseline_days),
-            "peaks": [p.to_dict() for p in self.peaks],
+            "best_period": json_float(self.best_period),
+            "best_frequency": json_float(self.best_frequency),
+            **super().to_dict(),
         }
 
 
@@ -284,7 +273,7 @@ def alias_report(
         raise InputError(f"alias report: baseline_days must be positive (got {baseline_days!r})")
     if not 0 < secure_ratio <= 1:
         raise InputError(f"alias report: secure_ratio must be in (0, 1] (got {secure_ratio})")
-    freq = _check_freq(freq)
+    freq = check_freq(freq)
     power = np.asarray(power, dtype=float)
     idx = find_peaks(freq, power, n=n, min_separation=1.5 / baseline_days)
     if idx.size == 0:
@@ -314,4 +303,7 @@ def alias_report(
     else:
         note = f"the best peak at P={peaks[0].period:.6g} d is the only peak in the grid"
         secure = True
-    return AliasReport(tuple(peaks), secure, note, float(secure_ratio), float(baseline_days))
+    return AliasReport(
+        secure=secure, note=note, secure_ratio=float(secure_ratio), baseline_days=float(baseline_days),
+        peaks=tuple(peaks),
+    )

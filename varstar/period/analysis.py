@@ -38,16 +38,16 @@ this module's own (no published threshold); the simulations in the tests measure
 it.
 """
 
+
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 
 from varstar.errors import InputError, VarstarError
-from varstar.results import json_float as _jf
+from varstar.results import json_float
 from varstar.period import (
     aliases,
     gls,
@@ -58,10 +58,13 @@ from varstar.period import (
     refine,
     significance,
 )
+from varstar.period.nightly import nightly_whitener
 from varstar.period.refine import MAX_AUTO_HARMONICS
+from varstar.period.result import PROBABILITY_FLOOR, PeriodResult, format_probability
+from varstar.period.sinusoids import fit_sinusoids, model_jacobian
 from varstar.threads import blas_threads
 
-__all__ = ["MAX_PDM_ELEMENTS", "PeriodResult", "analyse", "format_probability"]
+__all__ = ["FAP_LEVELS", "MAX_PDM_ELEMENTS", "PROBABILITY_FLOOR", "PeriodResult", "analyse", "format_probability"]
 
 #: Above this many (points x frequencies) PDM is evaluated only around the
 #: strongest periodogram peaks and PDM's own coarse minima (the whole grid at the
@@ -70,10 +73,6 @@ MAX_PDM_ELEMENTS = pdm.DEFAULT_BUDGET
 
 #: False-alarm probabilities whose power levels are reported and drawn.
 FAP_LEVELS = (0.1, 0.01, 0.001)
-
-#: Smallest probability reported as a number: below it the tail approximations and
-#: double-precision rounding say nothing more, so "< 1e-16" is printed (and stored).
-PROBABILITY_FLOOR = 1e-16
 
 #: Period ratios (shorter / longer) of double-mode pulsators named when a found pair
 #: matches within the tolerance.  Values "from memory" (common practice): the
@@ -85,203 +84,6 @@ KNOWN_RATIOS = (
     (0.71, 0.012, "the first-overtone to fundamental ratio of double-mode Cepheids (about 0.70-0.72, from memory)"),
     (0.773, 0.008, "the first-overtone to fundamental ratio of double-mode delta Scuti stars (about 0.77, from memory)"),
 )
-
-
-def format_probability(p: float | None) -> str:
-    """A probability for people: ``"< 1e-16"`` below :data:`PROBABILITY_FLOOR`, never ``0``."""
-    if p is None or not math.isfinite(p):
-        return "n/a"
-    if p < PROBABILITY_FLOOR:
-        return f"< {PROBABILITY_FLOOR:.0e}"
-    return f"{p:.2g}"
-
-
-@dataclass(frozen=True, eq=False)
-class PeriodResult:
-    """The outcome of one period analysis: one adopted period, and what led to it.
-
-    Attributes
-    ----------
-    period, period_err : float
-        THE adopted period (days) and its 1-sigma error.  With several bands the
-        per-band fitted frequencies are combined by inverse-variance weighting.
-    frequency, frequency_err : float
-        ``1/period`` (cycles/day) and its error.
-    period_method : str
-        How the adopted period was refined (harmonic fit or eclipse template) and
-        how its error was made (``errors``).
-    errors : str
-        The error treatment in words (independent points, or nightly calibration
-        errors as a shared covariance).
-    amplitude, amplitude_err : float
-        Peak-to-peak amplitude (mag) of the reference band's model of the main signal.
-    epoch, epoch_err, epoch_kind : float, float, str
-        BJD_TDB of maximum light (``epoch_kind="maximum"``) or minimum light
-        (``"minimum"``) of the reference band's model, nearest the data's weighted
-        mean time.
-    frequencies : tuple of dict
-        Every frequency in the final model, the main one first (``f1``): each with
-        ``frequency``, ``frequency_err``, ``period``, ``period_err``, ``amplitude``
-        (semi-amplitude of its first harmonic, mag), ``amplitude_err``, ``snr``
-        and ``relation`` (a harmonic or combination of others, or "").
-    multiperiodic : bool
-        True when a further independent frequency is significant.
-    modes_note : str
-        In words: single period, or the modes with their period ratio.
-    fap, fap_method : float, str
-        False-alarm probability of the highest periodogram peak (at least
-        :data:`PROBABILITY_FLOOR`) and how it was computed; ``fap_bootstrap`` is the
-        bootstrap value when asked for (else NaN).
-    fap_levels : dict
-        Periodogram power needed for the probabilities in :data:`FAP_LEVELS`.
-    n_points, baseline_days : int, float
-    bands : tuple of str
-        Bands used; ``reference_band`` is the one whose fit gives amplitude and epoch.
-    method, nterms, harmonics : str, int, int
-        Periodogram used, its harmonics, and the harmonics of the final fit.
-    grid : dict
-        ``min_period``, ``max_period``, ``oversampling``, ``n_frequencies``, ``step``.
-    aliases : AliasReport
-        The periodogram's peaks at grid values; :meth:`to_dict` adds the refined
-        period of each peak that was fitted.
-    refined_peaks : dict
-        Grid frequency of a fitted peak -> its refined frequency.
-    pdm : dict
-        The second method's best period on the grid, its theta, theta at the adopted
-        period, and where it was evaluated.
-    choice : PeriodChoice
-        The P-or-2P verdict on the main signal (other frequencies removed).
-    alias_check : tuple of dict
-        For each rival peak that made the periodogram's choice insecure: the harmonic
-        fit's chi-square excess there and whether that settles the choice.
-    candidates : tuple of dict
-        Every other period considered, labelled for what it is, with why it was
-        not adopted.
-    fits : dict of str to HarmonicFit
-        Harmonic fit of the main signal per band (other frequencies removed).
-    templates : dict of str to TemplateFit
-        Eclipse-template fits per band (eclipsing binaries only).
-    prewhitening : PrewhiteningResult or None
-        The search for further frequencies on the reference band.
-    warnings : tuple of str
-    freq, power, theta : numpy.ndarray
-        The grid, the periodogram and PDM's theta (NaN where not evaluated), for
-        plots; not part of :meth:`to_dict`.
-    """
-
-    period: float
-    period_err: float
-    frequency: float
-    frequency_err: float
-    period_method: str
-    errors: str
-    amplitude: float
-    amplitude_err: float
-    epoch: float
-    epoch_err: float
-    epoch_kind: str
-    frequencies: tuple[dict[str, Any], ...]
-    multiperiodic: bool
-    modes_note: str
-    fap: float
-    fap_method: str
-    fap_bootstrap: float
-    fap_levels: dict[float, float]
-    n_points: int
-    baseline_days: float
-    bands: tuple[str, ...]
-    reference_band: str
-    method: str
-    nterms: int
-    harmonics: int
-    grid: dict[str, Any]
-    aliases: aliases.AliasReport
-    refined_peaks: dict[float, float]
-    pdm: dict[str, Any]
-    choice: pdm.PeriodChoice
-    candidates: tuple[dict[str, Any], ...]
-    alias_check: tuple[dict[str, Any], ...]
-    fits: dict[str, refine.HarmonicFit]
-    templates: dict[str, Any]
-    prewhitening: prewhiten.PrewhiteningResult | None
-    warnings: tuple[str, ...]
-    freq: np.ndarray = field(repr=False)
-    power: np.ndarray = field(repr=False)
-    theta: np.ndarray = field(repr=False)
-    others: dict[str, Any] = field(repr=False, default_factory=dict)
-
-    def model(self, t: Any, band: str) -> np.ndarray:
-        """The adopted model of ``band`` at times ``t``: the main signal (template for
-        eclipsing binaries) plus any further frequencies."""
-        main = self.templates[band] if band in self.templates else self.fits[band]
-        extra = self.others.get(band)
-        return main.model(t) + (0.0 if extra is None else extra(t))
-
-    def main_model(self, t: Any, band: str) -> np.ndarray:
-        """The main signal alone (for a phased curve with the other frequencies removed)."""
-        main = self.templates[band] if band in self.templates else self.fits[band]
-        return main.model(t)
-
-    def other_signals(self, t: Any, band: str) -> np.ndarray:
-        """The further frequencies' part of the model (zero for a single-period star)."""
-        extra = self.others.get(band)
-        return np.zeros(np.shape(t)) if extra is None else extra(t)
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-safe plain dict: what ``varstar period --json`` prints and the archive stores."""
-        def peak(p: aliases.AliasPeak) -> dict[str, Any]:
-            refined = self.refined_peaks.get(p.frequency)
-            return {
-                "period": _jf(1.0 / refined if refined else p.period),
-                "period_refined": refined is not None,
-                "grid_period": _jf(p.period),
-                "frequency": _jf(refined or p.frequency),
-                "power": _jf(p.power),
-                "power_ratio": _jf(p.power_ratio),
-                "relation": p.relation,
-            }
-
-        return {
-            "period": _jf(self.period),
-            "period_err": _jf(self.period_err),
-            "frequency": _jf(self.frequency),
-            "frequency_err": _jf(self.frequency_err),
-            "period_method": self.period_method,
-            "errors": self.errors,
-            "amplitude": _jf(self.amplitude),
-            "amplitude_err": _jf(self.amplitude_err),
-            "epoch": _jf(self.epoch),
-            "epoch_err": _jf(self.epoch_err),
-            "epoch_kind": self.epoch_kind,
-            "time_system": "BJD_TDB",
-            "frequencies": [dict(f) for f in self.frequencies],
-            "multiperiodic": bool(self.multiperiodic),
-            "modes_note": self.modes_note,
-            "fap": _jf(max(self.fap, PROBABILITY_FLOOR)),
-            "fap_text": format_probability(self.fap),
-            "fap_method": self.fap_method,
-            "fap_bootstrap": _jf(self.fap_bootstrap),
-            "fap_levels": [{"fap": k, "power": _jf(v)} for k, v in sorted(self.fap_levels.items())],
-            "n_points": int(self.n_points),
-            "baseline_days": _jf(self.baseline_days),
-            "bands": list(self.bands),
-            "reference_band": self.reference_band,
-            "method": self.method,
-            "nterms": int(self.nterms),
-            "harmonics": int(self.harmonics),
-            "grid": dict(self.grid),
-            "aliases": [peak(p) for p in self.aliases.peaks],
-            "alias_secure": bool(self.aliases.secure or (self.alias_check and all(c["settled"] for c in self.alias_check))),
-            "alias_note": self.aliases.note,
-            "alias_check": [dict(c) for c in self.alias_check],
-            "pdm": dict(self.pdm),
-            "period_choice": self.choice.to_dict(),
-            "candidates": [dict(c) for c in self.candidates],
-            "fits": {b: f.to_dict() for b, f in self.fits.items()},
-            "templates": {b: f.to_dict() for b, f in self.templates.items()},
-            "prewhitening": None if self.prewhitening is None else self.prewhitening.to_dict(),
-            "warnings": list(self.warnings),
-        }
 
 
 def _as_series(t: Any, y: Any, dy: Any, band: Any, night: Any, cal_err: Any):
@@ -407,9 +209,9 @@ def _cv_z(t, y, dy, f_new: float, f_old: float, m: int = 5) -> float:
     """How much better (in standard errors) phase neighbours predict the points at f_new than at f_old."""
     w = 1.0 / dy**2
     tt = t - t.min()
-    e_old = pdm._loo_errors(tt, y, w, f_old, m)
-    e_new = pdm._loo_errors(tt, y, w, f_new, m)
-    return float(pdm._paired_z(w * (e_old**2 - e_new**2), f_new * tt, m))
+    e_old = pdm.loo_errors(tt, y, w, f_old, m)
+    e_new = pdm.loo_errors(tt, y, w, f_new, m)
+    return float(pdm.paired_z(w * (e_old**2 - e_new**2), f_new * tt, m))
 
 
 def _eclipse_like(fit: refine.HarmonicFit) -> bool:
@@ -458,9 +260,9 @@ def _modes_note(frequencies: list[dict[str, Any]]) -> tuple[bool, str]:
 
 def _frequency_entry(label, f, f_err, amp, amp_err, snr, relation) -> dict[str, Any]:
     return {
-        "label": label, "frequency": _jf(f), "frequency_err": _jf(f_err),
-        "period": _jf(1.0 / f), "period_err": _jf(f_err / f**2),
-        "amplitude": _jf(amp), "amplitude_err": _jf(amp_err), "snr": _jf(snr), "relation": relation,
+        "label": label, "frequency": json_float(f), "frequency_err": json_float(f_err),
+        "period": json_float(1.0 / f), "period_err": json_float(f_err / f**2),
+        "amplitude": json_float(amp), "amplitude_err": json_float(amp_err), "snr": json_float(snr), "relation": relation,
     }
 
 
@@ -468,8 +270,8 @@ def _others_in_band(t, y, dy, t_ref, f_main, k_main, others, group, group_err):
     """Joint fit of the main signal and the further frequencies in one band; returns the
     further frequencies' part as a function of time (fitted amplitudes of this band)."""
     terms = (k_main,) + (1,) * len(others)
-    whiten = refine.nightly_whitener(dy, group, group_err)
-    fit = refine._fit_sinusoids(t, y, dy, [f_main, *others], terms, t_ref, whiten=whiten)
+    whiten = nightly_whitener(dy, group, group_err)
+    fit = fit_sinusoids(t, y, dy, [f_main, *others], terms, t_ref, whiten=whiten)
     params = fit.params.copy()
     params[1 : 2 + 2 * k_main] = 0.0  # main signal (its frequency and harmonics) removed
     params[0] = 0.0
@@ -477,10 +279,110 @@ def _others_in_band(t, y, dy, t_ref, f_main, k_main, others, group, group_err):
 
     def extra(tt: Any) -> np.ndarray:
         tau = np.asarray(tt, dtype=float) - t_ref
-        mod, _ = refine._model_jac(params, tau.ravel(), len(terms), terms, want_jac=False)
+        mod, _ = model_jacobian(params, tau.ravel(), len(terms), terms, want_jac=False)
         return mod.reshape(tau.shape)
 
     return extra
+
+
+def _refuse_edge_peak(i_best: int, freq: np.ndarray, baseline: float, night: Any) -> None:
+    """Refuse a periodogram whose highest point is an end of the grid (no peak inside the range)."""
+    if i_best not in (0, freq.size - 1):
+        return
+    f_peak = float(freq[i_best])
+    span = _span_words(baseline, night)
+    if i_best == 0:
+        raise InputError(
+            f"period analysis: the periodogram rises to the longest period searched ({1 / f_peak:.4g} d) "
+            f"and has no peak inside the range; the light curve spans {span}, which shows periods only up "
+            f"to about half its span ({baseline / 2:.3g} d): observe more nights, or search a range the "
+            "data allow with --min-period/--max-period"
+        )
+    raise InputError(
+        f"period analysis: the periodogram rises to the shortest period searched ({1 / f_peak:.4g} d) and "
+        f"has no peak inside the range: give a smaller --min-period"
+    )
+
+
+def _significance(t, y, dy, band, freq, p_peak, nterms, multi, bootstrap, rng):
+    """False-alarm probability of the highest peak, its method, the power levels of FAP_LEVELS and
+    the bootstrap value (NaN without a bootstrap).
+
+    Baluev's formula is for one series; with several bands it is applied to all points with the
+    multi-band power, an approximation (the bootstrap is exact in law).
+    """
+    fap = float(significance.fap_baluev(p_peak, freq, t, dy, nterms=nterms))
+    fap_method = "Baluev (2008) approximation" + (" applied to the multi-band power" if multi else "")
+    levels = significance.power_at_fap(np.array(FAP_LEVELS), freq, t, dy, nterms=nterms)
+    fap_levels = {lev: float(p) for lev, p in zip(FAP_LEVELS, np.atleast_1d(levels))}
+    fap_boot = float("nan")
+    if bootstrap:
+        gen = np.random.default_rng(rng)
+        if multi:
+            fap_boot = _multiband_bootstrap(t, y, dy, band, freq, nterms, int(bootstrap), gen, p_peak)
+        else:
+            fap_boot = float(significance.fap_bootstrap(t, y, dy, freq, nterms=nterms, n_bootstrap=int(bootstrap),
+                                                        rng=gen, power=p_peak)[0])
+    return fap, fap_method, fap_levels, fap_boot
+
+
+def _pdm_versus_periodogram(t, y, dy, f_peak, f_pdm, theta_pdm, baseline, z_crit, candidates, warnings) -> float:
+    """The candidate frequency: PDM's when phase neighbours predict the points clearly better there.
+
+    Appends PDM's candidate (when it is not the periodogram's peak) to ``candidates`` and a
+    warning when it is adopted (see the module docstring).
+    """
+    rel = aliases.relate(f_peak, f_pdm, baseline_days=baseline)
+    if rel == "same peak":
+        return f_peak
+    z = _cv_z(t, y, dy, f_pdm, f_peak)
+    adopt = z > z_crit
+    candidates.append({
+        "period": 1.0 / f_pdm, "source": "PDM minimum (grid value)", "theta": theta_pdm,
+        "relation_to_periodogram_peak": rel, "z": z,
+        "note": (f"phase neighbours predict the points better at PDM's period (z = {z:.1f} > {z_crit:g}); "
+                 "this candidate was refined and adopted"
+                 if adopt else f"rejected: not better supported by the phased curve than the periodogram "
+                 f"peak (z = {z:.1f} <= {z_crit:g})"),
+    })
+    if not adopt:
+        return f_peak
+    warnings.append(
+        f"PDM's period {1 / f_pdm:.6g} d ({rel} of the periodogram's {1 / f_peak:.6g} d) fits the phased "
+        f"curve better (z = {z:.1f}) and is adopted; a sinusoid describes this light curve poorly"
+    )
+    return f_pdm
+
+
+def _rival_2p(choice: pdm.PeriodChoice, z_crit: float) -> dict[str, Any]:
+    """The candidate entry of the rejected one of P and 2P."""
+    return {
+        "period": (1.0 if choice.factor == 2 else 2.0) / choice.frequency,
+        "source": "the rejected one of P and 2P",
+        "z": choice.z,
+        "note": (f"rejected: the two halves of the {2.0 / choice.frequency:.6g} d cycle differ (z = {choice.z:.1f})"
+                 if choice.factor == 2 else
+                 f"rejected: the two halves of this cycle agree within the noise (z = {choice.z:.1f} <= {z_crit:g}); "
+                 "for an eclipsing binary with equal minima the orbital period may still be this one"),
+    }
+
+
+def _combine_bands(per_band: dict[str, Any], bands: tuple[str, ...], reference: str,
+                   warnings: list[str]) -> tuple[float, float]:
+    """The adopted frequency and error: the bands' fits by inverse-variance weighting (a warning when
+    they disagree), or the reference band's alone (one band, or an error that is not finite)."""
+    f_vals = np.array([per_band[b].frequency for b in bands])
+    f_errs = np.array([per_band[b].frequency_err for b in bands])
+    if len(bands) > 1 and np.all(np.isfinite(f_errs) & (f_errs > 0)):
+        wts = 1.0 / f_errs**2
+        frequency = float(np.sum(wts * f_vals) / np.sum(wts))
+        frequency_err = float(1.0 / np.sqrt(np.sum(wts)))
+        chi2 = float(np.sum(wts * (f_vals - frequency) ** 2))
+        if chi2 > len(bands) - 1 + 3 * math.sqrt(2 * (len(bands) - 1)):
+            warnings.append(f"the bands' fitted frequencies disagree (chi2 = {chi2:.1f} for {len(bands) - 1} dof)")
+        return frequency, frequency_err
+    return float(per_band[reference].frequency), float(per_band[reference].frequency_err)
+
 
 
 @blas_threads()  # many small least-squares problems: one BLAS thread is faster (varstar/threads.py)
@@ -600,34 +502,8 @@ def analyse(
         method = f"generalised Lomb-Scargle ({nterms} harmonic{'s' if nterms > 1 else ''})"
     i_best = int(np.nanargmax(power))
     f_peak, p_peak = float(freq[i_best]), float(power[i_best])
-    if i_best in (0, freq.size - 1):
-        span = _span_words(baseline, night)
-        if i_best == 0:
-            raise InputError(
-                f"period analysis: the periodogram rises to the longest period searched ({1 / f_peak:.4g} d) "
-                f"and has no peak inside the range; the light curve spans {span}, which shows periods only up "
-                f"to about half its span ({baseline / 2:.3g} d): observe more nights, or search a range the "
-                "data allow with --min-period/--max-period"
-            )
-        raise InputError(
-            f"period analysis: the periodogram rises to the shortest period searched ({1 / f_peak:.4g} d) and "
-            f"has no peak inside the range: give a smaller --min-period"
-        )
-
-    # Significance.  Baluev's formula is for one series; with several bands it is applied to
-    # all points with the multi-band power, an approximation (the bootstrap is exact in law).
-    fap = float(significance.fap_baluev(p_peak, freq, t, dy, nterms=nterms))
-    fap_method = "Baluev (2008) approximation" + (" applied to the multi-band power" if multi else "")
-    levels = significance.power_at_fap(np.array(FAP_LEVELS), freq, t, dy, nterms=nterms)
-    fap_levels = {lev: float(p) for lev, p in zip(FAP_LEVELS, np.atleast_1d(levels))}
-    fap_boot = float("nan")
-    if bootstrap:
-        gen = np.random.default_rng(rng)
-        if multi:
-            fap_boot = _multiband_bootstrap(t, y, dy, band, freq, nterms, int(bootstrap), gen, p_peak)
-        else:
-            fap_boot = float(significance.fap_bootstrap(t, y, dy, freq, nterms=nterms, n_bootstrap=int(bootstrap),
-                                                        rng=gen, power=p_peak)[0])
+    _refuse_edge_peak(i_best, freq, baseline, night)
+    fap, fap_method, fap_levels, fap_boot = _significance(t, y, dy, band, freq, p_peak, nterms, multi, bootstrap, rng)
 
     report = aliases.alias_report(freq, power, baseline_days=baseline)
 
@@ -643,25 +519,8 @@ def analyse(
     candidates: list[dict[str, Any]] = [{
         "period": 1.0 / f_peak, "source": "periodogram peak (grid value, before refinement)", "power": p_peak,
     }]
-    f_cand = f_peak
-    rel = aliases.relate(f_peak, f_pdm, baseline_days=baseline)
-    if rel != "same peak":
-        z = _cv_z(tr, yr, dyr, f_pdm, f_peak)
-        adopt = z > z_crit
-        candidates.append({
-            "period": 1.0 / f_pdm, "source": "PDM minimum (grid value)", "theta": float(theta[j_pdm]),
-            "relation_to_periodogram_peak": rel, "z": z,
-            "note": (f"phase neighbours predict the points better at PDM's period (z = {z:.1f} > {z_crit:g}); "
-                     "this candidate was refined and adopted"
-                     if adopt else f"rejected: not better supported by the phased curve than the periodogram "
-                     f"peak (z = {z:.1f} <= {z_crit:g})"),
-        })
-        if adopt:
-            f_cand = f_pdm
-            warnings.append(
-                f"PDM's period {1 / f_pdm:.6g} d ({rel} of the periodogram's {1 / f_peak:.6g} d) fits the phased "
-                f"curve better (z = {z:.1f}) and is adopted; a sinusoid describes this light curve poorly"
-            )
+    f_cand = _pdm_versus_periodogram(tr, yr, dyr, f_peak, f_pdm, float(theta[j_pdm]), baseline, z_crit,
+                                     candidates, warnings)
     if nterms > 1:
         # A multi-harmonic periodogram has as much power at half the frequency (its harmonics
         # include f): keep the longer period only if the phased curve needs it.
@@ -699,21 +558,12 @@ def analyse(
     y_main_r = yr if others_ref is None else yr - others_ref(tr)
     # ... nor may the nights' calibration offsets (cycle parity often goes with the night):
     # the fold is judged with each night's estimated offset removed.
-    whiten_r = refine.nightly_whitener(dyr, gr, ger)
+    whiten_r = nightly_whitener(dyr, gr, ger)
     resid_r = y_main_r - main.model(tr)
     y_fold = y_main_r + (whiten_r.without_offsets(resid_r) - resid_r)  # y minus each night's offset
     choice = pdm.choose_p_or_2p(tr, y_fold, dyr, main.frequency, n_bins=pdm_bins, z_crit=z_crit)
     f_final = choice.frequency / choice.factor
-    rival_2p = {
-        "period": (1.0 if choice.factor == 2 else 2.0) / choice.frequency,
-        "source": "the rejected one of P and 2P",
-        "z": choice.z,
-        "note": (f"rejected: the two halves of the {2.0 / choice.frequency:.6g} d cycle differ (z = {choice.z:.1f})"
-                 if choice.factor == 2 else
-                 f"rejected: the two halves of this cycle agree within the noise (z = {choice.z:.1f} <= {z_crit:g}); "
-                 "for an eclipsing binary with equal minima the orbital period may still be this one"),
-    }
-    candidates.append(rival_2p)
+    candidates.append(_rival_2p(choice, z_crit))
     min_harm = 2 if choice.factor == 2 else 1  # a curve repeating only after 2P needs its 2nd harmonic
     if harmonics is not None and int(harmonics) < min_harm:
         warnings.append("the light curve repeats only after 2P: the fit uses 2 harmonics to show both halves")
@@ -748,19 +598,8 @@ def analyse(
             gb, geb = sel(m)
             yb = y[m] - (others[b](t[m]) if b in others else 0.0)
             templates[b] = template.fit_template_period(t[m], yb, dy[m], fits[b].frequency, group=gb, group_err=geb)
-    per_band = templates or fits
     n_harm = fits[reference].nterms
-    f_vals = np.array([per_band[b].frequency for b in bands])
-    f_errs = np.array([per_band[b].frequency_err for b in bands])
-    if multi and np.all(np.isfinite(f_errs) & (f_errs > 0)):
-        wts = 1.0 / f_errs**2
-        frequency = float(np.sum(wts * f_vals) / np.sum(wts))
-        frequency_err = float(1.0 / np.sqrt(np.sum(wts)))
-        chi2 = float(np.sum(wts * (f_vals - frequency) ** 2))
-        if chi2 > len(bands) - 1 + 3 * math.sqrt(2 * (len(bands) - 1)):
-            warnings.append(f"the bands' fitted frequencies disagree (chi2 = {chi2:.1f} for {len(bands) - 1} dof)")
-    else:
-        frequency, frequency_err = float(per_band[reference].frequency), float(per_band[reference].frequency_err)
+    frequency, frequency_err = _combine_bands(templates or fits, bands, reference, warnings)
     period = 1.0 / frequency
     period_err = frequency_err / frequency**2
     _check_constrained(period, period_err, baseline, night)

@@ -69,10 +69,18 @@ from typing import Any
 import numpy as np
 
 from varstar.errors import InputError
-from varstar.results import json_float as _jf
-from varstar.period.refine import _check_freq, _check_series
+from varstar.results import Result
+from varstar.period._common import check_freq, check_series
 
-__all__ = ["pdm_theta", "pdm_search", "PeriodChoice", "choose_p_or_2p", "DEFAULT_BUDGET"]
+__all__ = [
+    "DEFAULT_BUDGET",
+    "PeriodChoice",
+    "choose_p_or_2p",
+    "loo_errors",
+    "paired_z",
+    "pdm_search",
+    "pdm_theta",
+]
 
 #: Point-frequency steps binned at once (frequencies x points per chunk); about
 #: the fastest size on the benchmark machine (larger chunks leave the caches).
@@ -240,8 +248,8 @@ def pdm_theta(
     ``O(len(freq) * N)``, 5-9 ns per point and frequency; for long series over
     fine grids see :func:`pdm_search`.
     """
-    t, y, dy = _check_series(t, y, dy, what="phase dispersion")
-    freq = _check_freq(freq)
+    t, y, dy = check_series(t, y, dy, what="phase dispersion")
+    freq = check_freq(freq)
     n_bins, n_covers = _check_bins(n_bins, n_covers)
     s = _prepare(t, y, dy)
     if s.ss_tot <= 0.0:
@@ -460,8 +468,8 @@ def pdm_search(
     stretch, and a minimum that is shallow in that stretch can be missed; the
     windows around the centres are the main search.
     """
-    t, y, dy = _check_series(t, y, dy, what="phase dispersion")
-    freq = _check_freq(freq)
+    t, y, dy = check_series(t, y, dy, what="phase dispersion")
+    freq = check_freq(freq)
     n_bins, n_covers = _check_bins(n_bins, n_covers)
     if freq.size > 1 and not np.all(np.diff(freq) > 0):
         raise InputError("phase dispersion search: the frequency grid must increase (build it with frequency_grid)")
@@ -508,7 +516,7 @@ def pdm_search(
 
 
 @dataclass(frozen=True)
-class PeriodChoice:
+class PeriodChoice(Result):
     """Which of P = 1/f and 2P the folded light curve supports.
 
     Attributes
@@ -550,19 +558,10 @@ class PeriodChoice:
         return iter((self.factor, self.theta_p, self.theta_2p, self.note))
 
     def to_dict(self) -> dict[str, Any]:
-        """JSON-safe plain dict."""
+        """JSON-safe plain dict: the method, then the fields."""
         return {
             "method": "leave-one-out prediction from phase neighbours at P and 2P; PDM theta at equal bin width",
-            "factor": int(self.factor),
-            "frequency": _jf(self.frequency),
-            "period": _jf(self.period),
-            "theta_p": _jf(self.theta_p),
-            "theta_2p": _jf(self.theta_2p),
-            "cv_p": _jf(self.cv_p),
-            "cv_2p": _jf(self.cv_2p),
-            "z": _jf(self.z),
-            "z_crit": float(self.z_crit),
-            "note": self.note,
+            **super().to_dict(),
         }
 
 
@@ -603,7 +602,7 @@ def _loo_sorted(order: np.ndarray, rows: np.ndarray, m: int) -> np.ndarray:
     """Leave-one-out residuals, in original point order, of points in phase ``order``.
 
     ``rows`` holds ``w, w y, y`` of the points already in that order (N x 3).  Same
-    operations, in the same order, as the straightforward form in :func:`_loo_errors`.
+    operations, in the same order, as the straightforward form in :func:`loo_errors`.
     """
     n = order.size
     ws, wys = rows[:, 0], rows[:, 1]
@@ -631,10 +630,12 @@ def _loo_pair(tt: np.ndarray, cols: np.ndarray, f: float, m: int) -> tuple[np.nd
     return _loo_sorted(order, rows, m), _loo_sorted(order[split], np.take(rows, split, axis=0), m), order
 
 
-def _loo_errors(tt: np.ndarray, y: np.ndarray, w: np.ndarray, f: float, m: int) -> np.ndarray:
-    """Leave-one-out residuals: each point minus the weighted mean of its 2m phase neighbours.
+def loo_errors(tt: np.ndarray, y: np.ndarray, w: np.ndarray, f: float, m: int) -> np.ndarray:
+    """Leave-one-out residuals of the fold at ``f``: each point minus the weighted mean of its 2m phase neighbours.
 
-    Neighbours are the ``m`` points before and ``m`` after it in cyclic phase order.
+    ``tt`` are the times (days, any origin), ``y`` the magnitudes and ``w`` their
+    weights (``1/dy**2``); the neighbours are the ``m`` points before and ``m``
+    after each point in cyclic phase order.
     """
     phase = f * tt
     phase -= np.floor(phase)
@@ -668,7 +669,7 @@ def _refine_by_neighbours(tt: np.ndarray, y: np.ndarray, w: np.ndarray, f: float
     return centre
 
 
-def _paired_z(d: np.ndarray, cycles: np.ndarray, m: int, order: np.ndarray | None = None) -> float:
+def paired_z(d: np.ndarray, cycles: np.ndarray, m: int, order: np.ndarray | None = None) -> float:
     """``sum(d) / SE`` for the paired prediction-error differences ``d``.
 
     ``d`` is put in phase order at P (``cycles = f (t - t0)``) and its local mean
@@ -723,7 +724,7 @@ def choose_p_or_2p(
     average (equal for a flat curve).  If the halves differ, the P prediction mixes
     the two halves and loses.  With ``d_i = w_i (e_P,i**2 - e_2P,i**2)`` and
     ``w = 1/dy**2``, ``z = sum d / SE``; the standard error allows for a difference
-    confined to some phases (see ``_paired_z``); the factor is 2 when
+    confined to some phases (see ``paired_z``); the factor is 2 when
     ``z > z_crit``.  Unlike a binned F test (tried first: 40% false choices of 2P
     on a simulated detached binary) this does not mistake the changing light curve
     inside a bin for a difference of the halves, a pitfall for narrow eclipses and
@@ -761,7 +762,7 @@ def choose_p_or_2p(
     PeriodChoice
         Also unpacks as ``factor, theta_p, theta_2p, note``.
     """
-    t, y, dy = _check_series(t, y, dy, what="period choice")
+    t, y, dy = check_series(t, y, dy, what="period choice")
     if not (np.isfinite(f) and f > 0):
         raise InputError(f"period choice: the frequency must be positive (got {f!r})")
     n_bins, n_covers = _check_bins(n_bins, n_covers)
@@ -782,7 +783,7 @@ def choose_p_or_2p(
     sw = float(np.sum(w))
     cv_p = float(np.sum(w * e_p**2) / sw)
     cv_2p = float(np.sum(w * e_2p**2) / sw)
-    z = _paired_z(d, f * tt, m, order=at_p)
+    z = paired_z(d, f * tt, m, order=at_p)
     theta_p = float(pdm_theta(t, y, dy, [f], n_bins=n_bins, n_covers=n_covers)[0])
     theta_2p = float(pdm_theta(t, y, dy, [0.5 * f], n_bins=2 * n_bins, n_covers=n_covers)[0])
     period = 1.0 / f

@@ -46,20 +46,17 @@ from typing import Any, Callable
 import numpy as np
 
 from varstar.errors import InputError, ReductionError
-from varstar.results import sd
+from varstar.results import Result, sd
 from varstar.period import gls
+from varstar.period._common import check_freq, check_series, propagated_err
 from varstar.period.nightly import nightly_whitener
-from varstar.period.refine import (
-    _amp_phase,
-    _bases,
-    _check_freq,
-    _check_series,
-    _design,
-    _err,
-    _fit_sinusoids,
-    _jf,
-    _model_jac,
-    _solve_linear,
+from varstar.period.sinusoids import (
+    amplitude_phase,
+    design_matrix,
+    fit_sinusoids,
+    frequency_index,
+    model_jacobian,
+    solve_linear,
 )
 
 __all__ = ["amplitude_spectrum", "FoundFrequency", "PrewhiteningResult", "prewhiten"]
@@ -74,8 +71,8 @@ def amplitude_spectrum(t: Any, y: Any, dy: Any, freq: Any) -> np.ndarray:
     freq : array_like
         Frequencies (cycles/day).
     """
-    t, y, dy = _check_series(t, y, dy, min_points=2, what="amplitude spectrum")
-    freq = _check_freq(freq)
+    t, y, dy = check_series(t, y, dy, min_points=2, what="amplitude spectrum")
+    freq = check_freq(freq)
     # gls.weighted_dft picks a non-uniform FFT on long uniform grids (ten-year series).
     return 2.0 * np.abs(gls.weighted_dft(t, y, dy, freq)) / np.sum(1.0 / dy**2)
 
@@ -95,7 +92,7 @@ def _noise(t, r, dy, f0, window, step) -> float:
 
 
 @dataclass(frozen=True)
-class FoundFrequency:
+class FoundFrequency(Result):
     """One frequency of a prewhitening solution (errors are 1 sigma).
 
     ``amplitude``/``phase`` belong to the first harmonic in the convention
@@ -119,27 +116,9 @@ class FoundFrequency:
     harmonic_amplitudes: tuple[float, ...]
     relation: str
 
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-safe plain dict."""
-        return {
-            "label": self.label,
-            "frequency": _jf(self.frequency),
-            "frequency_err": _jf(self.frequency_err),
-            "period": _jf(self.period),
-            "period_err": _jf(self.period_err),
-            "amplitude": _jf(self.amplitude),
-            "amplitude_err": _jf(self.amplitude_err),
-            "phase": _jf(self.phase),
-            "phase_err": _jf(self.phase_err),
-            "snr": _jf(self.snr),
-            "noise": _jf(self.noise),
-            "harmonic_amplitudes": [_jf(v) for v in self.harmonic_amplitudes],
-            "relation": self.relation,
-        }
-
 
 @dataclass(frozen=True, eq=False)
-class PrewhiteningResult:
+class PrewhiteningResult(Result):
     """Frequencies found by prewhitening, their errors, and why the search stopped.
 
     Attributes
@@ -186,38 +165,24 @@ class PrewhiteningResult:
     params: np.ndarray = field(repr=False)
     covariance: np.ndarray = field(repr=False)
 
+    _json_exclude = ("params", "covariance")
+
     def model(self, t: Any) -> np.ndarray:
         """The fitted multi-frequency model at times ``t``."""
         tau = np.asarray(t, dtype=float) - self.t_ref
-        mod, _ = _model_jac(self.params, tau.ravel(), len(self.frequencies), self.nterms, want_jac=False)
+        mod, _ = model_jacobian(self.params, tau.ravel(), len(self.frequencies), self.nterms, want_jac=False)
         return mod.reshape(tau.shape)
 
     def to_dict(self) -> dict[str, Any]:
-        """JSON-safe plain dict (NaN becomes None)."""
+        """JSON-safe plain dict (NaN becomes None): the method, the phase convention, then the fields
+        (``params`` and ``covariance`` left out)."""
         return {
             "method": (
                 "iterative prewhitening: periodogram peak, simultaneous non-linear least squares of all "
                 "frequencies, amplitude S/N against the mean residual amplitude spectrum (Breger et al. 1993)"
             ),
             "phase_convention": "y = mean_mag + sum_i sum_k A_ik cos(2 pi k f_i (t - t_ref) + phi_ik)",
-            "frequencies": [f.to_dict() for f in self.frequencies],
-            "mean_mag": _jf(self.mean_mag),
-            "mean_mag_err": _jf(self.mean_mag_err),
-            "t_ref": _jf(self.t_ref),
-            "nterms": [int(k) for k in self.nterms],
-            "chi2": _jf(self.chi2),
-            "dof": int(self.dof),
-            "reduced_chi2": _jf(self.reduced_chi2),
-            "rms": _jf(self.rms),
-            "stop_reason": self.stop_reason,
-            "stop_frequency": _jf(self.stop_frequency),
-            "stop_amplitude": _jf(self.stop_amplitude),
-            "stop_noise": _jf(self.stop_noise),
-            "stop_snr": _jf(self.stop_snr),
-            "relations": list(self.relations),
-            "snr_limit": float(self.snr_limit),
-            "noise_window": float(self.noise_window),
-            "warnings": list(self.warnings),
+            **super().to_dict(),
         }
 
 
@@ -279,13 +244,13 @@ def _best_alias(tau, y, whiten, accepted, terms, nterms, trials) -> float:
     ``S = B^T B - B^T A (A^T A)^-1 A^T B`` (the same as refitting everything, from products
     with the few new columns only; common linear algebra).
     """
-    a_mat = whiten(_design(tau, np.asarray(accepted, dtype=float), terms))
+    a_mat = whiten(design_matrix(tau, np.asarray(accepted, dtype=float), terms))
     wy = whiten(y)
-    gram, beta = _solve_linear(a_mat, wy, len(accepted), terms)
+    gram, beta = solve_linear(a_mat, wy, len(accepted), terms)
     r = wy - a_mat @ beta
     best, drop = float(trials[0]), -np.inf
     for f_try in trials:
-        b_mat = whiten(_design(tau, np.array([f_try]), (nterms,))[:, 1:])
+        b_mat = whiten(design_matrix(tau, np.array([f_try]), (nterms,))[:, 1:])
         ab = a_mat.T @ b_mat
         schur = b_mat.T @ b_mat - ab.T @ np.linalg.solve(gram, ab)
         u = b_mat.T @ r
@@ -363,8 +328,8 @@ def prewhiten(
     -------
     PrewhiteningResult
     """
-    t, y, dy = _check_series(t, y, dy, what="prewhitening")
-    freq = _check_freq(freq)
+    t, y, dy = check_series(t, y, dy, what="prewhitening")
+    freq = check_freq(freq)
     if not callable(periodogram):
         raise InputError("prewhitening: 'periodogram' must be a function periodogram(t, y, dy, freq) -> power")
     nterms = int(nterms)
@@ -400,9 +365,9 @@ def prewhiten(
         return k >= 1 and abs(f - k * half) < resolution
 
     if first is not None:
-        fit = _fit_sinusoids(t, y, dy, [float(first)], (int(first_nterms),), t_ref, whiten=whiten)
+        fit = fit_sinusoids(t, y, dy, [float(first)], (int(first_nterms),), t_ref, whiten=whiten)
         terms = [int(first_nterms)]
-        accepted = fit.params[_bases(tuple(terms))].copy()
+        accepted = fit.params[frequency_index(tuple(terms))].copy()
         resid = fit.resid
         half = 0.5 * float(accepted[0])
         k = np.rint(freq / half)
@@ -454,13 +419,13 @@ def prewhiten(
                 break
         else:
             try:
-                trial = _fit_sinusoids(t, y, dy, np.append(accepted, f_new), new_terms, t_ref, whiten=whiten)
+                trial = fit_sinusoids(t, y, dy, np.append(accepted, f_new), new_terms, t_ref, whiten=whiten)
             except ReductionError as exc:  # degenerate sampling for this set: reported as the stop reason
                 stop.update(reason=f"the fit with the candidate at {f_new:.6f} c/d failed: {exc}", f=f_new)
                 break
         if aliases_cpd.size > 1:
             try:
-                trial = _fit_sinusoids(t, y, dy, np.append(accepted, f_best), new_terms, t_ref, whiten=whiten)
+                trial = fit_sinusoids(t, y, dy, np.append(accepted, f_best), new_terms, t_ref, whiten=whiten)
             except ReductionError as exc:
                 stop.update(reason=f"the fit with the candidate at {f_best:.6f} c/d failed: {exc}", f=f_best)
                 break
@@ -473,7 +438,7 @@ def prewhiten(
                 break
             continue
         k_new = accepted.size
-        base = int(_bases(new_terms)[k_new])
+        base = int(frequency_index(new_terms)[k_new])
         f_fit = float(trial.params[base])
         amp = math.hypot(trial.params[base + 1], trial.params[base + 2])
         noise = _noise(t, trial.resid, dy, f_fit, noise_window, step)
@@ -483,7 +448,7 @@ def prewhiten(
                    else f"false-alarm probability {fap:.2g} > {fap_limit:g} (S/N {snr:.1f})")
             stop.update(reason=f"the next peak at {f_fit:.6f} c/d has {why}", f=f_fit, amp=amp, noise=noise, snr=snr)
             break
-        if not trial.success:
+        if not trial.converged:
             warnings.append(f"fit with {k_new + 1} frequencies: solver did not report convergence ({trial.message})")
         if abs(f_fit - f_best) > 0.5 / baseline:
             warnings.append(
@@ -491,15 +456,15 @@ def prewhiten(
             )
         fit = trial
         terms = list(new_terms)
-        accepted = trial.params[_bases(new_terms)].copy()
+        accepted = trial.params[frequency_index(new_terms)].copy()
         resid = trial.resid
 
-    p, cov = fit.params, fit.cov
+    p, cov = fit.params, fit.covariance
     tol = 1.0 / baseline if relation_tolerance is None else float(relation_tolerance)
     rels = _relations(accepted, tol)
     found = []
-    for i, (f_i, base, nt) in enumerate(zip(accepted, _bases(tuple(terms)), terms)):
-        amp, phi, g_a, g_p = _amp_phase(p[base + 1], p[base + 2])
+    for i, (f_i, base, nt) in enumerate(zip(accepted, frequency_index(tuple(terms)), terms)):
+        amp, phi, g_a, g_p = amplitude_phase(p[base + 1], p[base + 2])
         ga = np.zeros(p.size)
         gp = np.zeros(p.size)
         ga[base + 1 : base + 3] = g_a
@@ -517,9 +482,9 @@ def prewhiten(
                 period=float(1.0 / f_i),
                 period_err=float(f_err / f_i**2),
                 amplitude=amp,
-                amplitude_err=_err(ga, cov),
+                amplitude_err=propagated_err(ga, cov),
                 phase=phi,
-                phase_err=_err(gp, cov),
+                phase_err=propagated_err(gp, cov),
                 snr=float(amp / noise) if noise > 0 else math.inf,
                 noise=float(noise),
                 harmonic_amplitudes=harm,

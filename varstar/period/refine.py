@@ -38,6 +38,7 @@ Magnitudes: the brightest point of the curve is its SMALLEST magnitude, so the
 "epoch of maximum light" is the time of the model's minimum value.
 """
 
+
 from __future__ import annotations
 
 import math
@@ -47,318 +48,15 @@ from typing import Any
 import numpy as np
 
 from varstar.errors import InputError, ReductionError
-from varstar.results import json_float as _jf, sd
-from varstar.period.nightly import NightlyWhitener, nightly_whitener
+from varstar.results import Result, sd
+from varstar.period._common import check_series, propagated_err
+from varstar.period.nightly import nightly_whitener
+from varstar.period.sinusoids import TWO_PI, amplitude_phase, design_matrix, fit_sinusoids, model_jacobian
 
-TWO_PI = 2.0 * math.pi
-
-__all__ = ["HarmonicFit", "fit_harmonics"]
-
-
-# --------------------------------------------------------------------------- input checks
-
-
-def _check_series(
-    t: Any, y: Any, dy: Any, *, min_points: int = 3, what: str = "light curve"
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Return ``t, y, dy`` as finite 1-D float arrays of equal length, or raise InputError.
-
-    ``dy=None`` means equal weights (all errors 1).
-    """
-    t = np.asarray(t, dtype=float)
-    y = np.asarray(y, dtype=float)
-    dy = np.ones_like(y) if dy is None else np.asarray(dy, dtype=float)
-    if dy.ndim == 0:
-        dy = np.full_like(y, float(dy))
-    if t.ndim != 1 or y.ndim != 1 or dy.ndim != 1:
-        raise InputError(f"{what}: times, magnitudes and errors must be 1-D arrays")
-    if not (t.size == y.size == dy.size):
-        raise InputError(
-            f"{what}: times ({t.size}), magnitudes ({y.size}) and errors ({dy.size}) "
-            "must have the same length"
-        )
-    if t.size < min_points:
-        raise InputError(f"{what}: {t.size} points given, at least {min_points} are needed")
-    bad = ~(np.isfinite(t) & np.isfinite(y) & np.isfinite(dy))
-    if bad.any():
-        raise InputError(
-            f"{what}: {int(bad.sum())} points have a non-finite time, magnitude or error; "
-            "drop them before the period analysis"
-        )
-    if np.any(dy <= 0):
-        raise InputError(f"{what}: every magnitude error must be positive (got {dy.min():g})")
-    return t, y, dy
-
-
-def _check_freq(freq: Any, *, what: str = "frequency grid") -> np.ndarray:
-    freq = np.asarray(freq, dtype=float)
-    if freq.ndim == 0:
-        freq = freq.reshape(1)
-    if freq.ndim != 1 or freq.size == 0:
-        raise InputError(f"{what}: give a non-empty 1-D array of frequencies (cycles/day)")
-    if not np.all(np.isfinite(freq)):
-        raise InputError(f"{what}: frequencies must be finite")
-    return freq
-
-
-# --------------------------------------------------------------------------- model core
-
-
-def _terms(n_freq: int, nterms: Any) -> tuple[int, ...]:
-    """Harmonics of each frequency: one int for all, or one per frequency."""
-    if np.ndim(nterms) == 0:
-        return (int(nterms),) * n_freq
-    terms = tuple(int(k) for k in nterms)
-    if len(terms) != n_freq:
-        raise InputError(f"harmonic fit: {n_freq} frequencies but {len(terms)} harmonic counts")
-    return terms
-
-
-def _bases(terms: tuple[int, ...]) -> np.ndarray:
-    """Index of each frequency in the parameter vector (its harmonics follow it)."""
-    widths = 1 + 2 * np.asarray(terms, dtype=int)
-    return 1 + np.concatenate(([0], np.cumsum(widths)[:-1])).astype(int)
-
-
-def _n_params(n_freq: int, nterms: Any) -> int:
-    return 1 + sum(1 + 2 * k for k in _terms(n_freq, nterms))
-
-
-def _model_jac(p: np.ndarray, tau: np.ndarray, n_freq: int, nterms: Any, want_jac: bool = True):
-    """Model values and Jacobian (N x P) of the multi-frequency harmonic model.
-
-    Parameter layout: ``[m, f_1, a_11, b_11, ..., a_1K, b_1K, f_2, a_21, ...]``;
-    ``nterms`` is one harmonic count for every frequency or one per frequency.
-    The loop runs over frequencies (a handful), never over measurements.
-    """
-    terms = _terms(n_freq, nterms)
-    fidx = _bases(terms)
-    lin = np.ones(p.size, dtype=bool)
-    lin[fidx] = False
-    x = _design(tau, p[fidx], terms)
-    model = x @ p[lin]
-    if not want_jac:
-        return model, None
-    jac = np.empty((tau.size, p.size))
-    jac[:, lin] = x
-    jac[:, fidx] = _freq_columns(x, p[lin], tau, terms)
-    return model, jac
-
-
-def _freq_columns(x: np.ndarray, beta: np.ndarray, tau: np.ndarray, terms: tuple[int, ...]) -> np.ndarray:
-    """d model / d f_i = 2 pi tau sum_k k (b_k cos kx - a_k sin kx), one column per frequency.
-
-    ``x`` is :func:`_design`'s matrix and ``beta`` the linear parameters in its order.
-    """
-    d = np.empty((tau.size, len(terms)))
-    col = 1
-    for i, nt in enumerate(terms):
-        k = np.arange(1, nt + 1, dtype=float)
-        ab = beta[col : col + 2 * nt]
-        d[:, i] = x[:, col : col + 2 * nt : 2] @ (k * ab[1::2]) - x[:, col + 1 : col + 2 * nt : 2] @ (k * ab[0::2])
-        col += 2 * nt
-    return (TWO_PI * tau)[:, None] * d
-
-
-@dataclass(frozen=True, eq=False)
-class _Fit:
-    params: np.ndarray
-    cov: np.ndarray
-    chi2: float
-    dof: int
-    resid: np.ndarray
-    success: bool
-    message: str
-
-
-#: Eigenvalue ratio of the column-scaled normal matrix below which a design counts as
-#: rank deficient: singular values below 1e-7 of the largest, amplitudes that lose
-#: seven digits to the sampling have no meaning (common practice for a numerical rank).
-_RCOND = 1e-14
-
-
-def _design(tau: np.ndarray, freqs: np.ndarray, terms: tuple[int, ...]) -> np.ndarray:
-    """The linear columns of the model, ``[1, cos x, sin x, ..., cos Kx, sin Kx]`` per frequency
-    (``x = 2 pi f tau``), in the order of the linear parameters."""
-    out = np.empty((tau.size, 1 + 2 * sum(terms)))
-    out[:, 0] = 1.0
-    col = 1
-    for f, nt in zip(freqs, terms):
-        # e^{i k x} as powers of e^{i x}: one complex exponential per point instead of
-        # K cosines and K sines (the harmonics' rounding error grows only as k eps)
-        z = np.cumprod(np.broadcast_to(np.exp(1j * (TWO_PI * f * tau))[:, None], (tau.size, nt)), axis=1)
-        out[:, col : col + 2 * nt : 2] = z.real
-        out[:, col + 1 : col + 2 * nt : 2] = z.imag
-        col += 2 * nt
-    return out
-
-
-def _solve_linear(a_mat: np.ndarray, wy: np.ndarray, n_freq: int, terms: tuple[int, ...]):
-    """Normal matrix and solution of the whitened linear least squares ``a_mat beta = wy``.
-
-    Refuses a rank-deficient design (the sampling does not separate the harmonics):
-    the smallest eigenvalue of the column-scaled normal matrix below ``_RCOND`` of the
-    largest, i.e. singular values below its square root.
-    """
-    gram = a_mat.T @ a_mat
-    scale = 1.0 / np.sqrt(np.maximum(np.diag(gram), 1e-300))
-    ev = np.linalg.eigvalsh(gram * np.outer(scale, scale))
-    if not ev[0] > _RCOND * ev[-1]:
-        raise ReductionError(
-            f"harmonic fit: the sampling cannot separate {a_mat.shape[1] - 1} sine and cosine terms "
-            f"({n_freq} frequenc{'y' if n_freq == 1 else 'ies'}, {max(terms)} harmonics at most): "
-            "too few phases covered; use fewer harmonics or more data"
-        )
-    return gram, np.linalg.solve(gram, a_mat.T @ wy)
-
-
-def _linear_start(y, tau, freqs, nterms, whiten: NightlyWhitener) -> np.ndarray:
-    """Amplitudes and mean by (generalised) linear least squares at fixed frequencies."""
-    n_freq = len(freqs)
-    terms = _terms(n_freq, nterms)
-    p = np.zeros(_n_params(n_freq, nterms))
-    fidx = _bases(terms)
-    p[fidx] = freqs
-    lin = np.ones(p.size, dtype=bool)
-    lin[fidx] = False
-    _, p[lin] = _solve_linear(whiten(_design(tau, np.asarray(freqs, dtype=float), terms)), whiten(y), n_freq, terms)
-    return p
-
-
-def _variable_projection(y, tau, p, n_freq, nterms, whiten) -> tuple[np.ndarray, bool, str]:
-    """Least squares over the frequencies only, the amplitudes solved exactly at each step.
-
-    The model is linear in the mean and amplitudes and non-linear only in the few
-    frequencies: variable projection (Golub & Pereyra 1973) minimises the residual of
-    the linear solution as a function of the frequencies.  Each step is Gauss-Newton
-    with Kaufman's (1975) Jacobian ``J = -(I - P) L dmodel/df`` (``P`` the projection on
-    the whitened linear columns), written with normal matrices: with ``A = L X`` and
-    ``D = L dmodel/df``, ``J^T J = D^T D - D^T A (A^T A)^-1 A^T D`` and ``J^T r = -D^T r``
-    (``r`` is orthogonal to ``A``).  One pass over the points per step (matrix products,
-    no factorisation of an N-row matrix), and a step is halved while it does not lower
-    chi-square.  Written here rather than with scipy's least_squares because its
-    Levenberg-Marquardt needs the N x F Jacobian through a QR of the N x P columns at
-    every evaluation, several times the cost (``benchmarks/bench_period.py``).
-    """
-    terms = _terms(n_freq, nterms)
-    fidx = _bases(terms)
-    lin = np.ones(p.size, dtype=bool)
-    lin[fidx] = False
-    wy = whiten(y)
-
-    def state(fr):
-        q = p.copy()
-        q[fidx] = fr
-        x = _design(tau, fr, terms)
-        a_mat = whiten(x)
-        gram, beta = _solve_linear(a_mat, wy, n_freq, terms)
-        q[lin] = beta
-        r = wy - a_mat @ beta
-        return q, r, float(r @ r), a_mat, gram, whiten(_freq_columns(x, beta, tau, terms))
-
-    fr = p[fidx].copy()
-    q, r, chi2, a_mat, gram, d = state(fr)
-    for iteration in range(50):
-        ad = a_mat.T @ d
-        jtj = d.T @ d - ad.T @ np.linalg.solve(gram, ad)
-        try:
-            step = np.linalg.solve(jtj, d.T @ r)
-        except np.linalg.LinAlgError:
-            return q, False, "the frequencies are not constrained (singular normal matrix)"
-        # stop when the step is far below the frequencies' own errors
-        sigma = np.sqrt(np.abs(np.diag(np.linalg.inv(jtj))) * max(chi2, 1e-300) / max(tau.size - p.size, 1))
-        for _ in range(30):
-            new = state(fr + step)
-            if new[2] <= chi2:
-                break
-            step = 0.5 * step
-        else:
-            return q, True, f"converged (no step lowers chi-square; {iteration} steps)"
-        fr = fr + step
-        q, r, chi2_new, a_mat, gram, d = new
-        small = np.all(np.abs(step) <= 1e-6 * sigma)
-        chi2, settled = chi2_new, (chi2 - chi2_new) <= 1e-12 * chi2
-        if small or settled:
-            return q, True, f"converged in {iteration + 1} Gauss-Newton steps"
-    return q, False, "no convergence in 50 Gauss-Newton steps"
-
-
-def _fit_sinusoids(
-    t: np.ndarray,
-    y: np.ndarray,
-    dy: np.ndarray,
-    freqs: Any,
-    nterms: Any,
-    t_ref: float,
-    *,
-    refine: bool = True,
-    p0: np.ndarray | None = None,
-    whiten: NightlyWhitener | None = None,
-) -> _Fit:
-    """Weighted (non-)linear least squares of the multi-frequency harmonic model.
-
-    The covariance is always scaled by chi2/dof (see the module docstring).  With
-    ``refine=False`` the frequencies are held fixed and their rows/columns of the
-    covariance are zero.  ``whiten`` (from :func:`.nightly.nightly_whitener`) adds
-    each night's shared calibration error to the covariance of the points; by
-    default the points are independent with errors ``dy``.
-    """
-    freqs = np.atleast_1d(np.asarray(freqs, dtype=float))
-    n_freq = freqs.size
-    if whiten is None:
-        whiten = nightly_whitener(dy)
-    tau = t - t_ref
-    n_par = _n_params(n_freq, nterms)
-    if t.size <= n_par - (0 if refine else n_freq):
-        raise ReductionError(
-            f"harmonic fit: {t.size} points cannot constrain {n_par} parameters "
-            f"({n_freq} frequencies x {nterms} harmonics); use fewer harmonics or more data"
-        )
-    p = _linear_start(y, tau, freqs, nterms, whiten) if p0 is None else np.array(p0, dtype=float)
-    success, message = True, "linear fit at fixed frequency"
-    fidx = _bases(_terms(n_freq, nterms))
-    if refine:
-        try:
-            p, success, message = _variable_projection(y, tau, p, n_freq, nterms, whiten)
-        except np.linalg.LinAlgError as exc:  # the frequency ran where the harmonics coincide
-            raise ReductionError(
-                "harmonic fit: the normal matrix became singular while refining the frequency; the sampling "
-                "cannot separate these frequencies/harmonics (too few phases covered?)"
-            ) from exc
-    model, jm = _model_jac(p, tau, n_freq, nterms)
-    resid = y - model
-    chi2 = float(np.sum(whiten(resid) ** 2))
-    free = np.ones(n_par, dtype=bool)
-    if not refine:
-        free[fidx] = False
-    dof = int(t.size - free.sum())
-    jw = whiten(jm[:, free])
-    fisher = jw.T @ jw
-    try:
-        cov_free = np.linalg.inv(fisher)
-    except np.linalg.LinAlgError as exc:  # degenerate sampling
-        raise ReductionError(
-            "harmonic fit: the normal matrix is singular; the sampling cannot separate "
-            "these frequencies/harmonics (too few phases covered?)"
-        ) from exc
-    scale = chi2 / dof if dof > 0 else float("nan")
-    cov = np.zeros((n_par, n_par))
-    cov[np.ix_(free, free)] = cov_free * scale
-    return _Fit(p, cov, chi2, dof, resid, success, message)
+__all__ = ["HarmonicFit", "MAX_AUTO_HARMONICS", "fit_harmonics", "fit_harmonics_aic"]
 
 
 # --------------------------------------------------------------------------- derived quantities
-
-
-def _amp_phase(a: float, b: float) -> tuple[float, float, np.ndarray, np.ndarray]:
-    """A, phi (cosine convention) and their gradients w.r.t. (a, b)."""
-    amp = math.hypot(a, b)
-    phi = math.atan2(-b, a) % TWO_PI
-    if amp == 0.0:
-        return amp, phi, np.array([np.nan, np.nan]), np.array([np.nan, np.nan])
-    g_amp = np.array([a / amp, b / amp])
-    g_phi = np.array([b / amp**2, -a / amp**2])
-    return amp, phi, g_amp, g_phi
 
 
 def _shape(x: np.ndarray, a: np.ndarray, b: np.ndarray, deriv: int = 0) -> np.ndarray:
@@ -402,10 +100,6 @@ def _extremum_grad(x: float, a: np.ndarray, b: np.ndarray) -> tuple[float, np.nd
     return d2, g
 
 
-def _err(g: np.ndarray, cov: np.ndarray) -> float:
-    return sd(g @ cov @ g)
-
-
 def _wrap(x: float) -> float:
     return x % TWO_PI
 
@@ -414,7 +108,7 @@ def _wrap(x: float) -> float:
 
 
 @dataclass(frozen=True, eq=False)
-class HarmonicFit:
+class HarmonicFit(Result):
     """A harmonic (Fourier-series) fit of one periodic signal with its uncertainties.
 
     Attributes
@@ -492,53 +186,22 @@ class HarmonicFit:
     params: np.ndarray = field(repr=False)
     covariance: np.ndarray = field(repr=False)
 
+    _json_exclude = ("params", "covariance")
+
     def model(self, t: Any) -> np.ndarray:
         """Model magnitudes at times ``t`` (same time system as the fitted data)."""
         tau = np.asarray(t, dtype=float) - self.t_ref
         shape = tau.shape
-        mod, _ = _model_jac(self.params, tau.ravel(), 1, self.nterms, want_jac=False)
+        mod, _ = model_jacobian(self.params, tau.ravel(), 1, self.nterms, want_jac=False)
         return mod.reshape(shape)
 
     def to_dict(self) -> dict[str, Any]:
-        """JSON-safe plain dict (NaN becomes None)."""
+        """JSON-safe plain dict (NaN becomes None): the method, the phase convention, then the fields
+        (``params`` and ``covariance`` left out)."""
         return {
             "method": "weighted non-linear least-squares Fourier series; covariance scaled by reduced chi2",
             "phase_convention": "y = mean_mag + sum_k A_k cos(2 pi k f (t - t_ref) + phi_k)",
-            "frequency": _jf(self.frequency),
-            "frequency_err": _jf(self.frequency_err),
-            "period": _jf(self.period),
-            "period_err": _jf(self.period_err),
-            "t_ref": _jf(self.t_ref),
-            "mean_mag": _jf(self.mean_mag),
-            "mean_mag_err": _jf(self.mean_mag_err),
-            "nterms": int(self.nterms),
-            "amplitudes": [_jf(v) for v in self.amplitudes],
-            "amplitude_errs": [_jf(v) for v in self.amplitude_errs],
-            "phases": [_jf(v) for v in self.phases],
-            "phase_errs": [_jf(v) for v in self.phase_errs],
-            "ptp_amplitude": _jf(self.ptp_amplitude),
-            "ptp_amplitude_err": _jf(self.ptp_amplitude_err),
-            "epoch_max_light": _jf(self.epoch_max_light),
-            "epoch_max_light_err": _jf(self.epoch_max_light_err),
-            "epoch_min_light": _jf(self.epoch_min_light),
-            "epoch_min_light_err": _jf(self.epoch_min_light_err),
-            "r21": _jf(self.r21),
-            "r21_err": _jf(self.r21_err),
-            "phi21": _jf(self.phi21),
-            "phi21_err": _jf(self.phi21_err),
-            "phi21_sine": _jf(self.phi21_sine),
-            "r31": _jf(self.r31),
-            "r31_err": _jf(self.r31_err),
-            "phi31": _jf(self.phi31),
-            "phi31_err": _jf(self.phi31_err),
-            "phi31_sine": _jf(self.phi31_sine),
-            "chi2": _jf(self.chi2),
-            "dof": int(self.dof),
-            "reduced_chi2": _jf(self.reduced_chi2),
-            "rms": _jf(self.rms),
-            "n_points": int(self.n_points),
-            "converged": bool(self.converged),
-            "warnings": list(self.warnings),
+            **super().to_dict(),
         }
 
 
@@ -583,7 +246,7 @@ def fit_harmonics(
     ReductionError
         Too few points for the number of parameters, or a singular normal matrix.
     """
-    t, y, dy = _check_series(t, y, dy, what="harmonic fit")
+    t, y, dy = check_series(t, y, dy, what="harmonic fit")
     if not (np.isfinite(frequency) and frequency > 0):
         raise InputError(f"harmonic fit: the starting frequency must be positive (got {frequency!r})")
     nterms = int(nterms)
@@ -592,13 +255,13 @@ def fit_harmonics(
     w = 1.0 / dy**2
     t_ref = float(np.sum(w * t) / np.sum(w))
     whiten = nightly_whitener(dy, group, group_err)
-    fit = _fit_sinusoids(t, y, dy, [float(frequency)], nterms, t_ref, refine=refine, whiten=whiten)
-    p, cov = fit.params, fit.cov
+    fit = fit_sinusoids(t, y, dy, [float(frequency)], nterms, t_ref, refine=refine, whiten=whiten)
+    p, cov = fit.params, fit.covariance
     n_par = p.size
     warnings: list[str] = []
     baseline = float(t.max() - t.min())
     f = float(p[1])
-    if not fit.success:
+    if not fit.converged:
         warnings.append(f"the least-squares solver did not report convergence: {fit.message}")
     if f <= 0:
         raise ReductionError(
@@ -617,13 +280,13 @@ def fit_harmonics(
     g_amp = np.zeros((nterms, n_par))
     g_phi = np.zeros((nterms, n_par))
     for k in range(nterms):
-        amp, phi, ga, gp = _amp_phase(a[k], b[k])
+        amp, phi, ga, gp = amplitude_phase(a[k], b[k])
         g_amp[k, 2 + 2 * k : 4 + 2 * k] = ga
         g_phi[k, 2 + 2 * k : 4 + 2 * k] = gp
         amps.append(amp)
         phis.append(phi)
-        amp_errs.append(_err(g_amp[k], cov))
-        phi_errs.append(_err(g_phi[k], cov))
+        amp_errs.append(propagated_err(g_amp[k], cov))
+        phi_errs.append(propagated_err(g_phi[k], cov))
 
     def ratio(j: int) -> tuple[float, float, float, float, float]:
         if nterms <= j:
@@ -635,7 +298,7 @@ def fit_harmonics(
         g_ph = g_phi[j] - (j + 1) * g_phi[0]
         # sine series: psi_k = phi_k + pi/2 -> psi_j1 = phi_j1 + (1 - (j+1)) pi/2
         ph_sine = _wrap(ph + (1 - (j + 1)) * math.pi / 2)
-        return r, _err(g_r, cov), ph, _err(g_ph, cov), ph_sine
+        return r, propagated_err(g_r, cov), ph, propagated_err(g_ph, cov), ph_sine
 
     r21, r21_err, phi21, phi21_err, phi21_sine = ratio(1)
     r31, r31_err, phi31, phi31_err, phi31_sine = ratio(2)
@@ -655,7 +318,7 @@ def fit_harmonics(
         g = np.zeros(n_par)
         g[2:] = gx / (TWO_PI * f)
         g[1] = -x / (TWO_PI * f**2)
-        return t_ext, _err(g, cov)
+        return t_ext, propagated_err(g, cov)
 
     t_max, t_max_err = epoch(x_bright)
     t_min, t_min_err = epoch(x_faint)
@@ -675,7 +338,7 @@ def fit_harmonics(
         phases=tuple(float(v) for v in phis),
         phase_errs=tuple(float(v) for v in phi_errs),
         ptp_amplitude=ptp,
-        ptp_amplitude_err=_err(g_ptp, cov),
+        ptp_amplitude_err=propagated_err(g_ptp, cov),
         epoch_max_light=float(t_max),
         epoch_max_light_err=float(t_max_err),
         epoch_min_light=float(t_min),
@@ -695,7 +358,7 @@ def fit_harmonics(
         reduced_chi2=fit.chi2 / dof if dof > 0 else float("nan"),
         rms=float(np.sqrt(np.mean(fit.resid**2))),
         n_points=int(t.size),
-        converged=bool(fit.success),
+        converged=bool(fit.converged),
         warnings=tuple(warnings),
         params=p.copy(),
         covariance=cov.copy(),
@@ -739,14 +402,14 @@ def fit_harmonics_aic(
         Range of harmonic counts tried (the upper end is lowered to what the
         number of points allows).
     """
-    t, y, dy = _check_series(t, y, dy, what="harmonic fit")
+    t, y, dy = check_series(t, y, dy, what="harmonic fit")
     top = max(int(min_nterms), min(int(max_nterms), (t.size - 3) // 2))
     start = fit_harmonics(t, y, dy, frequency, nterms=min(max(3, int(min_nterms)), top), group=group, group_err=group_err)
     whiten = nightly_whitener(dy, group, group_err)
     # Nested least squares by one Cholesky factor R of the normal matrix (R is the R of a QR of
     # the whitened design): the chi-square with the first j columns is |Ly|^2 - |z[:j]|^2,
     # z = R^-T A^T L y.  One pass over the points instead of a QR of the N-row matrix.
-    a_mat = whiten(_design(t - start.t_ref, np.array([start.frequency]), (top,)))
+    a_mat = whiten(design_matrix(t - start.t_ref, np.array([start.frequency]), (top,)))
     wy = whiten(y)
     try:
         chol = np.linalg.cholesky(a_mat.T @ a_mat)

@@ -10,7 +10,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
-import numpy as np
 import pandas as pd
 
 from ..errors import InputError
@@ -119,22 +118,3 @@ def period_of_archive(
                 "amplitude": res.amplitude, "fap": res.fap,
             })
     return StoredPeriod(res, record, lc, analysis)
-
-
-def phased_model(res: PeriodResult, n: int = 400) -> dict[str, tuple[np.ndarray, np.ndarray]]:
-    """Per band, one cycle of the main signal's model on a phase grid (phase 0 at the result's epoch)."""
-    phase = np.linspace(0.0, 1.0, n, endpoint=False)
-    return {b: (phase, res.main_model(res.epoch + phase * res.period, b)) for b in res.fits}
-
-
-def phased_data(res: PeriodResult, lc: pd.DataFrame) -> tuple[pd.DataFrame, np.ndarray]:
-    """The light curve with the further frequencies removed (what folds at the adopted
-    period), and the residuals of every point from the whole model."""
-    main = lc.copy()
-    resid = np.empty(len(lc))
-    t, mag = lc["bjd_tdb"].to_numpy(), lc["mag"].to_numpy()
-    for b in res.fits:
-        m = (lc["band"] == b).to_numpy()
-        main.loc[m, "mag"] = mag[m] - res.other_signals(t[m], b)
-        resid[m] = mag[m] - res.model(t[m], b)
-    return main, resid
