@@ -349,7 +349,7 @@ def demo_lightcurve_figure(demo) -> Figure:
 
 
 def demo_colour_figure(demo) -> Figure:
-    return colour_figure(demo.lc, title=f"{demo.name}: {demo.star}", phase=demo.phase, period_d=demo.period_eph)
+    return colour_figure(demo.lc, title=f"{demo.name}: {demo.star}", phase=demo.phase, period=demo.period_eph)
 
 
 def demo_cmd_figure(demo) -> Figure:
@@ -365,7 +365,7 @@ def demo_periodogram_figure(demo) -> Figure:
 
 def demo_phased_figure(demo) -> Figure:
     res = demo.res
-    return phased_figure(demo.lcp, period_d=res.period, epoch_bjd=res.epoch, model=demo.model, residuals=demo.resid,
+    return phased_figure(demo.lcp, period=res.period, epoch=res.epoch, model=demo.model, residuals=demo.resid,
                          title=f"{demo.name}: {demo.star}, P = {res.period:.7f} d")
 
 
@@ -784,7 +784,7 @@ def test_phased_figure_names_the_model_when_only_a_later_band_has_one():
     lc = make_lc(n_nights=2, n_flagged=0)
     ph = np.linspace(0, 1, 100, endpoint=False)
     model = {"V": (ph, 13.05 + 0.3 * np.sin(2 * np.pi * ph))}  # B (the first band) has no model
-    fig = phased_figure(lc, period_d=0.46173, epoch_bjd=2461295.65, model=model, residuals=np.zeros(len(lc)))
+    fig = phased_figure(lc, period=0.46173, epoch=2461295.65, model=model, residuals=np.zeros(len(lc)))
     assert sorted(legend_texts(fig.axes[0].get_legend())) == ["B", "V", "fitted model"]
 
 

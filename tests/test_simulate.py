@@ -174,7 +174,7 @@ def test_demo_scenario_shape(demo):
     assert min(colours) >= 0.3 and max(colours) <= 1.4
     assert all(abs(b.colour_term) <= 0.1 and b.colour_term != 0 for b in scenario.bands)
     tgt = info["target"]
-    assert 0.3 <= tgt["period_d"] <= 0.6 and 0.5 <= tgt["amplitude_p2p"]["V"] <= 0.8
+    assert 0.3 <= tgt["period"] <= 0.6 and 0.5 <= tgt["amplitude_p2p"]["V"] <= 0.8
     assert tgt["amplitude_p2p"]["B"] > tgt["amplitude_p2p"]["V"]
     var = info["variable_comparisons"]
     assert len(var) == 1 and 0.06 <= var[0]["amplitude_p2p"]["V"] <= 0.1
@@ -347,7 +347,7 @@ def test_variability_truth(demo):
     assert v1[bright]["colour_true"].mean() < v1[~bright]["colour_true"].mean() - 0.05
     # Light curve is phased on BJD_TDB with maximum light at the epoch.
     p = scenario.stars[0].variability
-    ph = ((v1["bjd_tdb"] - p.epoch_bjd_tdb) / p.period_d) % 1.0
+    ph = ((v1["bjd_tdb"] - p.epoch) / p.period) % 1.0
     vv = v1[v1["band"] == "V"]
     np.testing.assert_allclose(vv["mag_true"], 13.05 + 0.68 * S.pulsation_template(ph[vv.index]), atol=1e-12)
     c4 = tr[(tr["star"] == "C4") & (tr["band"] == "V")]["mag_true"]
@@ -392,7 +392,7 @@ def test_written_files_read_back(demo, tmp_path):
     import json
 
     info = json.loads((tmp_path / "truth.json").read_text())
-    assert info["target"]["period_d"] == scenario.stars[0].variability.period_d
+    assert info["target"]["period"] == scenario.stars[0].variability.period
     assert info["scenario"]["seed"] == scenario.seed
     try:
         from varstar.measurements import read_measurements
@@ -459,7 +459,7 @@ def test_synthetic_airmass_and_light_curve_against_astropy():
     comps = [s.id for s in tgt.stars_with_role("comparison")]
     diff = v["V1"] - v[comps].mean(axis=1)
     bjd = pd.Series(et.bjd_tdb, index=exp["frame"].to_numpy())[v.index]
-    model = truth["amplitude_p2p"]["V"] * S.pulsation_template(((bjd - truth["epoch_bjd_tdb"]) / truth["period_d"]) % 1.0)
+    model = truth["amplitude_p2p"]["V"] * S.pulsation_template(((bjd - truth["epoch"]) / truth["period"]) % 1.0)
     resid = diff - model
     assert resid.std() < 0.02 and np.corrcoef(diff, model)[0, 1] > 0.99
 

@@ -88,7 +88,7 @@ def test_second_order_extinction_must_be_removed_for_mu(tmp_path):
 def _red_target_scenario(seed: int):
     """A red pulsating target (B-V ~ 1.3) among blue comparison stars (B-V ~ 0.5), known colour terms."""
     sc = _camera(demo_scenario())
-    puls = Pulsation(period_d=0.3712, epoch_bjd_tdb=2461295.21, amplitude={"V": 0.45, "B": 0.60}, n_harmonics=4)
+    puls = Pulsation(period=0.3712, epoch=2461295.21, amplitude={"V": 0.45, "B": 0.60}, n_harmonics=4)
     stars = [SimStar("R1", "target", V=12.8, BV=1.30, variability=puls, in_catalogue=False)]
     for k, (v, c) in enumerate(((11.6, 0.42), (12.1, 0.55), (12.5, 0.48), (12.9, 0.61), (13.3, 0.39), (13.6, 0.52))):
         stars.append(SimStar(f"C{k + 1}", "comparison", V=v, BV=c, catalog_err={"V": 0.004, "B": 0.005}))

@@ -110,14 +110,14 @@ def test_find_timings_reports_the_table_names():
         template=lambda x: 2.0 * BASE - dip(x),
     )
     assert refused == []
-    assert (tm_min.method, tm_min.second_method) == (KWEE_VAN_WOERDEN, SYMMETRIC_POLYNOMIAL)
-    assert (tm_max.method, tm_max.second_method) == (MEAN_CURVE_TEMPLATE, KWEE_VAN_WOERDEN)
-    reported = {tm_min.method, tm_min.second_method, tm_max.method, tm_max.second_method}
+    assert (tm_min.method, tm_min.check_method) == (KWEE_VAN_WOERDEN, SYMMETRIC_POLYNOMIAL)
+    assert (tm_max.method, tm_max.check_method) == (MEAN_CURVE_TEMPLATE, KWEE_VAN_WOERDEN)
+    reported = {tm_min.method, tm_min.check_method, tm_max.method, tm_max.check_method}
     assert reported == set(ESTIMATORS)
     for tm in (tm_min, tm_max):
         # Simulated truth: both estimates of the invented extremum land on it.
         assert abs(tm.bjd_tdb - T_CENTRE) < 4.0 * tm.err
-        assert abs(tm.second_bjd_tdb - T_CENTRE) < 4.0 * tm.second_err
+        assert abs(tm.check_bjd_tdb - T_CENTRE) < 4.0 * tm.check_err
 
 
 @pytest.mark.parametrize("bad", ["kvw", "Kwee-van-Woerden", "", None, ["kwee-van-woerden"]])

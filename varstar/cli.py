@@ -222,7 +222,7 @@ def cmd_colour(args: argparse.Namespace) -> int:
         ph = phases(lc["bjd_tdb"].to_numpy(), target)
         eph = summary.get("ephemeris")
         save(colour_figure(lc, title=f"{target.name}: {summary['star']}", phase=ph,
-                           period_d=eph["period"] if eph else None), args.output)
+                           period=eph["period"] if eph else None), args.output)
         summary["plot"] = str(args.output)
         text += f"\nwrote {args.output}"
     if args.diagram:
@@ -266,7 +266,7 @@ def cmd_period(args: argparse.Namespace) -> int:
         text += f"\nwrote {args.output}"
     if args.phased:
         lc, resid = phased_data(res, out.lightcurve)
-        save(phased_figure(lc, period_d=res.period, epoch_bjd=res.epoch, model=phased_model(res), residuals=resid,
+        save(phased_figure(lc, period=res.period, epoch=res.epoch, model=phased_model(res), residuals=resid,
                            title=f"{name}: {payload['star']}, P = {res.period:.7f} d, phase 0 at {res.epoch_kind} light"),
              args.phased)
         payload["phased_plot"] = str(args.phased)

@@ -133,7 +133,7 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
     colour_png = folder / "colour.png"
     eph = colour.get("ephemeris")
     save(colour_figure(lc, title=f"{target.name}: {target.target_star.id}", phase=phases(lc["bjd_tdb"].to_numpy(), target),
-                       period_d=eph["period"] if eph else None), colour_png)
+                       period=eph["period"] if eph else None), colour_png)
     last = str(nights_df["label"].iloc[-1])
     field, track = field_diagram(arch, last)
     cmd_png = folder / f"colour-magnitude-{last}.png"
@@ -149,7 +149,7 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
                             peaks=found.to_dict()["aliases"][:4], theta=res.theta,
                             title=f"{target.name}: {target.target_star.id}, {res.method}", ylabel="normalised power"), pg_png)
     lcp, resid = phased_data(res, found.lightcurve)
-    save(phased_figure(lcp, period_d=res.period, epoch_bjd=res.epoch, model=phased_model(res), residuals=resid,
+    save(phased_figure(lcp, period=res.period, epoch=res.epoch, model=phased_model(res), residuals=resid,
                        title=f"{target.name}: {target.target_star.id}, P = {res.period:.7f} d"), ph_png)
     files += [pg_png, ph_png]
 

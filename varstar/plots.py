@@ -233,7 +233,7 @@ def coefficient_figure(fit) -> "Figure":
     return literal_text(fig)
 
 
-def colour_figure(lc: pd.DataFrame, *, title: str = "", phase: np.ndarray | None = None, period_d: float | None = None) -> "Figure":
+def colour_figure(lc: pd.DataFrame, *, title: str = "", phase: np.ndarray | None = None, period: float | None = None) -> "Figure":
     """The star's standard B − V against BJD_TDB (and against phase when given).
 
     A second axis gives the Ballesteros (2012) temperature of the colour (before
@@ -251,7 +251,7 @@ def colour_figure(lc: pd.DataFrame, *, title: str = "", phase: np.ndarray | None
     style = {nt: (PALETTE[k % len(PALETTE)], MARKERS[(k // len(PALETTE) + k) % len(MARKERS)]) for k, nt in enumerate(nights)}
     xs = [(axes[0], d["bjd_tdb"].to_numpy() - t0, f"BJD_TDB − {t0:.0f} (d)")]
     if phase is not None:
-        xs.append((axes[1], np.asarray(phase)[sel], f"phase (period {period_d:.6f} d)" if period_d else "phase"))
+        xs.append((axes[1], np.asarray(phase)[sel], f"phase (period {period:.6f} d)" if period else "phase"))
     for ax, x, xlabel in xs:
         for nt in nights:
             m = (d["night"] == nt).to_numpy()
@@ -393,8 +393,8 @@ def periodogram_figure(
 def phased_figure(
     lc: pd.DataFrame,
     *,
-    period_d: float,
-    epoch_bjd: float,
+    period: float,
+    epoch: float,
     model: dict[str, tuple[np.ndarray, np.ndarray]],
     residuals: np.ndarray,
     title: str = "",
@@ -412,7 +412,7 @@ def phased_figure(
     """
     fig = _figure(2, width=9.0, height_per=3.0)
     ax, axr = fig.subplots(2, 1, sharex=True, gridspec_kw={"height_ratios": [3, 1]})
-    phase = np.mod((lc["bjd_tdb"].to_numpy() - epoch_bjd) / period_d, 1.0)
+    phase = np.mod((lc["bjd_tdb"].to_numpy() - epoch) / period, 1.0)
     model_label = "fitted model"  # a harmonic series or an eclipse template: named once, on the first band that has one
     for k, band in enumerate(sorted(pd.unique(lc["band"]))):
         m = (lc["band"] == band).to_numpy()
@@ -436,7 +436,7 @@ def phased_figure(
     axr.axhline(0.0, color="black", lw=0.8)
     axr.invert_yaxis()
     axr.set_ylabel("data − fit (mag)")
-    axr.set_xlabel(f"phase (P = {period_d:.6f} d, epoch BJD_TDB {epoch_bjd:.5f}); two cycles shown")
+    axr.set_xlabel(f"phase (P = {period:.6f} d, epoch BJD_TDB {epoch:.5f}); two cycles shown")
     axr.grid(alpha=0.3)
     if title:
         fig.suptitle(title)

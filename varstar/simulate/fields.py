@@ -25,8 +25,8 @@ def demo_scenario() -> Scenario:
     target V1 pulsates with P = 0.46173 d and a V range of 0.68 mag; comparison
     C4 is secretly variable (0.08 mag, 1.7313 d); clouds pass on the third night.
     """
-    p = Pulsation(period_d=0.46173, epoch_bjd_tdb=2461295.3827, amplitude={"V": 0.68, "B": 0.89}, n_harmonics=5)
-    c4 = Sinusoid(period_d=1.7313, epoch_bjd_tdb=2461294.911, amplitude={"V": 0.080, "B": 0.092})
+    p = Pulsation(period=0.46173, epoch=2461295.3827, amplitude={"V": 0.68, "B": 0.89}, n_harmonics=5)
+    c4 = Sinusoid(period=1.7313, epoch=2461294.911, amplitude={"V": 0.080, "B": 0.092})
     stars = (
         SimStar("V1", "target", V=13.05, BV=0.38, catalog_err={"V": 0.05, "B": 0.06}, variability=p, in_catalogue=False),
         SimStar("C1", "comparison", V=11.38, BV=0.52, catalog_err={"V": 0.008, "B": 0.010}),

@@ -65,19 +65,19 @@ class Pulsation:
     amplitudes differ between bands.
     """
 
-    period_d: float
-    epoch_bjd_tdb: float
+    period: float
+    epoch: float
     amplitude: Mapping[str, float]
     n_harmonics: int = 5
 
     def delta_mag(self, bjd_tdb: np.ndarray, band: str) -> np.ndarray:
         """Magnitude change in ``band`` at ``bjd_tdb`` (the template times the band's amplitude)."""
-        phase = (np.asarray(bjd_tdb, dtype=float) - self.epoch_bjd_tdb) / self.period_d
+        phase = (np.asarray(bjd_tdb, dtype=float) - self.epoch) / self.period
         return self.amplitude[band] * pulsation_template(phase % 1.0, self.n_harmonics)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-safe description (``kind`` and the parameters), as ``truth.json`` records it."""
-        return {"kind": "pulsation", "period_d": self.period_d, "epoch_bjd_tdb": self.epoch_bjd_tdb,
+        return {"kind": "pulsation", "period": self.period, "epoch": self.epoch,
                 "amplitude_p2p": dict(self.amplitude), "n_harmonics": self.n_harmonics,
                 "epoch_is": "maximum light"}
 
@@ -86,18 +86,18 @@ class Pulsation:
 class Sinusoid:
     """Small sinusoidal variation; ``amplitude`` maps band -> peak-to-peak (mag)."""
 
-    period_d: float
-    epoch_bjd_tdb: float
+    period: float
+    epoch: float
     amplitude: Mapping[str, float]
 
     def delta_mag(self, bjd_tdb: np.ndarray, band: str) -> np.ndarray:
         """Magnitude change in ``band`` at ``bjd_tdb``: half the peak-to-peak amplitude times a sine."""
-        arg = 2.0 * np.pi * (np.asarray(bjd_tdb, dtype=float) - self.epoch_bjd_tdb) / self.period_d
+        arg = 2.0 * np.pi * (np.asarray(bjd_tdb, dtype=float) - self.epoch) / self.period
         return 0.5 * self.amplitude[band] * np.sin(arg)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-safe description (``kind`` and the parameters), as ``truth.json`` records it."""
-        return {"kind": "sinusoid", "period_d": self.period_d, "epoch_bjd_tdb": self.epoch_bjd_tdb,
+        return {"kind": "sinusoid", "period": self.period, "epoch": self.epoch,
                 "amplitude_p2p": dict(self.amplitude), "epoch_is": "mean brightness, getting fainter"}
 
 

@@ -124,12 +124,12 @@ def synthetic_exposures(
 
 def synthetic_true_magnitudes(
     fld: SyntheticField, exp: SyntheticExposures, bands: tuple[str, ...],
-    period_d: float, epoch_bjd_tdb: float, amplitude_v: float,
+    period: float, epoch: float, amplitude_v: float,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Peak-to-peak amplitude per band, and true magnitude and B-V (exposure, star); only ``V1`` varies."""
     n_frames, n_stars = exp.jd.size, len(fld.ids)
     amp = amplitude_v * (1.0 + 0.31 * fld.slope)  # B larger than V, redder bands smaller (RR-Lyrae-like)
-    shape = pulsation_template(((exp.bjd - epoch_bjd_tdb) / period_d) % 1.0)
+    shape = pulsation_template(((exp.bjd - epoch) / period) % 1.0)
     mag_true = np.broadcast_to(fld.std_mean[exp.band_idx], (n_frames, n_stars)).copy()
     mag_true[:, 0] += amp[exp.band_idx] * shape
     i_b = bands.index("B") if "B" in bands else None
@@ -231,8 +231,8 @@ def synthetic_night(
     elevation_m: float = 2050.0,
     night_hours: float = 7.0,
     centre_on_transit: bool = True,
-    period_d: float = 0.46173,
-    epoch_bjd_tdb: float = 2461295.3827,
+    period: float = 0.46173,
+    epoch: float = 2461295.3827,
     amplitude_v: float = 0.68,
     missing_fraction: float = 0.003,
     flag_fraction: float = 0.001,
@@ -281,12 +281,12 @@ def synthetic_night(
     fld = synthetic_field(n_stars, bands, field_seed)
     exp = synthetic_exposures(n_exposures * len(bands), bands, start_jd, night_hours, centre_on_transit,
                               ra_deg, dec_deg, latitude_deg, longitude_deg)
-    amp, mag_true, colour = synthetic_true_magnitudes(fld, exp, bands, period_d, epoch_bjd_tdb, amplitude_v)
+    amp, mag_true, colour = synthetic_true_magnitudes(fld, exp, bands, period, epoch, amplitude_v)
     mag, mag_err, flag, keep = synthetic_measure(exp, mag_true, colour, tel, elevation_m, rng,
                                                  missing_fraction, flag_fraction)
     df = _synthetic_table(fld, exp, bands, longitude_deg, mag, mag_err, flag, keep)
     df.attrs["truth"] = {
-        "target": "V1", "period_d": period_d, "epoch_bjd_tdb": epoch_bjd_tdb,
+        "target": "V1", "period": period, "epoch": epoch,
         "amplitude_p2p": {b: float(a) for b, a in zip(bands, amp)},
     }
     toml = _synthetic_toml(fld, bands, field_seed, ra_deg, dec_deg, latitude_deg, longitude_deg, elevation_m)

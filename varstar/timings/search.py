@@ -59,13 +59,13 @@ class Timing(Result):
         Observed minus the ephemeris' time for E (days).
     predicted_bjd_tdb
         The ephemeris' time for E.
-    second_method, second_bjd_tdb, second_err
+    check_method, check_bjd_tdb, check_err
         The independent estimate (symmetric polynomial, or Kwee & van Woerden beside a
         template fit; NaN if it failed).
     disagree
-        ``|bjd_tdb - second_bjd_tdb| > DISAGREE_SIGMA * sqrt(err^2 + second_err^2)``.
+        ``|bjd_tdb - check_bjd_tdb| > DISAGREE_SIGMA * sqrt(err^2 + check_err^2)``.
         Both estimates use the same points, so their difference scatters less
-        than ``sqrt(err^2 + second_err^2)``: a flag is a real warning
+        than ``sqrt(err^2 + check_err^2)``: a flag is a real warning
         (asymmetric extremum, outliers, trends), not a 1-in-370 fluctuation.
     n_points
         Points used by the estimators.
@@ -90,9 +90,9 @@ class Timing(Result):
     cycle: float
     o_minus_c: float
     predicted_bjd_tdb: float
-    second_method: str
-    second_bjd_tdb: float
-    second_err: float
+    check_method: str
+    check_bjd_tdb: float
+    check_err: float
     disagree: bool
     n_points: int
     n_pairs: float
@@ -217,7 +217,7 @@ def find_timings(
                 "template": template, "t_guess": kvw.time, "max_shift": window_fraction * period_here,
             },
         }
-        main, second_method, t2, e2, disagree, note = _estimates(tu, mu, eu, kvw, pair, options, disagree_sigma)
+        main, check_method, t2, e2, disagree, note = _estimates(tu, mu, eu, kvw, pair, options, disagree_sigma)
         if kvw.asymmetry_pvalue < ASYMMETRY_PVALUE:
             note = "; ".join(x for x in (note, _asymmetry_note(kvw, main.method)) if x)
         timings.append(
@@ -231,9 +231,9 @@ def find_timings(
                 cycle=float(e),
                 o_minus_c=float(main.time - tp),
                 predicted_bjd_tdb=float(tp),
-                second_method=second_method,
-                second_bjd_tdb=float(t2),
-                second_err=float(e2),
+                check_method=check_method,
+                check_bjd_tdb=float(t2),
+                check_err=float(e2),
                 disagree=bool(disagree),
                 n_points=int(use.sum()),
                 n_pairs=kvw.n_pairs,

@@ -146,8 +146,8 @@ def _listing(before: pd.DataFrame, new: list[Any], cycles: np.ndarray, oc: np.nd
         else:
             t = new[i - len(stored_rows)]
             d = {"bjd_tdb": t.bjd_tdb, "err": t.err, "method": t.method, "band": t.band, "type": t.type,
-                 "night": t.night, "check_method": t.second_method, "check_bjd_tdb": t.second_bjd_tdb,
-                 "check_err": t.second_err, "disagree": bool(t.disagree), "n_points": int(t.n_points),
+                 "night": t.night, "check_method": t.check_method, "check_bjd_tdb": t.check_bjd_tdb,
+                 "check_err": t.check_err, "disagree": bool(t.disagree), "n_points": int(t.n_points),
                  "note": "; ".join(x for x in (t.note, note) if x), "new": True}
         d.update(cycle=float(cycles[i]), o_minus_c=float(oc[i]))
         listing.append(d)
@@ -223,8 +223,8 @@ def timings_of_archive(
                 eph_no = w.append_ephemeris(eph, "target description [ephemeris]")
             numbers["timings"] = w.append_timings([
                 {"night": t.night, "band": t.band, "type": t.type, "method": t.method, "bjd_tdb": t.bjd_tdb,
-                 "err": t.err, "check_method": t.second_method, "check_bjd_tdb": t.second_bjd_tdb,
-                 "check_err": t.second_err, "disagree": int(t.disagree), "cycle": t.cycle, "o_minus_c": t.o_minus_c,
+                 "err": t.err, "check_method": t.check_method, "check_bjd_tdb": t.check_bjd_tdb,
+                 "check_err": t.check_err, "disagree": int(t.disagree), "cycle": t.cycle, "o_minus_c": t.o_minus_c,
                  "ephemeris": eph_no, "n_points": t.n_points, "note": "; ".join(x for x in (t.note, note) if x)}
                 for t in new
             ])
