@@ -267,7 +267,7 @@ def test_find_peaks_orders_distinct_maxima():
 
 def test_relate_names_aliases_and_harmonics():
     # alias arithmetic (VanderPlas 2018, ApJS 236, 16: f +- n c/d, f +- 1 c/yr)
-    kw = dict(baseline_days=30.0)
+    kw = dict(baseline_d=30.0)
     assert relate(2.3, 3.3, **kw) == "+1 c/d alias"
     assert relate(2.3, 3.3027, **kw) == "+1 c/d alias"  # one sidereal day
     assert relate(2.3, 1.31, **kw) == "-1 c/d alias"
@@ -281,9 +281,9 @@ def test_relate_names_aliases_and_harmonics():
     assert relate(2.3, 2.31, **kw) == "same peak"
     # 1 c/yr only where the baseline resolves it
     yr = 1 / 365.25
-    assert relate(0.00333, 0.00333 + yr, baseline_days=1000.0) == "+1 c/yr alias"
-    assert relate(0.00333, 0.00333 - yr, baseline_days=1000.0) == "-1 c/yr alias"
-    assert relate(2.3, 2.3 + yr, baseline_days=30.0) == "same peak"
+    assert relate(0.00333, 0.00333 + yr, baseline_d=1000.0) == "+1 c/yr alias"
+    assert relate(0.00333, 0.00333 - yr, baseline_d=1000.0) == "-1 c/yr alias"
+    assert relate(2.3, 2.3 + yr, baseline_d=30.0) == "same peak"
 
 
 def test_alias_report_secure_and_insecure():
@@ -296,7 +296,7 @@ def test_alias_report_secure_and_insecure():
     y = 12 + 0.1 * np.cos(TWO_PI * f0 * (t - T_START)) + 0.02 * rng.standard_normal(t.size)
     span = t.max() - t.min()
     freq = np.arange(0.05, 6, 1 / (10 * span))
-    rep = alias_report(freq, gls(t, y, dy, freq), baseline_days=span)
+    rep = alias_report(freq, gls(t, y, dy, freq), baseline_d=span)
     assert rep.secure and "is secure" in rep.note
     assert abs(rep.best_frequency - f0) < 1 / span
     relations = [p.relation for p in rep.peaks[1:3]]
@@ -308,7 +308,7 @@ def test_alias_report_secure_and_insecure():
     y = 12 + 0.08 * np.cos(TWO_PI * f0 * (t - T_START)) + 0.05 * rng.standard_normal(t.size)
     span = t.max() - t.min()
     freq = np.arange(0.05, 6, 1 / (20 * span))
-    rep = alias_report(freq, gls(t, y, dy, freq), baseline_days=span)
+    rep = alias_report(freq, gls(t, y, dy, freq), baseline_d=span)
     assert not rep.secure
     assert "not secure" in rep.note and "longitude" in rep.note
     assert "c/d" in rep.peaks[1].relation and rep.peaks[1].power_ratio > rep.secure_ratio

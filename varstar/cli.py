@@ -130,7 +130,7 @@ def cmd_plot(args: argparse.Namespace) -> int:
     arch = open_archive(args.archive)
     lc = arch.lightcurve(band=args.band, star=args.star, include_flagged=args.show_flagged)
     if args.night:
-        if args.night not in set(arch.nights()["label"]):
+        if args.night not in set(arch.nights()["night"]):
             raise ArchiveError(f"{arch.path}: no night '{args.night}' (see 'varstar summary')")
         lc = lc[lc["night"] == args.night]
     fig = lightcurve_figure(lc, title=f"{arch.target.name} — {lc['star'].iloc[0] if len(lc) else ''}", show_flagged=args.show_flagged)
@@ -193,10 +193,10 @@ def cmd_transform(args: argparse.Namespace) -> int:
         if active is None:
             raise InputError(f"{args.archive}: no coefficients yet: give --coefficients FILE (a setups file or a TOML with [transformation])")
         _, coeffs, gap = active
-    if args.max_gap is not None:
-        if not 0 < args.max_gap <= 240:
-            raise InputError(f"--max-gap {args.max_gap:g}: give minutes in (0, 240]")
-        gap = args.max_gap / 1440.0
+    if args.max_gap_minutes is not None:
+        if not 0 < args.max_gap_minutes <= 240:
+            raise InputError(f"--max-gap-minutes {args.max_gap_minutes:g}: give minutes in (0, 240]")
+        gap = args.max_gap_minutes / 1440.0
     res = transform_archive(args.archive, coeffs, gap, timeout_s=args.wait)
     _emit(args, res, fmt.format_transform(res.to_dict()))
     return 0
@@ -213,7 +213,7 @@ def cmd_colour(args: argparse.Namespace) -> int:
     target = arch.target
     lc = arch.lightcurve(star=args.star)
     if args.night:
-        if args.night not in set(arch.nights()["label"]):
+        if args.night not in set(arch.nights()["night"]):
             raise ArchiveError(f"{arch.path}: no night '{args.night}' (see 'varstar summary')")
         lc = lc[lc["night"] == args.night]
     summary = colour_summary(lc, target)
@@ -226,7 +226,7 @@ def cmd_colour(args: argparse.Namespace) -> int:
         summary["plot"] = str(args.output)
         text += f"\nwrote {args.output}"
     if args.diagram:
-        night = args.night or str(arch.nights()["label"].iloc[-1])
+        night = args.night or str(arch.nights()["night"].iloc[-1])
         field, track = field_diagram(arch, night)
         save(colour_magnitude_figure(field, track, title=f"{target.name}, night {night}"), args.diagram)
         summary["diagram"] = {"file": str(args.diagram), "night": night, "stars": field.to_dict(orient="records")}
@@ -419,7 +419,9 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("archive", type=Path)
     sp.add_argument("--coefficients", type=Path, metavar="FILE", help="a setups file or a TOML with a [transformation] table (default: the archive's current set)")
     sp.add_argument("--setup", metavar="NAME", help="which setup of the setups file")
-    sp.add_argument("--max-gap", type=float, metavar="MINUTES", help="largest time between paired V and B exposures")
+    sp.add_argument("--max-gap-minutes", "--max-gap", dest="max_gap_minutes", type=float, metavar="MINUTES",
+                    help="largest time between paired V and B exposures (the target file's max_gap_minutes; "
+                         "--max-gap is its old name, kept for one release)")
     sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
 
     sp = add("colour", cmd_colour, "standard B - V of the target: range, temperature, plots")

@@ -123,7 +123,7 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
     files = [archive, setups, fits_png, plot]
     nights_df = arch.nights()
     if int(nights_df["n_flagged"].max()) > 0:  # zoom on the night with passing clouds
-        label = str(nights_df.loc[nights_df["n_flagged"].idxmax(), "label"])
+        label = str(nights_df.loc[nights_df["n_flagged"].idxmax(), "night"])
         zoom = folder / f"night-{label}.png"
         save(lightcurve_figure(lc_all[lc_all["night"] == label], title=f"{target.name}: {target.target_star.id}, night {label}", show_flagged=True), zoom)
         files.append(zoom)
@@ -134,7 +134,7 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
     eph = colour.get("ephemeris")
     save(colour_figure(lc, title=f"{target.name}: {target.target_star.id}", phase=phases(lc["bjd_tdb"].to_numpy(), target),
                        period=eph["period"] if eph else None), colour_png)
-    last = str(nights_df["label"].iloc[-1])
+    last = str(nights_df["night"].iloc[-1])
     field, track = field_diagram(arch, last)
     cmd_png = folder / f"colour-magnitude-{last}.png"
     save(colour_magnitude_figure(field, track, title=f"{target.name}, night {last}"), cmd_png)

@@ -80,7 +80,7 @@ def format_summary(s: dict[str, Any]) -> str:
         f"archive {s['archive']}, schema {s['schema_version']}, {s['n_nights']} night(s)",
     ]
     for n in s["nights"]:
-        lines.append(f"  {n['label']}: {n['n_exposures']} exposures, {n['n_flagged']} flagged (ingested {n['ingested_utc']})")
+        lines.append(f"  {n['night']}: {n['n_exposures']} exposures, {n['n_flagged']} flagged (ingested {n['ingested_utc']})")
     for band, b in s["bands"].items():
         lines.append(
             f"  {band}: {b['n_points']} points ({b['n_standard']} on the standard system; {b['n_flagged']} flagged left out), "
@@ -131,7 +131,7 @@ def format_period(d: dict[str, Any]) -> str:
         f"frequency {_pm(d['frequency'], d['frequency_err'], 6)} c/d)",
         f"  refined by: {d['period_method']}",
         f"  errors: {d['errors']}",
-        f"  data: {d['n_points']} points in {', '.join(d['bands'])} over {d['baseline_days']:.1f} d, "
+        f"  data: {d['n_points']} points in {', '.join(d['bands'])} over {d['baseline_d']:.1f} d, "
         f"{len(d['nights'])} nights",
         f"  epoch of {d['epoch_kind']} light {_pm(d['epoch'], d['epoch_err'], 5)} BJD_TDB; "
         f"amplitude {_fmt(d['amplitude'])}" + (f" ± {_fmt(d['amplitude_err'])}" if d.get("amplitude_err") is not None else "")

@@ -67,12 +67,32 @@ def history(f: h5py.File, table: str) -> pd.DataFrame:
     return pd.DataFrame(tables.read(f, table))
 
 
+def decoded(f: h5py.File, table: str, start: int = 0) -> pd.DataFrame:
+    """A per-night table from row ``start`` on, as people read it.
+
+    ``night`` is the night's label (its evening date) and ``night_number`` the
+    number the archive files it under; ``band`` and ``star`` are names.  The
+    columns ``night_label`` (and ``band_name`` for timings) repeat the label and
+    the band under their names of earlier releases, kept for one release.
+    """
+    df = pd.DataFrame(tables.read(f, table, start=start))
+    names = {"band": tables.read(f, "bands", ["name"])["name"], "star": tables.read(f, "stars", ["id"])["id"]}
+    for col, lookup in names.items():
+        if col in df:
+            df[col] = lookup[df[col].to_numpy()] if len(df) else pd.Series(dtype=object)
+    labels = labels_of(night_labels(f), df["night"].to_numpy())
+    df.insert(df.columns.get_loc("night"), "night_number", df.pop("night"))
+    df.insert(df.columns.get_loc("night_number"), "night", labels)
+    df["night_label"] = labels
+    return df
+
+
 def timings(f: h5py.File) -> pd.DataFrame:
-    """Every stored timing with ``night_label`` and ``band_name`` decoded, in time order."""
-    t = history(f, "timings")
+    """Every stored timing, decoded as :func:`decoded` does, in time order."""
     if not tables.has_table(f, "timings"):
-        return t.assign(night_label=[], band_name=[])
-    bands = tables.read(f, "bands", ["name"])["name"]
-    t["night_label"] = labels_of(night_labels(f), t["night"].to_numpy()) if len(t) else []
-    t["band_name"] = [str(bands[int(b)]) for b in t["band"]] if len(t) else []
+        columns = ["night_number" if c == "night" else c for c in tables.TABLES["timings"]]
+        columns.insert(columns.index("night_number"), "night")
+        return pd.DataFrame(columns=[*columns, "night_label", "band_name"])
+    t = decoded(f, "timings")
+    t["band_name"] = t["band"]
     return t.sort_values("bjd_tdb", kind="stable").reset_index(drop=True)

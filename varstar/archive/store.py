@@ -118,16 +118,9 @@ class ArchiveStore:
             check_root(f, self.path)
 
     def _decoded_table(self, table: str, start: int = 0) -> pd.DataFrame:
-        """A per-night table from row ``start`` on, with band and star codes as names and a ``night_label``."""
+        """A per-night table from row ``start`` on, decoded (see :func:`.records.decoded`)."""
         with self._open() as f:
-            df = pd.DataFrame(tables.read(f, table, start=start))
-            names = {"band": tables.read(f, "bands", ["name"])["name"], "star": tables.read(f, "stars", ["id"])["id"]}
-            labels = tables.read(f, "nights", ["night", "label"])
-        for col, lookup in names.items():
-            if col in df:
-                df[col] = lookup[df[col].to_numpy()] if len(df) else pd.Series(dtype=object)
-        df.insert(1, "night_label", records.labels_of(pd.DataFrame(labels), df["night"].to_numpy()))
-        return df
+            return records.decoded(f, table, start)
 
     # -- contents --------------------------------------------------------------
     @property
@@ -145,10 +138,13 @@ class ArchiveStore:
             ) from None
 
     def nights(self) -> pd.DataFrame:
-        """One row per ingested night (label, counts, time span, ingest date)."""
+        """One row per ingested night: ``night`` (its label, the evening date), ``night_number``, counts,
+        time span, ingest date (``label`` repeats ``night``, its name of earlier releases, for one release)."""
         with self._open() as f:
             d = tables.read(f, "nights")
         df = pd.DataFrame({k: v for k, v in d.items() if k != "report"})
+        df.insert(0, "night_number", df.pop("night"))
+        df.insert(0, "night", df["label"])
         return df
 
     def night_report(self, label: str) -> dict[str, Any]:
@@ -324,7 +320,7 @@ class ArchiveStore:
             return records.history(f, "periods")
 
     def timings(self) -> pd.DataFrame:
-        """Every stored timing, in time order (``night_label`` and ``band_name`` decoded)."""
+        """Every stored timing, in time order (night label and band name decoded; see :func:`.records.decoded`)."""
         with self._open() as f:
             return records.timings(f)
 
@@ -411,7 +407,8 @@ class ArchiveStore:
             "n_nights": int(len(nights)),
             "nights": [
                 {
-                    "label": str(r.label),
+                    "night": str(r.night),
+                    "label": str(r.night),  # the old name, kept for one release (README: Changes)
                     "n_exposures": int(r.n_exposures),
                     "n_flagged": int(r.n_flagged),
                     "ingested_utc": str(r.ingested_utc),

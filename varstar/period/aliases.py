@@ -135,7 +135,7 @@ def relate(
     f_best: float,
     f_other: float,
     *,
-    baseline_days: float,
+    baseline_d: float,
     tolerance: float | None = None,
 ) -> str:
     """Name the relation of the peak at ``f_other`` to the best peak at ``f_best``.
@@ -151,14 +151,14 @@ def relate(
     ----------
     f_best, f_other : float
         Frequencies (cycles/day).
-    baseline_days : float
+    baseline_d : float
         Time span ``T`` of the data; sets the default tolerance ``1/T``.
     tolerance : float, optional
         Frequency tolerance (cycles/day) instead of ``1/T``.
     """
-    if not (baseline_days and baseline_days > 0):
-        raise InputError(f"relate: baseline_days must be positive (got {baseline_days!r})")
-    tol = 1.0 / baseline_days if tolerance is None else float(tolerance)
+    if not (baseline_d and baseline_d > 0):
+        raise InputError(f"relate: baseline_d must be positive (got {baseline_d!r})")
+    tol = 1.0 / baseline_d if tolerance is None else float(tolerance)
     if not tol > 0:
         raise InputError(f"relate: tolerance must be positive (got {tolerance!r})")
     best_label, best_score = "unrelated", math.inf
@@ -195,7 +195,7 @@ class AliasReport(Result):
         False when another peak reaches ``secure_ratio`` of the best peak's power.
     note : str
         The verdict in plain words, with what would settle the choice.
-    secure_ratio, baseline_days : float
+    secure_ratio, baseline_d : float
         The settings used.
     peaks : tuple of AliasPeak
         Strongest first; ``peaks[0]`` is the best (relation ``"best"``).
@@ -204,7 +204,7 @@ class AliasReport(Result):
     secure: bool
     note: str
     secure_ratio: float
-    baseline_days: float
+    baseline_d: float
     peaks: tuple[AliasPeak, ...]
 
     @property
@@ -243,7 +243,7 @@ def alias_report(
     freq: Any,
     power: Any,
     *,
-    baseline_days: float,
+    baseline_d: float,
     n: int = 6,
     secure_ratio: float = 0.8,
     tolerance: float | None = None,
@@ -260,7 +260,7 @@ def alias_report(
     ----------
     freq, power : array_like
         A periodogram (larger = better; for PDM pass ``1 - theta``).
-    baseline_days : float
+    baseline_d : float
         Time span of the data.
     n : int
         Peaks to list.
@@ -269,20 +269,20 @@ def alias_report(
     tolerance : float, optional
         Passed to :func:`relate`.
     """
-    if not (baseline_days and baseline_days > 0):
-        raise InputError(f"alias report: baseline_days must be positive (got {baseline_days!r})")
+    if not (baseline_d and baseline_d > 0):
+        raise InputError(f"alias report: baseline_d must be positive (got {baseline_d!r})")
     if not 0 < secure_ratio <= 1:
         raise InputError(f"alias report: secure_ratio must be in (0, 1] (got {secure_ratio})")
     freq = check_freq(freq)
     power = np.asarray(power, dtype=float)
-    idx = find_peaks(freq, power, n=n, min_separation=1.5 / baseline_days)
+    idx = find_peaks(freq, power, n=n, min_separation=1.5 / baseline_d)
     if idx.size == 0:
         raise InputError("alias report: the periodogram has no local maximum inside the frequency grid")
     f0, p0 = float(freq[idx[0]]), float(power[idx[0]])
     peaks = []
     for j, i in enumerate(idx):
         fi, pi = float(freq[i]), float(power[i])
-        rel = "best" if j == 0 else relate(f0, fi, baseline_days=baseline_days, tolerance=tolerance)
+        rel = "best" if j == 0 else relate(f0, fi, baseline_d=baseline_d, tolerance=tolerance)
         ratio = pi / p0 if p0 > 0 else float("nan")
         peaks.append(AliasPeak(1.0 / fi if fi > 0 else float("inf"), fi, pi, ratio, rel))
     rivals = [p for p in peaks[1:] if p.power_ratio >= secure_ratio and p.relation != "same peak"]
@@ -304,6 +304,6 @@ def alias_report(
         note = f"the best peak at P={peaks[0].period:.6g} d is the only peak in the grid"
         secure = True
     return AliasReport(
-        secure=secure, note=note, secure_ratio=float(secure_ratio), baseline_days=float(baseline_days),
+        secure=secure, note=note, secure_ratio=float(secure_ratio), baseline_d=float(baseline_d),
         peaks=tuple(peaks),
     )

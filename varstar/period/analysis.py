@@ -332,7 +332,7 @@ def _pdm_versus_periodogram(t, y, dy, f_peak, f_pdm, theta_pdm, baseline, z_crit
     Appends PDM's candidate (when it is not the periodogram's peak) to ``candidates`` and a
     warning when it is adopted (see the module docstring).
     """
-    rel = aliases.relate(f_peak, f_pdm, baseline_days=baseline)
+    rel = aliases.relate(f_peak, f_pdm, baseline_d=baseline)
     if rel == "same peak":
         return f_peak
     z = _cv_z(t, y, dy, f_pdm, f_peak)
@@ -505,7 +505,7 @@ def analyse(
     _refuse_edge_peak(i_best, freq, baseline, night)
     fap, fap_method, fap_levels, fap_boot = _significance(t, y, dy, band, freq, p_peak, nterms, multi, bootstrap, rng)
 
-    report = aliases.alias_report(freq, power, baseline_days=baseline)
+    report = aliases.alias_report(freq, power, baseline_d=baseline)
 
     # The second method, on the reference band.
     rb = band == reference
@@ -652,7 +652,7 @@ def analyse(
         "best_period_note": "grid value, before refinement",
         "best_theta": float(theta[j_pdm]),
         "theta_at_period": theta_at,
-        "relation_to_period": aliases.relate(frequency, f_pdm, baseline_days=baseline),
+        "relation_to_period": aliases.relate(frequency, f_pdm, baseline_d=baseline),
     }
 
     step = float(freq[1] - freq[0]) if freq.size > 1 else float("nan")
@@ -663,7 +663,7 @@ def analyse(
         epoch=float(epoch), epoch_err=float(epoch_err), epoch_kind=kind,
         frequencies=tuple(entries), multiperiodic=multiperiodic, modes_note=modes_note,
         fap=fap, fap_method=fap_method, fap_bootstrap=fap_boot, fap_levels=fap_levels,
-        n_points=int(t.size), baseline_days=baseline, bands=bands, reference_band=reference,
+        n_points=int(t.size), baseline_d=baseline, bands=bands, reference_band=reference,
         method=method, nterms=nterms, harmonics=n_harm,
         grid={"min_period": 1.0 / float(freq[-1]), "max_period": 1.0 / float(freq[0]),
               "oversampling": float(oversampling), "n_frequencies": int(freq.size), "step": step},

@@ -76,7 +76,7 @@ class PeriodResult:
         bootstrap value when asked for (else NaN).
     fap_levels : dict
         Periodogram power needed for the probabilities in :data:`.analysis.FAP_LEVELS`.
-    n_points, baseline_days : int, float
+    n_points, baseline_d : int, float
     bands : tuple of str
         Bands used; ``reference_band`` is the one whose fit gives amplitude and epoch.
     method, nterms, harmonics : str, int, int
@@ -130,7 +130,7 @@ class PeriodResult:
     fap_bootstrap: float
     fap_levels: dict[float, float]
     n_points: int
-    baseline_days: float
+    baseline_d: float
     bands: tuple[str, ...]
     reference_band: str
     method: str
@@ -205,7 +205,8 @@ class PeriodResult:
             "fap_bootstrap": json_float(self.fap_bootstrap),
             "fap_levels": [{"fap": k, "power": json_float(v)} for k, v in sorted(self.fap_levels.items())],
             "n_points": int(self.n_points),
-            "baseline_days": json_float(self.baseline_days),
+            "baseline_d": json_float(self.baseline_d),
+            "baseline_days": json_float(self.baseline_d),  # the old name, kept for one release (README: Changes)
             "bands": list(self.bands),
             "reference_band": self.reference_band,
             "method": self.method,

@@ -114,7 +114,7 @@ def _time_nights(
     whole = archive.lightcurve(band, columns=ANALYSIS_COLUMNS)
     lc = whole
     if night is not None:
-        if night not in set(archive.nights()["label"]):
+        if night not in set(archive.nights()["night"]):
             raise InputError(f"{archive.path}: no night '{night}' (see 'varstar summary')")
         lc = whole[whole["night"] == night]
     if lc.empty:
@@ -139,8 +139,8 @@ def _listing(before: pd.DataFrame, new: list[Any], cycles: np.ndarray, oc: np.nd
     for i in range(cycles.size):
         if i < len(stored_rows):
             r = stored_rows[i]
-            d = {"bjd_tdb": r.bjd_tdb, "err": r.err, "method": r.method, "band": r.band_name, "type": r.type,
-                 "night": r.night_label, "check_method": r.check_method, "check_bjd_tdb": r.check_bjd_tdb,
+            d = {"bjd_tdb": r.bjd_tdb, "err": r.err, "method": r.method, "band": r.band, "type": r.type,
+                 "night": r.night, "check_method": r.check_method, "check_bjd_tdb": r.check_bjd_tdb,
                  "check_err": r.check_err, "disagree": bool(r.disagree), "n_points": int(r.n_points),
                  "note": r.note, "new": False}
         else:
@@ -189,7 +189,7 @@ def timings_of_archive(
         )
     found, refused = _time_nights(archive, eph, band=band, kind=kind, night=night, seed=seed)
     before = archive.timings()
-    have = {(r.night_label, r.band_name, r.type, float(r.cycle)) for r in before.itertuples()}
+    have = {(r.night, r.band, r.type, float(r.cycle)) for r in before.itertuples()}
     new = [t for t in found if (t.night, t.band, t.type, float(t.cycle)) not in have]
     again = [t for t in found if (t.night, t.band, t.type, float(t.cycle)) in have]
     if night is not None and not found:

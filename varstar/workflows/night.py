@@ -111,7 +111,7 @@ def ingest(
             t["frame"] = p.name + ":" + t["frame"].astype(str)
     table = pd.concat([t for _, t, _ in parsed], ignore_index=True)
     nights = split_nights(target, table)
-    stored = sorted(set(nights) & set(arch.nights()["label"]))
+    stored = sorted(set(nights) & set(arch.nights()["night"]))
     if stored and not replace:
         lab = stored[0]
         raise InputError(
@@ -165,7 +165,7 @@ def _add_history_notes(history: pd.DataFrame, reductions: Sequence[NightReductio
     seen: dict[str, set[str]] = {}
     for r in history.itertuples():
         if r.status == "variable":
-            seen.setdefault(str(r.star), set()).add(str(r.night_label))
+            seen.setdefault(str(r.star), set()).add(str(r.night))
     for red in reductions:
         kept = set(red.comparisons.loc[red.comparisons["status"] == "kept", "star"])
         for star in sorted(kept):

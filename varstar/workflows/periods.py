@@ -113,7 +113,7 @@ def period_of_archive(
         with archive.writing(timeout_s=timeout_s) as w:
             analysis = w.append_period(record, {
                 "star": record["star"], "bands": ",".join(res.bands), "method": res.method, "nterms": res.nterms,
-                "n_points": res.n_points, "nights": ",".join(record["nights"]), "baseline_days": res.baseline_days,
+                "n_points": res.n_points, "nights": ",".join(record["nights"]), "baseline_days": res.baseline_d,
                 "period": res.period, "period_err": res.period_err, "epoch": res.epoch, "epoch_err": res.epoch_err,
                 "amplitude": res.amplitude, "fap": res.fap,
             })

@@ -258,16 +258,16 @@ def field_diagram(arch: ArchiveStore, night: str) -> tuple[pd.DataFrame, pd.Data
         raise ArchiveError(f"{arch.path}: no transformation coefficients yet; see 'varstar transform'")
     _, coeffs, gap = active
     comps = arch.comparisons()
-    comps = comps[comps["night_label"] == night]
+    comps = comps[comps["night"] == night]
     if comps.empty:
         raise ArchiveError(f"{arch.path}: no night '{night}' (see 'varstar summary')")
     ens = arch.ensembles()
-    ens = ens[ens["night_label"] == night]
+    ens = ens[ens["night"] == night]
     if not {"B", "V"} <= set(ens["band"]):
         raise ArchiveError(f"{arch.path}: night {night} lacks B or V exposures: no colours")
     ref = night_reference_from_tables(target, coeffs, comps, ens)
     exp = arch.exposures()
-    x_mean = float(exp.loc[exp["night_label"] == night, "airmass"].mean())
+    x_mean = float(exp.loc[exp["night"] == night, "airmass"].mean())
     rows = []
     for s in target.stars_with_role("comparison"):
         cb = comps[(comps["star"] == s.id) & (comps["band"] == "B")]
