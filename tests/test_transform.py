@@ -69,9 +69,9 @@ def test_worked_example_without_colour_extinction():
                          ref_colour_inst=0.45, ref_colour_inst_err=0.0)
     res = transform_target(*_constant_night(12.00, 13.20), ref, co, max_gap_d=0.003)
     assert res.V.ok.all() and res.B.ok.all()
-    np.testing.assert_allclose(res.V.colour, 1.41, atol=1e-12, rtol=0)
+    np.testing.assert_allclose(res.V.bv, 1.41, atol=1e-12, rtol=0)
     np.testing.assert_allclose(res.V.mag, 12.0405, atol=1e-12, rtol=0)
-    np.testing.assert_allclose(res.B.colour, 1.41, atol=1e-12, rtol=0)
+    np.testing.assert_allclose(res.B.bv, 1.41, atol=1e-12, rtol=0)
     np.testing.assert_allclose(res.B.mag, 13.4505, atol=1e-12, rtol=0)
 
 
@@ -91,7 +91,7 @@ def test_worked_example_with_colour_extinction_by_fixed_point_iteration():
                          ref_colour_inst=r_inst, ref_colour_inst_err=0.0,
                          kappa_b=kb, kappa_v=kv, cref_b=crb, cref_v=crv)
     res = transform_target(*_constant_night(v_cal, b_cal, airmass=X), ref, co, max_gap_d=0.003)
-    np.testing.assert_allclose(res.V.colour, c, atol=1e-12, rtol=0)
+    np.testing.assert_allclose(res.V.bv, c, atol=1e-12, rtol=0)
     np.testing.assert_allclose(res.V.mag, V, atol=1e-12, rtol=0)
     np.testing.assert_allclose(res.B.mag, V + c, atol=1e-12, rtol=0)
     # the colour term really acted: without kappa the colour differs by several hundredths
@@ -148,18 +148,18 @@ def test_error_propagation_matches_numerical_derivatives():
     np.testing.assert_allclose(res.V.mag, base[0], atol=1e-12)
     np.testing.assert_allclose(res.V.mag_err, rv, rtol=1e-5)
     np.testing.assert_allclose(res.B.mag_err, rb, rtol=1e-5)
-    np.testing.assert_allclose(res.V.colour_err, rc, rtol=1e-5)
+    np.testing.assert_allclose(res.V.bv_err, rc, rtol=1e-5)
     # systematic: colour exactly the numerical propagation of all its inputs
     sys_c = math.sqrt(sum((g[k][2] * e) ** 2 for k, e in errs.items()))
-    np.testing.assert_allclose(res.V.colour_sys_err, sys_c, rtol=1e-5)
+    np.testing.assert_allclose(res.V.bv_sys_err, sys_c, rtol=1e-5)
     # V: its inputs plus the V calibration; the catalogue reference colour enters through
     # eps - kv X (the partial cancellation against the tie colour is ignored: conservative)
     sys_v = math.sqrt(sum((g[k][0] * e) ** 2 for k, e in errs.items()) + 0.005**2)
-    np.testing.assert_allclose(res.V.sys_err, sys_v, rtol=1e-5)
+    np.testing.assert_allclose(res.V.cal_err, sys_v, rtol=1e-5)
     # B = V + c: the catalogue enters through the comparison stars' B (cal_err_b), not the
     # reference colour's catalogue error or the V tie (their V parts cancel)
     sys_b = math.sqrt(sum((g[k][1] * e) ** 2 for k, e in errs.items() if k != "c_ref") + 0.007**2)
-    np.testing.assert_allclose(res.B.sys_err, sys_b, rtol=1e-5)
+    np.testing.assert_allclose(res.B.cal_err, sys_b, rtol=1e-5)
 
 
 # =========================================================================== Ballesteros
@@ -619,11 +619,11 @@ def test_untransformed_is_off_and_transformed_matches_truth():
     ok = res.V.ok
     assert ok.sum() >= res.V.ok.size - 2
     assert abs(np.mean((res.V.mag - s.V_at_v)[ok])) < 0.005
-    assert abs(np.mean((res.V.colour - s.c_at_v)[ok])) < 0.005
+    assert abs(np.mean((res.V.bv - s.c_at_v)[ok])) < 0.005
     okb = res.B.ok
     assert abs(np.mean((res.B.mag - s.V_at_b - s.c_at_b)[okb])) < 0.005
     # the colour really varied with phase and the target is red
-    assert np.ptp(s.c_at_v) > 0.1 and 1.1 < np.mean(res.V.colour[ok]) < 1.5
+    assert np.ptp(s.c_at_v) > 0.1 and 1.1 < np.mean(res.V.bv[ok]) < 1.5
     json.dumps(res.to_dict(), allow_nan=False)
     frame = res.to_frame()
     assert set(frame["band"]) == {"V", "B"} and len(frame) == res.V.ok.size + res.B.ok.size
@@ -641,12 +641,12 @@ def test_random_errors_have_unit_pulls_including_the_fast_rise():
         r = s.transform(co)
         ok, okb = r.V.ok, r.B.ok
         pv.append(((r.V.mag - s.V_at_v) / r.V.mag_err)[ok])
-        pc.append(((r.V.colour - s.c_at_v) / r.V.colour_err)[ok])
+        pc.append(((r.V.bv - s.c_at_v) / r.V.bv_err)[ok])
         pb.append(((r.B.mag - s.V_at_b - s.c_at_b) / r.B.mag_err)[okb])
         sel = ok & s.rising_v & ~r.V.one_sided
-        rise.append(((r.V.colour - s.c_at_v) / r.V.colour_err)[sel])
-        meas_only = r.V.colour_err**2 - (1.08 * r.V.interp_err) ** 2
-        rise_meas_only.append(((r.V.colour - s.c_at_v) / np.sqrt(meas_only))[sel])
+        rise.append(((r.V.bv - s.c_at_v) / r.V.bv_err)[sel])
+        meas_only = r.V.bv_err**2 - (1.08 * r.V.interp_err) ** 2
+        rise_meas_only.append(((r.V.bv - s.c_at_v) / np.sqrt(meas_only))[sel])
     for p in (pv, pb, pc):
         p = np.concatenate(p)
         assert abs(p.mean()) < 0.1
@@ -694,9 +694,9 @@ def test_systematic_errors_cover_the_night_offsets():
                            n_comp=int(rng.integers(3, 8)))
         r = s.transform(co)
         ok, okb = r.V.ok, r.B.ok
-        pv[k] = np.mean((r.V.mag - s.V_at_v)[ok]) / np.sqrt(np.mean(r.V.sys_err[ok] ** 2))
-        pc[k] = np.mean((r.V.colour - s.c_at_v)[ok]) / np.sqrt(np.mean(r.V.colour_sys_err[ok] ** 2))
-        pb[k] = np.mean((r.B.mag - s.V_at_b - s.c_at_b)[okb]) / np.sqrt(np.mean(r.B.sys_err[okb] ** 2))
+        pv[k] = np.mean((r.V.mag - s.V_at_v)[ok]) / np.sqrt(np.mean(r.V.cal_err[ok] ** 2))
+        pc[k] = np.mean((r.V.bv - s.c_at_v)[ok]) / np.sqrt(np.mean(r.V.bv_sys_err[ok] ** 2))
+        pb[k] = np.mean((r.B.mag - s.V_at_b - s.c_at_b)[okb]) / np.sqrt(np.mean(r.B.cal_err[okb] ** 2))
     for p in (pv, pb, pc):
         assert abs(p.mean()) < 0.2
         assert 0.85 < p.std() < 1.15
@@ -733,11 +733,11 @@ def test_transform_edge_cases():
     # non-overlapping series: nothing transformed, all NaN
     r = transform_target(t, 12 * one, 0.01 * one, one, t + 1.0, 13 * one, 0.01 * one, one, ref, co, max_gap_d=0.01)
     assert not r.V.ok.any() and not r.B.ok.any()
-    assert np.all(np.isnan(r.V.mag)) and np.all(np.isnan(r.B.colour))
+    assert np.all(np.isnan(r.V.mag)) and np.all(np.isnan(r.B.bv))
     # single B sample: used (with its own error) for V exposures within max_gap_d only
     r = transform_target(t, 12 * one, 0.01 * one, one, [0.012], [13.2], [0.01], [1.0], ref, co, max_gap_d=0.015)
     assert r.V.ok.tolist() == [True, True, True, False, False]
-    np.testing.assert_allclose(r.V.colour[:3], 0.6 + 1.08 * (13.2 - 12.0 - 0.45))
+    np.testing.assert_allclose(r.V.bv[:3], 0.6 + 1.08 * (13.2 - 12.0 - 0.45))
     assert r.B.ok.tolist() == [True]
     # NaNs in the own band are refused, NaNs in the other band skipped
     v = 12 * one

@@ -286,14 +286,14 @@ def test_simultaneous_exposures_by_hand_and_in_any_order():
     res = transform_target(t, v, sv, one, t, b, sb, one, ref, co, max_gap_d=0.001)
     c = c_ref + mu * (b - v - r_inst)
     V = v + eps * (c - c_tie)
-    np.testing.assert_allclose(res.V.colour, c, atol=1e-12)
-    np.testing.assert_allclose(res.B.colour, c, atol=1e-12)
+    np.testing.assert_allclose(res.V.bv, c, atol=1e-12)
+    np.testing.assert_allclose(res.B.bv, c, atol=1e-12)
     np.testing.assert_allclose(res.V.mag, V, atol=1e-12)
     np.testing.assert_allclose(res.B.mag, V + c, atol=1e-12)
     np.testing.assert_allclose(res.V.mag_err, np.hypot((1 - eps * mu) * sv, eps * mu * sb), rtol=1e-12)
     np.testing.assert_allclose(res.B.mag_err, np.hypot((1 - (1 + eps) * mu) * sv, (1 + eps) * mu * sb),
                                rtol=1e-12)
-    np.testing.assert_allclose(res.V.colour_err, mu * np.hypot(sv, sb), rtol=1e-12)
+    np.testing.assert_allclose(res.V.bv_err, mu * np.hypot(sv, sb), rtol=1e-12)
     assert not res.V.one_sided.any() and np.all(res.V.interp_err == 0.0) and np.all(res.V.gap_d == 0.0)
     # the long table: both bands, one row per exposure, B - V from the B rows minus the V rows
     frame = res.to_frame()

@@ -41,11 +41,12 @@ class TransformedBand:
         Standard magnitude and its random 1-sigma (this exposure's calibrated
         magnitude, the other band's interpolated one including the
         interpolation error, through the partial derivatives).
-    sys_err : numpy.ndarray
+    cal_err : numpy.ndarray
         Systematic 1-sigma common to the night (coefficients, reference colour,
         colour extinction, the band's calibration), not included in ``mag_err``.
-    colour, colour_err, colour_sys_err : numpy.ndarray
-        The target's B - V at this time, its random and systematic 1-sigma.
+    bv, bv_err, bv_sys_err : numpy.ndarray
+        The target's standard B - V at this time, its random and systematic 1-sigma
+        (the light curve's ``bv``, ``bv_err`` and ``bv_sys_err``).
     paired_mag, paired_err : numpy.ndarray
         The other band's calibrated instrumental magnitude interpolated to this
         time and its 1-sigma (total).
@@ -69,10 +70,10 @@ class TransformedBand:
     time: np.ndarray
     mag: np.ndarray
     mag_err: np.ndarray
-    sys_err: np.ndarray
-    colour: np.ndarray
-    colour_err: np.ndarray
-    colour_sys_err: np.ndarray
+    cal_err: np.ndarray
+    bv: np.ndarray
+    bv_err: np.ndarray
+    bv_sys_err: np.ndarray
     paired_mag: np.ndarray
     paired_err: np.ndarray
     interp_err: np.ndarray
@@ -94,10 +95,10 @@ class TransformedBand:
             "n_refused": int(np.count_nonzero(~okm)),
             "n_one_sided": int(np.count_nonzero(self.one_sided & okm)),
             "median_mag_err": med(self.mag_err),
-            "median_sys_err": med(self.sys_err),
-            "median_colour": med(self.colour),
-            "median_colour_err": med(self.colour_err),
-            "median_colour_sys_err": med(self.colour_sys_err),
+            "median_cal_err": med(self.cal_err),
+            "median_bv": med(self.bv),
+            "median_bv_err": med(self.bv_err),
+            "median_bv_sys_err": med(self.bv_sys_err),
             "median_interp_err": med(self.interp_err),
         }
 
@@ -153,10 +154,10 @@ class TransformedSeries(Result):
                         "time": tb.time,
                         "mag": tb.mag,
                         "mag_err": tb.mag_err,
-                        "sys_err": tb.sys_err,
-                        "colour": tb.colour,
-                        "colour_err": tb.colour_err,
-                        "colour_sys_err": tb.colour_sys_err,
+                        "cal_err": tb.cal_err,
+                        "bv": tb.bv,
+                        "bv_err": tb.bv_err,
+                        "bv_sys_err": tb.bv_sys_err,
                         "interp_err": tb.interp_err,
                         "gap_d": tb.gap_d,
                         "one_sided": tb.one_sided,
@@ -247,10 +248,10 @@ def _solve_band(
         time=read_only(t),
         mag=masked(mag),
         mag_err=masked(mag_err),
-        sys_err=masked(sys_err),
-        colour=masked(c),
-        colour_err=masked(colour_err),
-        colour_sys_err=masked(colour_sys),
+        cal_err=masked(sys_err),
+        bv=masked(c),
+        bv_err=masked(colour_err),
+        bv_sys_err=masked(colour_sys),
         paired_mag=masked(other.value),
         paired_err=masked(other.err),
         interp_err=masked(other.interp_err),

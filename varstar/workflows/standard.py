@@ -121,10 +121,10 @@ def standardise_night(
             out["mag_std"][idx] = tb.mag
             out["mag_std_err"][idx] = tb.mag_err
             # The night's systematic part: calibration tie, reference colour, coefficients.
-            out["cal_std_err"][idx] = tb.sys_err
-            out["bv_std"][idx] = tb.colour
-            out["bv_std_err"][idx] = tb.colour_err
-            out["bv_std_sys_err"][idx] = tb.colour_sys_err
+            out["cal_std_err"][idx] = tb.cal_err
+            out["bv_std"][idx] = tb.bv
+            out["bv_std_err"][idx] = tb.bv_err
+            out["bv_std_sys_err"][idx] = tb.bv_sys_err
             out["colour_gap_d"][idx] = np.where(tb.ok, tb.gap_d, np.nan)
         refused = int((~res.V.ok).sum() + (~res.B.ok).sum())
         if refused:
@@ -283,7 +283,7 @@ def field_diagram(arch: ArchiveStore, night: str) -> tuple[pd.DataFrame, pd.Data
         statuses = [str(cv["status"].iloc[0]), str(cb["status"].iloc[0])]
         status = next((st for st in statuses if st != "kept"), "kept")
         rows.append({"star": s.id, "role": "comparison", "status": status, "V": float(res.V.mag[0]),
-                     "V_err": float(res.V.mag_err[0]), "bv": float(res.V.colour[0]), "bv_err": float(res.V.colour_err[0])})
+                     "V_err": float(res.V.mag_err[0]), "bv": float(res.V.bv[0]), "bv_err": float(res.V.bv_err[0])})
     for s in target.stars_with_role("check"):
         lc = arch.lightcurve(band="V", star=s.id)
         lc = lc[(lc["night"] == night) & lc["transformed"]]
