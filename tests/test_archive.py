@@ -17,8 +17,7 @@ from varstar.archive.layout import SCHEMA_VERSION, TABLES
 from varstar.archive.transaction import lock_path, transaction, writer_lock
 from varstar.errors import ArchiveError
 
-ROOT = Path(__file__).resolve().parents[1]
-DEMO = ROOT / "demo_series"
+from helpers import DEMO, REPO as ROOT
 
 
 @pytest.fixture()

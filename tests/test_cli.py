@@ -31,50 +31,19 @@ import pandas as pd
 import pytest
 
 import varstar
-from varstar.cli import build_parser, main
+from helpers import DEMO, REPO, ok, one_json, run, strict_loads
+
+from varstar.cli import build_parser
 from varstar.errors import ArchiveError, InputError, OutputError
 from varstar.archive.layout import SCHEMA_VERSION
 from varstar.export import LIGHTCURVE_COLUMNS
 from varstar.simulate import demo_scenario, simulate, write_series
 
-REPO = Path(__file__).resolve().parents[1]
-DEMO = REPO / "demo_series"
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
 FRAME_RE = re.compile(r"(?:^|[\s:])(\d{8}-\d{3}) \[")
 
 
 # --------------------------------------------------------------------------- helpers
-
-
-def strict_loads(text: str):
-    """json.loads refusing NaN / Infinity (not JSON by RFC 8259)."""
-
-    def refuse(token: str):
-        raise ValueError(f"non-standard JSON constant {token}")
-
-    return json.loads(text, parse_constant=refuse)
-
-
-def one_json(out: str) -> dict:
-    """stdout must be exactly one JSON object on one line and nothing else."""
-    assert out.endswith("\n") and out.count("\n") == 1, out[:500]
-    obj = strict_loads(out)
-    assert isinstance(obj, dict)
-    return obj
-
-
-def run(capsys, *argv) -> tuple[int, str, str]:
-    capsys.readouterr()
-    rc = main([str(a) for a in argv])
-    out, err = capsys.readouterr()
-    return rc, out, err
-
-
-def ok(capsys, *argv) -> str:
-    rc, out, err = run(capsys, *argv)
-    assert rc == 0, err
-    assert err == "", err
-    return out
 
 
 def sha256(path: Path) -> str:

@@ -35,16 +35,13 @@ import io
 import re
 import shutil
 import unicodedata
-import sys
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 
-sys.path.insert(0, str(Path(__file__).parent))
-
-from test_cli import run
+from helpers import run
 
 import varstar
 from varstar.ensemble import EnsembleSettings
@@ -54,8 +51,7 @@ from varstar.workflows.reduce import reduce_night
 from varstar.inputs import MAX_TOML_DEPTH, id_problem
 from varstar.target import parse_target, read_target
 
-REPO = Path(__file__).resolve().parents[1]
-DEMO = REPO / "demo_series"
+from helpers import DEMO
 NIGHT = DEMO / "night-2026-09-19.csv"
 WIDE = DEMO / "night-2026-10-10-wide.csv"
 HUGE = "1" + "0" * 400  # the value: 1 followed by 400 zeros

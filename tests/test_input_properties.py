@@ -41,7 +41,6 @@ import tempfile
 import unicodedata
 from contextlib import contextmanager
 from dataclasses import dataclass, field
-import sys
 from pathlib import Path
 from types import SimpleNamespace
 
@@ -51,9 +50,7 @@ import pytest
 from hypothesis import HealthCheck, Phase, assume, given, settings
 from hypothesis import strategies as st
 
-sys.path.insert(0, str(Path(__file__).parent))
-
-from test_cli import run
+from helpers import run
 
 import varstar
 from varstar.cli import main

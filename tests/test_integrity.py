@@ -9,16 +9,13 @@ from __future__ import annotations
 
 import hashlib
 import shutil
-import sys
 from pathlib import Path
 
 import h5py
 import numpy as np
 import pytest
 
-sys.path.insert(0, str(Path(__file__).parent))
-
-from test_cli import one_json, run  # noqa: E402
+from helpers import one_json, run
 
 import varstar  # noqa: E402
 from varstar.archive import tables  # noqa: E402

@@ -21,7 +21,7 @@ from varstar.errors import InputError
 from varstar.simulate import demo_scenario, simulate, write_series
 from varstar.workflows.reduce import excluded_stars
 
-DEMO = Path(__file__).resolve().parents[1] / "demo_series"
+from helpers import DEMO
 
 
 def _plain_scenario(n_nights: int, seed: int):

@@ -9,14 +9,11 @@ plus two cut from them: a V-only night and a night of only 12 exposures.
 from __future__ import annotations
 
 import hashlib
-import sys
 from pathlib import Path
 
 import pytest
 
-sys.path.insert(0, str(Path(__file__).parent))
-
-from test_cli import run
+from helpers import run
 
 import varstar
 

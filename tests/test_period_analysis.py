@@ -26,61 +26,13 @@ import math
 import numpy as np
 import pytest
 
+from helpers import ONE_SIGMA, T_START, TWO_PI, nightly, lomb_scargle, harmonic_curve, detached_eb, contact_binary, binomial_ok, F1, F2, double_mode
+
 from varstar.errors import InputError
 from varstar.period.aliases import alias_report, find_peaks, relate, spectral_window
 from varstar.period.pdm import choose_p_or_2p, pdm_theta
 from varstar.period.prewhiten import amplitude_spectrum, prewhiten
 from varstar.period.refine import fit_harmonics
-
-ONE_SIGMA = 0.6826894921370859  # P(|z| < 1) for a normal distribution
-T_START = 2460100.0  # invented BJD_TDB origin of every scenario
-TWO_PI = 2.0 * math.pi
-
-
-# --------------------------------------------------------------------------- scenarios
-
-
-def nightly(rng, nights, *, hours=6.0, cadence_min=8.0, spread=1.5, jitter_d=0.05, start=T_START):
-    """Single-site sampling: ``nights`` clear nights among ``spread * nights``, one run each."""
-    chosen = np.sort(rng.choice(np.arange(int(spread * nights)), nights, replace=False))
-    starts = start + chosen + 0.30 + jitter_d * rng.standard_normal(nights)
-    per = np.arange(0.0, hours / 24.0, cadence_min / 1440.0)
-    t = (starts[:, None] + per[None, :]).ravel()
-    return t + rng.normal(0.0, 0.0005, t.size)
-
-
-def lomb_scargle(nterms=1):
-    """astropy's periodogram (reference library) as the callable our modules take."""
-    from astropy.timeseries import LombScargle
-
-    def power(t, y, dy, freq):
-        return LombScargle(t, y, dy, nterms=nterms).power(freq)
-
-    return power
-
-
-def harmonic_curve(t, f, amps, phases, t0, mean=12.0):
-    """m + sum_k A_k cos(2 pi k f (t - t0) + phi_k): known Fourier truth."""
-    k = np.arange(1, len(amps) + 1)
-    return mean + (np.asarray(amps) * np.cos(TWO_PI * np.outer(t - t0, k) * f + np.asarray(phases))).sum(axis=1)
-
-
-def detached_eb(t, period=2.7134, t0=T_START + 0.9, half_width=0.025, d1=0.6, d2=0.25):
-    """Flat light curve with two narrow eclipses of different depth (phases 0 and 0.5)."""
-    ph = ((t - t0) / period) % 1.0
-    x1 = np.minimum(ph, 1.0 - ph) / half_width
-    x2 = np.abs(ph - 0.5) / half_width
-    return 11.0 + d1 * np.sqrt(np.clip(1 - x1**2, 0, None)) + d2 * np.sqrt(np.clip(1 - x2**2, 0, None))
-
-
-def contact_binary(t, period=0.3312, t0=T_START + 0.37, unequal=0.025):
-    """Continuous light curve with two minima per orbit; ``unequal`` mag makes them differ by 2x."""
-    ph = (t - t0) / period
-    return 12.0 + 0.20 * np.cos(2 * TWO_PI * ph) + 0.03 * np.cos(4 * TWO_PI * ph) + unequal * np.cos(TWO_PI * ph)
-
-
-def binomial_ok(k, n, p, nsig=3.0):
-    return abs(k / n - p) <= nsig * math.sqrt(p * (1 - p) / n)
 
 
 # --------------------------------------------------------------------------- PDM
@@ -450,18 +402,6 @@ def test_fit_harmonics_rejects_bad_input_and_fixed_frequency():
 
 # --------------------------------------------------------------------------- prewhitening
 
-F1 = 1 / 0.55  # fundamental of an invented double-mode pulsator
-F2 = F1 / 0.745  # first overtone; ratio "from memory" (REFERENCES.md), a scenario parameter only
-
-
-def _double_mode(rng, extra=(), sig=0.03, nights=40):
-    t = nightly(rng, nights, hours=5, cadence_min=10)
-    y = 13 + 0.20 * np.cos(TWO_PI * F1 * (t - T_START) + 0.4) + 0.12 * np.cos(TWO_PI * F2 * (t - T_START) + 2.0)
-    for f, a, p in extra:
-        y = y + a * np.cos(TWO_PI * f * (t - T_START) + p)
-    return t, y + sig * rng.standard_normal(t.size), np.full(t.size, sig)
-
-
 def test_amplitude_spectrum_noise_level():
     # white noise: the amplitude spectrum is Rayleigh with mean sigma sqrt(pi/N) (derived from
     # the DFT of Gaussian noise; the noise unit of the Breger et al. 1993 criterion)
@@ -480,7 +420,7 @@ def test_amplitude_spectrum_noise_level():
 
 def test_prewhitening_double_mode_pulsator():
     rng = np.random.default_rng(0)
-    t, y, dy = _double_mode(rng)
+    t, y, dy = double_mode(rng)
     span = t.max() - t.min()
     freq = np.arange(0.05, 12, 1 / (10 * span))
     res = prewhiten(t, y, dy, freq, lomb_scargle(1))
@@ -506,7 +446,7 @@ def test_prewhitening_double_mode_pulsator():
 def test_prewhitening_names_harmonics_and_combinations():
     rng = np.random.default_rng(12)
     extra = [(2 * F1, 0.05, 1.0), (F1 + F2, 0.04, 2.5)]
-    t, y, dy = _double_mode(rng, extra, sig=0.01)
+    t, y, dy = double_mode(rng, extra, sig=0.01)
     span = t.max() - t.min()
     freq = np.arange(0.05, 12, 1 / (10 * span))
     res = prewhiten(t, y, dy, freq, lomb_scargle(1))
@@ -525,7 +465,7 @@ def test_prewhitening_false_alarms_and_frequency_pulls():
     rng = np.random.default_rng(13)
     pulls, extra = [], 0
     for _ in range(40):
-        t, y, dy = _double_mode(rng)
+        t, y, dy = double_mode(rng)
         span = t.max() - t.min()
         freq = np.arange(0.05, 12, 1 / (5 * span))
         res = prewhiten(t, y, dy, freq, lomb_scargle(1))

@@ -20,26 +20,13 @@ from __future__ import annotations
 import hashlib
 import json
 import math
-import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
 
-sys.path.insert(0, str(Path(__file__).parent))
-
-from test_cli import one_json, run
-from test_period_analysis import (
-    F1,
-    F2,
-    T_START,
-    _double_mode,
-    binomial_ok,
-    contact_binary,
-    detached_eb,
-    harmonic_curve,
-    nightly,
-)
+from helpers import one_json, run
+from helpers import F1, F2, T_START, double_mode, binomial_ok, contact_binary, detached_eb, harmonic_curve, nightly
 
 import varstar
 from varstar.errors import InputError
@@ -156,7 +143,7 @@ def test_long_period_variable_with_seasonal_gaps():
 
 def test_two_mode_pulsator_both_modes_by_prewhitening():
     rng = np.random.default_rng(0)
-    t, y, dy = _double_mode(rng)
+    t, y, dy = double_mode(rng)
     r = analyse(t, y, dy, max_period=5)  # no option: multi-periodic stars are found by default
     found = r.to_dict()["frequencies"]
     assert len(found) == 2 and r.multiperiodic

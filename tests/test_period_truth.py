@@ -23,15 +23,11 @@ Tolerances: the spread of a standard deviation estimated from n pulls is about
 from __future__ import annotations
 
 import math
-import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
 
-sys.path.insert(0, str(Path(__file__).parent))
-
-from test_period_analysis import T_START, binomial_ok, detached_eb, harmonic_curve, nightly
+from helpers import T_START, detached_eb, harmonic_curve, nightly
 
 from varstar.period import analyse
 from varstar.period.analysis import PROBABILITY_FLOOR, format_probability
@@ -39,7 +35,7 @@ from varstar.period.analysis import PROBABILITY_FLOOR, format_probability
 TWO_PI = 2.0 * math.pi
 
 
-def _double_mode(rng, p0=0.5573, ratio=0.745, sig=0.02):
+def double_mode(rng, p0=0.5573, ratio=0.745, sig=0.02):
     """Ten nights over a month; mode 1 non-sinusoidal (3 harmonics), mode 2 half its amplitude."""
     t = nightly(rng, 10, spread=3.0)
     f0, f1 = 1 / p0, 1 / (p0 * ratio)
@@ -52,7 +48,7 @@ def _double_mode(rng, p0=0.5573, ratio=0.745, sig=0.02):
 def test_double_mode_pulsator_by_default():
     n, right = 16, 0
     for seed in range(n):
-        t, y, dy, f0, f1 = _double_mode(np.random.default_rng(seed))
+        t, y, dy, f0, f1 = double_mode(np.random.default_rng(seed))
         r = analyse(t, y, dy, max_period=5)
         d = r.to_dict()
         main, *rest = d["frequencies"]

@@ -12,7 +12,6 @@ import dataclasses
 import math
 import subprocess
 import sys
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -23,8 +22,7 @@ from varstar.errors import InputError
 from varstar.target import parse_target
 from varstar.timescale import exposure_times, hardie_airmass, night_label, offline_astropy
 
-REPO = Path(__file__).resolve().parents[1]
-DEMO_DIR = REPO / "demo_series"
+from helpers import DEMO as DEMO_DIR, REPO
 
 
 @pytest.fixture(scope="module")

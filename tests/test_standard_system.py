@@ -32,7 +32,7 @@ from varstar.simulate import (
 from varstar.standards import fit_standard_field
 from varstar.transform import Coefficients
 
-DEMO = Path(__file__).resolve().parents[1] / "demo_series"
+from helpers import DEMO
 
 
 def _camera(sc, k2_b: float = 0.0, k2_v: float = 0.0):

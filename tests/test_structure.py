@@ -15,7 +15,9 @@ from pathlib import Path
 
 import pytest
 
-PACKAGE = Path(__file__).resolve().parent.parent / "varstar"
+from helpers import REPO
+
+PACKAGE = REPO / "varstar"
 
 #: Computational cores: arrays and tables in, results out.
 CORES = ("varstar.ensemble", "varstar.transform", "varstar.period", "varstar.timings", "varstar.quality",

@@ -12,15 +12,12 @@ import csv
 import hashlib
 import math
 import re
-import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
 
-sys.path.insert(0, str(Path(__file__).parent))
-
-from test_cli import one_json, run  # noqa: E402
+from helpers import one_json, run
 
 import varstar  # noqa: E402
 
