@@ -1,7 +1,7 @@
 """Hostile but honest input: the input-parsing cases of issue 11, each a reproduction and a family.
 
 The data are the shipped demo files (``demo_series/``: an invented field from
-:mod:`varstar.simulate`, fixed seed; ``tests/test_simulate.py`` keeps them equal
+:mod:`varstar.simulate`, fixed seed; ``tests/simulate/test_simulate.py`` keeps them equal
 to the generator) and small tables and TOML files written here.  The contract
 is the README's: a bad input gets one ``error: ...`` line on stderr naming the
 file (and the line or key), a non-zero exit, no traceback, and nothing written

@@ -1,7 +1,7 @@
 """The photometric signal and its noise: magnitudes and fluxes, the CCD equation,
 scintillation and saturation.
 
-Published equations only, each checked in ``tests/test_simulate.py``: the
+Published equations only, each checked in ``tests/simulate/test_simulate.py``: the
 magnitude scale (Pogson 1856), the CCD equation (Merline & Howell 1995),
 scintillation (Young 1967) and the flux a clipped Gaussian star image loses.
 """

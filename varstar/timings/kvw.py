@@ -13,7 +13,7 @@ only ``(1-f)**2 + f**2`` (2/3 on average) of a point's noise variance, and a
 grid finer than the data uses each observation in several pairs.  Counted
 naively (``Z`` = number of grid pairs) the formula underestimates the error by
 a factor ~1.25 for jittered, ~1.5 for randomly spaced times and ~1.9 on a grid
-twice as fine as the data (measured in ``tests/test_timings.py``).  Here ``Z`` is the
+twice as fine as the data (measured in ``tests/timings/test_timings.py``).  Here ``Z`` is the
 *effective* number of independent pairs obtained by propagating the
 interpolation weights (see :func:`_effective_pairs`): with the grid on evenly
 spaced observations it equals the number of pairs exactly, as in the paper.

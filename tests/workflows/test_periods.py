@@ -1,7 +1,7 @@
 """The whole period analysis: :func:`varstar.period.analyse`, the archive's period history and ``varstar period``.
 
 Checks, each against known truth of a generated light curve (the scenarios of
-``test_period_analysis.py``, invented with fixed seeds):
+``tests/period/test_period_analysis.py``, invented with fixed seeds):
 
 * a sawtooth pulsator (P = 0.57 d): the quoted 1-sigma period and epoch errors
   cover the truth about 68% of the time (pull distribution);

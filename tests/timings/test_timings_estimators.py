@@ -70,7 +70,7 @@ def test_each_estimator_recovers_the_true_time(name):
     # 4 min from the centre of the data.  Every estimate lies within 4.5 of its
     # own errors of the truth, and the pulls scatter like errors that are
     # neither much too small nor much too large (rms between 0.5 and 1.5; the
-    # thorough pull tests of each method are in tests/test_timings.py).
+    # thorough pull tests of each method are in tests/timings/test_timings.py).
     rng = np.random.default_rng(2024)
     pulls = []
     for _ in range(25):

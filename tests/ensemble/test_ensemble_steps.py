@@ -1,6 +1,6 @@
 """One step of the ensemble solution at a time (varstar.ensemble's modules).
 
-tests/test_ensemble.py judges the whole solution on simulated nights; here each
+tests/ensemble/test_ensemble.py judges the whole solution on simulated nights; here each
 step function is checked on its own, on small hand-built arrays or on simulated
 data with fixed seeds and a known truth.  The source of every expected value is
 named beside the check: numpy.linalg.lstsq on the same weighted system, scipy's

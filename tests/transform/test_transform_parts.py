@@ -1,5 +1,5 @@
 """One module of varstar.transform at a time: checks the whole-package tests
-(tests/test_transform.py) do not make.
+(tests/transform/test_transform.py) do not make.
 
 Invented data only, fixed seeds.  The source of each expected value is named
 beside the check.
