@@ -236,9 +236,8 @@ def cmd_colour(args: argparse.Namespace) -> int:
 
 
 def cmd_period(args: argparse.Namespace) -> int:
-    from .period import phased_data, phased_model
+    from .plots import period_figures, save
     from .workflows.archive import open_archive
-    from .plots import periodogram_figure, phased_figure, save
 
     arch = open_archive(args.archive)
     if args.history:
@@ -254,23 +253,15 @@ def cmd_period(args: argparse.Namespace) -> int:
         nterms=args.terms, harmonics=args.harmonics, bootstrap=args.bootstrap, seed=args.seed,
         single=args.single, snr_limit=args.snr, max_frequencies=args.max_frequencies, timeout_s=args.wait,
     )
-    res, payload = out.result, out.to_dict()
+    payload = out.to_dict()
     text = fmt.format_period(payload)
-    name = arch.target.name
-    if args.output:
-        save(periodogram_figure(res.freq, res.power, best_frequency=res.aliases.best_frequency,
-                                fap_levels=res.fap_levels, peaks=payload["aliases"][:4], theta=res.theta,
-                                title=f"{name}: {payload['star']}, {res.method}",
-                                ylabel="normalised power"), args.output)
-        payload["periodogram_plot"] = str(args.output)
-        text += f"\nwrote {args.output}"
-    if args.phased:
-        lc, resid = phased_data(res, out.lightcurve)
-        save(phased_figure(lc, period=res.period, epoch=res.epoch, model=phased_model(res), residuals=resid,
-                           title=f"{name}: {payload['star']}, P = {res.period:.7f} d, phase 0 at {res.epoch_kind} light"),
-             args.phased)
-        payload["phased_plot"] = str(args.phased)
-        text += f"\nwrote {args.phased}"
+    if args.output or args.phased:
+        periodogram, phased = period_figures(out, f"{arch.target.name}: {payload['star']}")
+        for path, fig, key in ((args.output, periodogram, "periodogram_plot"), (args.phased, phased, "phased_plot")):
+            if path:
+                save(fig, path)
+                payload[key] = str(path)
+                text += f"\nwrote {path}"
     _emit(args, payload, text)
     return 0
 
@@ -279,18 +270,14 @@ def cmd_timings(args: argparse.Namespace) -> int:
     from .workflows.extrema import timings_of_archive
     from .workflows.archive import open_archive
     from .export import timings_table, write_csv
-    from .plots import oc_figure, save
+    from .plots import save, timings_figure
 
     arch = open_archive(args.archive)
     d = timings_of_archive(arch, band=args.band, kind=args.kind, night=args.night, note=args.note or "",
                            store=not args.no_store, update=args.update, seed=args.seed, timeout_s=args.wait).to_dict()
     text = fmt.format_timings(d)
     if args.output and d["timings"]:
-        fit = dict(d["fit"] or {}, reference=d["ephemeris"]) if d["fit"] else None
-        save(oc_figure([t["cycle"] for t in d["timings"]], [t["o_minus_c"] for t in d["timings"]],
-                       [t["err"] for t in d["timings"]], [t["type"] for t in d["timings"]], fit=fit,
-                       reference=f"T0 = {d['ephemeris']['epoch']:.5f}, P = {d['ephemeris']['period']:.7f} d (BJD_TDB)",
-                       title=f"{arch.target.name}: O − C"), args.output)
+        save(timings_figure(d, f"{arch.target.name}: O − C"), args.output)
         d["plot"] = str(args.output)
         text += f"\nwrote {args.output}"
     elif args.output:

@@ -13,6 +13,7 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
+from . import text
 from .errors import OutputError
 
 
@@ -49,122 +50,26 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
     the period, and time the maxima against the target's older ephemeris.
     Returns a JSON-ready dict: the folder, the files written and the summaries.
     """
-    from .colour import colour_summary, phases
-    from .export import lightcurve_table, safe_filename, timings_table, to_json, write_atomic, write_csv
-    from .plots import (
-        coefficient_figure,
-        colour_figure,
-        colour_magnitude_figure,
-        lightcurve_figure,
-        oc_figure,
-        periodogram_figure,
-        phased_figure,
-        save,
-    )
-    from .setups import read_setup, save_setup
+    from .export import lightcurve_table, to_json, write_atomic, write_csv
     from .simulate import demo_files
-    from .standards import fit_standard_field
-    from .target import read_target
-    from .text import (
-        format_coefficients,
-        format_colour,
-        format_night_report,
-        format_period,
-        format_summary,
-        format_timings,
-    )
-    from .workflows.archive import create_archive, open_archive
-    from .workflows.night import ingest
-    from .period import phased_data, phased_model
-    from .workflows.standard import field_diagram, transform_archive
 
     say = echo or (lambda _s: None)
     folder = _new_folder(out)
     data = folder / "data"
     data.mkdir()
-    for name, text in demo_files().items():
-        write_atomic(data / name, text.encode("utf-8"))
+    for name, content in demo_files().items():
+        write_atomic(data / name, content.encode("utf-8"))
     say(f"Demo data written to {data} (an invented field and standard field, simulated with a fixed seed)\n")
 
-    # 1. Transformation coefficients from the standard field; k''_bv is the usual value
-    #    for B - V (common practice), as an observer without their own measurement would take.
-    k2_bv = -0.03
-    fit = fit_standard_field([data / "standards.csv"], data / "standards.toml", k2_bv=k2_bv)
-    setups = folder / "setups.toml"
-    save_setup(setups, "demo-camera", fit.coefficients("standards.toml fit", k2_bv=k2_bv), {"fitted from": "standards.toml"})
-    fits_png = folder / "coefficients.png"
-    save(coefficient_figure(fit), fits_png)
-    say(format_coefficients({**fit.to_dict(), "k2_bv": k2_bv}, k2_bv) + f"\n  saved in {setups}\n")
-
-    # 2. The target's archive, night by night.
-    target = read_target(data / "target.toml")
-    archive = folder / f"{safe_filename(target.name)}.h5"
-    create_archive(archive, target)
-    say(f"created {archive}\n")
-    reports = []
-    for p in sorted(data.glob("night-*.csv")):
-        for rep in ingest(archive, [p]).nights:
-            reports.append(rep)
-            say(format_night_report(rep) + "\n")
-
-    # 3. Onto the standard system.
-    coeffs, gap = read_setup(setups, "demo-camera")
-    trans = transform_archive(archive, coeffs, gap)
-    n_done = sum(n["n_transformed"] for n in trans["nights"])
-    say(f"transformed {n_done} of {sum(n['n_points'] for n in trans['nights'])} points to the standard system\n")
-
-    # 4. Look at it.
-    arch = open_archive(archive)
+    files: list[Path] = []
+    fit, setups = _coefficients(data, folder, files, say)
+    arch, reports = _archive(data, folder, setups, files, say)
     summary = arch.summary()
-    say(format_summary(summary))
-    lc_all = arch.lightcurve(include_flagged=True)
-    plot = folder / "lightcurve.png"
-    save(lightcurve_figure(lc_all, title=f"{target.name}: {target.target_star.id}", show_flagged=True), plot)
-    files = [archive, setups, fits_png, plot]
-    nights_df = arch.nights()
-    if int(nights_df["n_flagged"].max()) > 0:  # zoom on the night with passing clouds
-        label = str(nights_df.loc[nights_df["n_flagged"].idxmax(), "night"])
-        zoom = folder / f"night-{label}.png"
-        save(lightcurve_figure(lc_all[lc_all["night"] == label], title=f"{target.name}: {target.target_star.id}, night {label}", show_flagged=True), zoom)
-        files.append(zoom)
-    lc = arch.lightcurve()
-    colour = colour_summary(lc, target)
-    say("\n" + format_colour(colour))
-    colour_png = folder / "colour.png"
-    eph = colour.get("ephemeris")
-    save(colour_figure(lc, title=f"{target.name}: {target.target_star.id}", phase=phases(lc["bjd_tdb"].to_numpy(), target),
-                       period=eph["period"] if eph else None), colour_png)
-    last = str(nights_df["night"].iloc[-1])
-    field, track = field_diagram(arch, last)
-    cmd_png = folder / f"colour-magnitude-{last}.png"
-    save(colour_magnitude_figure(field, track, title=f"{target.name}, night {last}"), cmd_png)
-    files += [colour_png, cmd_png]
-
-    # 5. The period, from B and V together; recorded in the archive's period history.
-    found = arch.period()
-    res = found.result
-    say("\n" + format_period(found.to_dict()))
-    pg_png, ph_png = folder / "periodogram.png", folder / "phased.png"
-    save(periodogram_figure(res.freq, res.power, best_frequency=res.aliases.best_frequency, fap_levels=res.fap_levels,
-                            peaks=found.to_dict()["aliases"][:4], theta=res.theta,
-                            title=f"{target.name}: {target.target_star.id}, {res.method}", ylabel="normalised power"), pg_png)
-    lcp, resid = phased_data(res, found.lightcurve)
-    save(phased_figure(lcp, period=res.period, epoch=res.epoch, model=phased_model(res), residuals=resid,
-                       title=f"{target.name}: {target.target_star.id}, P = {res.period:.7f} d"), ph_png)
-    files += [pg_png, ph_png]
-
-    # 6. Times of maximum light, O - C against the target's older ephemeris, and an updated ephemeris.
-    timed = arch.time_extrema(update=True).to_dict()
-    say("\n" + format_timings(timed))
-    oc_png, timings_csv = folder / "o-c.png", folder / "timings.csv"
-    save(oc_figure([t["cycle"] for t in timed["timings"]], [t["o_minus_c"] for t in timed["timings"]],
-                   [t["err"] for t in timed["timings"]], [t["type"] for t in timed["timings"]],
-                   fit=dict(timed["fit"], reference=timed["ephemeris"]),
-                   reference=f"T0 = {timed['ephemeris']['epoch']:.5f}, P = {timed['ephemeris']['period']:.7f} d (BJD_TDB)",
-                   title=f"{target.name}: O − C"), oc_png)
-    write_csv(timings_table(timed["timings"]), timings_csv)
-    files += [oc_png, timings_csv]
-    csv = write_csv(lightcurve_table(lc), folder / "observations.csv")
+    say(text.format_summary(summary))
+    colour = _look(arch, folder, files, say)
+    found = _period(arch, folder, files, say)
+    timed = _timings(arch, folder, files, say)
+    csv = write_csv(lightcurve_table(arch.lightcurve()), folder / "observations.csv")
     result = {"summary": summary, "coefficients": fit.to_dict(), "colour": colour, "period": found.to_dict(),
               "timings": timed}
     js = write_atomic(folder / "summary.json", (to_json(result, indent=2) + "\n").encode("utf-8"))
@@ -174,3 +79,107 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
         "nights": [r["night"] for r in reports],
         **result,
     }
+
+
+def _coefficients(data: Path, folder: Path, files: list[Path], say: Callable[[str], Any]):
+    """1. Transformation coefficients from the standard field, saved as a setup; k''_bv is the usual
+    value for B - V (common practice), as an observer without their own measurement would take."""
+    from .plots import coefficient_figure, save
+    from .setups import save_setup
+    from .standards import fit_standard_field
+
+    k2_bv = -0.03
+    fit = fit_standard_field([data / "standards.csv"], data / "standards.toml", k2_bv=k2_bv)
+    setups = folder / "setups.toml"
+    save_setup(setups, "demo-camera", fit.coefficients("standards.toml fit", k2_bv=k2_bv), {"fitted from": "standards.toml"})
+    fits_png = folder / "coefficients.png"
+    save(coefficient_figure(fit), fits_png)
+    files += [setups, fits_png]
+    say(text.format_coefficients({**fit.to_dict(), "k2_bv": k2_bv}, k2_bv) + f"\n  saved in {setups}\n")
+    return fit, setups
+
+
+def _archive(data: Path, folder: Path, setups: Path, files: list[Path], say: Callable[[str], Any]):
+    """2-3. The target's archive, night by night, then onto the standard system."""
+    from .export import safe_filename
+    from .setups import read_setup
+    from .target import read_target
+    from .workflows.archive import create_archive, open_archive
+    from .workflows.night import ingest
+    from .workflows.standard import transform_archive
+
+    target = read_target(data / "target.toml")
+    archive = folder / f"{safe_filename(target.name)}.h5"
+    create_archive(archive, target)
+    files.insert(0, archive)
+    say(f"created {archive}\n")
+    reports = []
+    for p in sorted(data.glob("night-*.csv")):
+        for rep in ingest(archive, [p]).nights:
+            reports.append(rep)
+            say(text.format_night_report(rep) + "\n")
+    coeffs, gap = read_setup(setups, "demo-camera")
+    trans = transform_archive(archive, coeffs, gap)
+    n_done = sum(n["n_transformed"] for n in trans["nights"])
+    say(f"transformed {n_done} of {sum(n['n_points'] for n in trans['nights'])} points to the standard system\n")
+    return open_archive(archive), reports
+
+
+def _look(arch: Any, folder: Path, files: list[Path], say: Callable[[str], Any]) -> dict[str, Any]:
+    """4. The light curve (and the cloudy night close up), the colours, the field's diagram."""
+    from .colour import colour_summary, phases
+    from .plots import colour_figure, colour_magnitude_figure, lightcurve_figure, save
+    from .workflows.standard import field_diagram
+
+    target = arch.target
+    star = target.target_star.id
+    lc_all = arch.lightcurve(include_flagged=True)
+    plot = folder / "lightcurve.png"
+    save(lightcurve_figure(lc_all, title=f"{target.name}: {star}", show_flagged=True), plot)
+    files.append(plot)
+    nights = arch.nights()
+    if int(nights["n_flagged"].max()) > 0:  # zoom on the night with passing clouds
+        label = str(nights.loc[nights["n_flagged"].idxmax(), "night"])
+        zoom = folder / f"night-{label}.png"
+        save(lightcurve_figure(lc_all[lc_all["night"] == label], title=f"{target.name}: {star}, night {label}", show_flagged=True), zoom)
+        files.append(zoom)
+    lc = arch.lightcurve()
+    colour = colour_summary(lc, target)
+    say("\n" + text.format_colour(colour))
+    colour_png = folder / "colour.png"
+    eph = colour.get("ephemeris")
+    save(colour_figure(lc, title=f"{target.name}: {star}", phase=phases(lc["bjd_tdb"].to_numpy(), target),
+                       period=eph["period"] if eph else None), colour_png)
+    last = str(nights["night"].iloc[-1])
+    field, track = field_diagram(arch, last)
+    cmd_png = folder / f"colour-magnitude-{last}.png"
+    save(colour_magnitude_figure(field, track, title=f"{target.name}, night {last}"), cmd_png)
+    files += [colour_png, cmd_png]
+    return colour
+
+
+def _period(arch: Any, folder: Path, files: list[Path], say: Callable[[str], Any]):
+    """5. The period, from B and V together; recorded in the archive's period history."""
+    from .plots import period_figures, save
+
+    found = arch.period()
+    say("\n" + text.format_period(found.to_dict()))
+    pg_png, ph_png = folder / "periodogram.png", folder / "phased.png"
+    for fig, path in zip(period_figures(found, f"{arch.target.name}: {arch.target.target_star.id}"), (pg_png, ph_png)):
+        save(fig, path)
+    files += [pg_png, ph_png]
+    return found
+
+
+def _timings(arch: Any, folder: Path, files: list[Path], say: Callable[[str], Any]) -> dict[str, Any]:
+    """6. Times of maximum light, O - C against the target's older ephemeris, and an updated ephemeris."""
+    from .export import timings_table, write_csv
+    from .plots import save, timings_figure
+
+    timed = arch.time_extrema(update=True).to_dict()
+    say("\n" + text.format_timings(timed))
+    oc_png, timings_csv = folder / "o-c.png", folder / "timings.csv"
+    save(timings_figure(timed, f"{arch.target.name}: O − C"), oc_png)
+    write_csv(timings_table(timed["timings"]), timings_csv)
+    files += [oc_png, timings_csv]
+    return timed

@@ -494,3 +494,35 @@ def oc_figure(
     if title:
         fig.suptitle(title)
     return literal_text(fig)
+
+
+# --------------------------------------------------------------------------- figures of whole results
+# The command line and the demo draw the same figures of the same results: one call each.
+
+
+def period_figures(stored, title: str) -> tuple["Figure", "Figure"]:
+    """The periodogram and the phased light curve of a stored period analysis.
+
+    ``stored`` is a :class:`varstar.workflows.periods.StoredPeriod` (its
+    ``result`` and the ``lightcurve`` analysed); ``title`` starts both titles.
+    """
+    from .period import phased_data, phased_model
+
+    res = stored.result
+    peaks = stored.to_dict()["aliases"][:4]
+    periodogram = periodogram_figure(res.freq, res.power, best_frequency=res.aliases.best_frequency,
+                                     fap_levels=res.fap_levels, peaks=peaks, theta=res.theta,
+                                     title=f"{title}, {res.method}", ylabel="normalised power")
+    lc, resid = phased_data(res, stored.lightcurve)
+    phased = phased_figure(lc, period=res.period, epoch=res.epoch, model=phased_model(res), residuals=resid,
+                           title=f"{title}, P = {res.period:.7f} d, phase 0 at {res.epoch_kind} light")
+    return periodogram, phased
+
+
+def timings_figure(timed: dict, title: str) -> "Figure":
+    """The O − C diagram of a timings result (``varstar timings --json``'s dict), with its ephemeris fit."""
+    rows, eph = timed["timings"], timed["ephemeris"]
+    fit = dict(timed["fit"], reference=eph) if timed["fit"] else None
+    return oc_figure([t["cycle"] for t in rows], [t["o_minus_c"] for t in rows], [t["err"] for t in rows],
+                     [t["type"] for t in rows], fit=fit,
+                     reference=f"T0 = {eph['epoch']:.5f}, P = {eph['period']:.7f} d (BJD_TDB)", title=title)
