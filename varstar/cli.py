@@ -108,7 +108,7 @@ def cmd_ingest(args: argparse.Namespace) -> int:
 def cmd_summary(args: argparse.Namespace) -> int:
     from .workflows.archive import open_archive
 
-    s = open_archive(args.archive).summary()
+    s = open_archive(args.archive).summary().to_dict()
     _emit(args, s, fmt.format_summary(s))
     return 0
 
@@ -321,7 +321,7 @@ def cmd_verify(args: argparse.Namespace) -> int:
 def cmd_upgrade(args: argparse.Namespace) -> int:
     from .archive import upgrade
 
-    res = upgrade(args.archive, timeout_s=args.wait)
+    res = upgrade(args.archive, timeout_s=args.wait).to_dict()
     _emit(args, res, fmt.format_upgrade(res))
     return 0
 

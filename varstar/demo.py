@@ -64,7 +64,7 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
     files: list[Path] = []
     fit, setups = _coefficients(data, folder, files, say)
     arch, reports = _archive(data, folder, setups, files, say)
-    summary = arch.summary()
+    summary = arch.summary().to_dict()
     say(text.format_summary(summary))
     colour = _look(arch, folder, files, say)
     found = _period(arch, folder, files, say)

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import contextlib
 import json
+from dataclasses import dataclass
 from pathlib import Path
 from collections.abc import Iterator, Sequence
 from typing import TYPE_CHECKING, Any
@@ -21,7 +22,7 @@ import pandas as pd
 from .. import __version__
 from ..errors import ArchiveError, VarstarError
 from ..quality import quality_words
-from ..results import utc_now
+from ..results import Result, utc_now
 from ..target import Target, parse_target
 from . import records, tables
 from .layout import FORMAT_NAME, SCHEMA_VERSION, check_root, code_capacity
@@ -74,6 +75,20 @@ def open_archive(path: str | Path) -> ArchiveStore:
     arch = ArchiveStore(path)
     arch.check_format()
     return arch
+
+
+@dataclass(frozen=True)
+class ArchiveSummary(Result):
+    """What an archive holds (``varstar summary --json``): target, nights, points per band, analyses."""
+
+    archive: str
+    schema_version: int
+    created_utc: str
+    target: dict[str, Any]
+    n_nights: int
+    nights: list[dict[str, Any]]
+    bands: dict[str, Any]
+    analyses: dict[str, Any]
 
 
 class ArchiveStore:
@@ -370,8 +385,8 @@ class ArchiveStore:
             }
         )
 
-    def summary(self) -> dict[str, Any]:
-        """A JSON-ready overview: target, nights, points per band, magnitude ranges."""
+    def summary(self) -> ArchiveSummary:
+        """An overview: target, nights, points per band, magnitude ranges, the analyses stored."""
         tgt = self.target
         nights = self.nights()
         lc = self.lightcurve(include_flagged=True, columns=["bjd_tdb", "band", "mag", "mag_err", "transformed", "quality"])
@@ -399,7 +414,7 @@ class ArchiveStore:
                 last_period = {c: f["periods"][c][k] for c in ("period", "period_err")}
                 last_period = {c: float(v) for c, v in last_period.items()}
                 last_period["computed_utc"] = f["periods"]["computed_utc"].asstr()[k]
-        return {
+        return ArchiveSummary(**{
             "archive": str(self.path),
             "schema_version": schema,
             "created_utc": created,
@@ -418,7 +433,7 @@ class ArchiveStore:
             "bands": bands,
             "analyses": {"n_periods": counts["periods"], "last_period": last_period, "n_timings": counts["timings"],
                          "n_ephemerides": counts["ephemerides"], "n_removed": counts["removals"]},
-        }
+        })
 
 
 #: Light-curve columns and what each reads: (``/points`` columns, ``/exposures`` columns).

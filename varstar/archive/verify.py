@@ -24,6 +24,7 @@ import h5py
 import numpy as np
 
 from ..errors import ArchiveError
+from ..results import Result
 from . import tables
 from .integrity import (
     CONSISTENCY_TOL_MAG, capacity_problems, expected_tables, failed_object, free_space_problem, hdf5_detail,
@@ -472,7 +473,20 @@ def _backup_path(path: Path, version: int) -> Path:
     return cand
 
 
-def upgrade(path: str | Path, *, timeout_s: float = 30.0) -> dict[str, Any]:
+@dataclass(frozen=True)
+class UpgradeResult(Result):
+    """What :func:`upgrade` did: nothing (already current), or the schema step with its backup."""
+
+    archive: str
+    upgraded: bool
+    schema_version: int
+    backup: str | None = None
+    from_schema: int | None = None
+    tables_added: tuple[str, ...] = ()
+    nights_checksummed: int = 0
+
+
+def upgrade(path: str | Path, *, timeout_s: float = 30.0) -> UpgradeResult:
     """Bring an archive of an older schema to the current one, keeping a backup copy.
 
     Under the writer lock, the backup (``NAME.schemaN-backup.h5`` beside the
@@ -484,7 +498,7 @@ def upgrade(path: str | Path, *, timeout_s: float = 30.0) -> dict[str, Any]:
     path = Path(path)
     version = schema_of(path)
     if version == SCHEMA_VERSION:
-        return {"archive": str(path), "upgraded": False, "schema_version": version, "backup": None}
+        return UpgradeResult(str(path), False, version)
     if version > SCHEMA_VERSION:
         raise ArchiveError(f"{path}: archive schema {version} is newer than this varstar understands ({SCHEMA_VERSION}); upgrade varstar")
     if version < 1:
@@ -516,5 +530,4 @@ def upgrade(path: str | Path, *, timeout_s: float = 30.0) -> dict[str, Any]:
         if nights:
             tables.append(f, "digests", night_digests(f, nights))
         f.attrs["schema_version"] = SCHEMA_VERSION
-    return {"archive": str(path), "upgraded": True, "from_schema": version, "schema_version": SCHEMA_VERSION,
-            "backup": str(backup), "tables_added": added, "nights_checksummed": len(nights)}
+    return UpgradeResult(str(path), True, SCHEMA_VERSION, str(backup), version, tuple(added), len(nights))
