@@ -18,7 +18,7 @@ or key, and exit non-zero; an archive is never left half-changed"):
 Which rows a damaged file "says" is decided by a small reference reader written
 here from the README's description of the table (one row per line, ``#``
 comments and blank lines skipped, numbers written as decimal numbers, the
-plausibility ranges of ``varstar/measurements.py``).  Faults injected on
+plausibility ranges of ``varstar/measurements/``).  Faults injected on
 purpose also carry their own expected line and column, so the reference and the
 program are each checked against something independent.
 
@@ -69,7 +69,7 @@ LONG_HEADER = ["jd", "band", "star", "mag", "mag_err", "airmass", "exptime", "fl
 PER_EXPOSURE = ("jd", "band", "airmass", "exptime", "flag", "frame")
 REQUIRED_LONG = ("jd", "band", "star", "mag", "mag_err")
 RAW_COLUMNS = ["source", "line", "frame", "jd", "band", "star", "mag", "mag_err", "airmass", "exptime_s", "flag"]
-# Plausibility limits of varstar/measurements.py (common practice for CCD photometry).
+# Plausibility limits of varstar/measurements/ (common practice for CCD photometry).
 JD_MIN, JD_MAX, MAG_ABS_MAX, MAG_ERR_MAX, AIRMASS_MIN, AIRMASS_MAX, EXPTIME_MAX = (
     2_400_000.5, 2_500_000.5, 50.0, 5.0, 0.99, 40.0, 36_000.0,
 )
@@ -399,7 +399,7 @@ def reference(data: bytes, ids: list[str], bands: list[str], source_name: str) -
     if v.problems:
         return v
     # A last line without a line end that is the only measurement of its exposure, while other exposures have
-    # two or more, looks cut short and is refused (varstar/measurements.py, _check_cut_line).
+    # two or more, looks cut short and is refused (varstar/measurements/, validate.check_cut_line).
     last_no = text.count("\n") + 1
     if not data.endswith(b"\n") and kept[-1][0] == last_no and len(kept) > 1:
         key = (rows["frame"].astype(str) + "\x00" + rows["band"]).to_numpy()
