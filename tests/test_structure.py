@@ -21,7 +21,8 @@ PACKAGE = REPO / "varstar"
 
 #: Computational cores: arrays and tables in, results out.
 CORES = ("varstar.ensemble", "varstar.transform", "varstar.period", "varstar.timings", "varstar.quality",
-         "varstar.results", "varstar.errors")
+         "varstar.results", "varstar.errors", "varstar.inputs", "varstar.timescale", "varstar.colour", "varstar.simulate",
+         "varstar.target", "varstar.measurements")
 #: Shells: files, archives, terminals, figures.
 SHELLS = ("varstar.archive", "varstar.workflows", "varstar.cli", "varstar.demo", "varstar.plots", "varstar.export",
           "varstar.text")
