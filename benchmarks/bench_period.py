@@ -253,22 +253,24 @@ STAGES = (
     ("imports (all, also those inside the stages below)", "<frozen importlib._bootstrap>", ("_find_and_load",), None),
     ("reading the light curve", "varstar/archive/store.py", ("lightcurve",), None),
     ("analyse() in all", "varstar/period/analysis.py", ("analyse",), None),
-    ("  frequency grid", "varstar/period/grid.py", ("frequency_grid",), "varstar/period/analysis.py"),
-    ("  periodogram", "varstar/period/gls.py", ("gls_power",), "varstar/period/analysis.py"),
-    ("  periodogram (multi-band)", "varstar/period/multiband.py", ("multiband_power",), "varstar/period/analysis.py"),
-    ("  false-alarm probability", "varstar/period/significance.py", None, "varstar/period/analysis.py"),
+    ("  input checks", "varstar/period/series.py", None, "varstar/period/analysis.py"),
+    ("  frequency grid", "varstar/period/grid.py", ("frequency_grid",), "varstar/period/periodogram.py"),
+    ("  periodogram", "varstar/period/gls.py", ("gls_power",), "varstar/period/periodogram.py"),
+    ("  periodogram (multi-band)", "varstar/period/multiband.py", ("multiband_power",), "varstar/period/periodogram.py"),
+    ("  false-alarm probability", "varstar/period/significance.py", None, "varstar/period/periodogram.py"),
     ("  aliases", "varstar/period/aliases.py", None, "varstar/period/analysis.py"),
-    ("  PDM search", "varstar/period/analysis.py", ("_pdm_on_grid",), None),
-    ("  PDM search", "varstar/period/pdm.py", ("pdm_search",), "varstar/period/analysis.py"),
-    ("  PDM theta at the period", "varstar/period/pdm.py", ("pdm_theta",), "varstar/period/analysis.py:analyse"),
-    ("  PDM vs periodogram (phase neighbours)", "varstar/period/analysis.py", ("_cv_z",), None),
-    ("  P or 2P", "varstar/period/pdm.py", ("choose_p_or_2p",), None),
+    ("  aliases", "varstar/period/aliases.py", None, "varstar/period/rivals.py"),
+    ("  PDM search", "varstar/period/pdm.py", ("pdm_search",), "varstar/period/analysis.py:_candidates"),
+    ("  PDM theta at the period", "varstar/period/pdm.py", ("pdm_theta",), "varstar/period/analysis.py:_pdm_summary"),
+    ("  PDM vs periodogram (phase neighbours)", "varstar/period/rivals.py", ("cv_z",), None),
+    ("  P or 2P", "varstar/period/p_or_2p.py", ("choose_p_or_2p",), None),
     ("  harmonic fits (refine.* called by analysis)", "varstar/period/refine.py", None, "varstar/period/analysis.py"),
-    ("  rival aliases (harmonic fits)", "varstar/period/analysis.py", ("_check_rivals",), None),
+    ("  rival aliases (harmonic fits)", "varstar/period/rivals.py", ("check_rivals",), None),
     ("  eclipse template", "varstar/period/template.py", None, "varstar/period/analysis.py"),
     ("  nightly covariance", "varstar/period/nightly.py", None, "varstar/period/analysis.py"),
-    ("  prewhitening", "varstar/period/prewhiten.py", None, "varstar/period/analysis.py"),
+    ("  prewhitening", "varstar/period/prewhiten.py", ("prewhiten",), "varstar/period/analysis.py"),
     ("  joint fit of further frequencies", "varstar/period/sinusoids.py", None, "varstar/period/analysis.py"),
+    ("  frequencies and modes in words", "varstar/period/modes.py", None, "varstar/period/analysis.py"),
     ("JSON record", "varstar/results.py", None, "varstar/workflows/periods.py"),
     ("plots", "varstar/plots.py", None, "varstar/cli.py"),
     ("storing in the archive", "varstar/archive/transaction.py", ("transaction",), "varstar/archive/store.py"),
@@ -389,7 +391,7 @@ def best_of(fn, repeats: int):
 def kernels(points: dict[int, tuple[np.ndarray, np.ndarray, np.ndarray]], repeats: int) -> None:
     from astropy.timeseries import LombScargle
 
-    from varstar.period import pdm
+    from varstar.period import p_or_2p, pdm
     from varstar.period.gls import gls_power
     from varstar.period.grid import frequency_grid
 
@@ -429,7 +431,7 @@ def kernels(points: dict[int, tuple[np.ndarray, np.ndarray, np.ndarray]], repeat
         ph = (tn - tn[0]) / P_TRUE
         ph -= np.floor(ph)
         a, o1 = best_of(lambda: np.argsort(ph, kind="stable"), repeats * 3)
-        b, o2 = best_of(lambda: pdm._phase_order(ph), repeats * 3)
+        b, o2 = best_of(lambda: p_or_2p._phase_order(ph), repeats * 3)
         print(f"  {tn.size:>8,} numpy.argsort {a * 1e3:7.2f} ms, radix + merge {b * 1e3:7.2f} ms ({a / b:.1f}x), "
               f"identical: {bool(np.array_equal(o1, o2))}")
 

@@ -30,7 +30,8 @@ from helpers import ONE_SIGMA, T_START, TWO_PI, nightly, lomb_scargle, harmonic_
 
 from varstar.errors import InputError
 from varstar.period.aliases import alias_report, find_peaks, relate, spectral_window
-from varstar.period.pdm import choose_p_or_2p, pdm_theta
+from varstar.period.p_or_2p import choose_p_or_2p
+from varstar.period.pdm import pdm_theta
 from varstar.period.prewhiten import amplitude_spectrum, prewhiten
 from varstar.period.refine import fit_harmonics
 
@@ -174,7 +175,7 @@ def test_p_or_2p_keeps_the_period_of_a_pulsator_and_of_noise():
     y = harmonic_curve(t, f0, [0.30, 0.15, 0.10, 0.07], [0.3, 1.9, 3.6, 5.3], T_START) + 0.02 * rng.standard_normal(t.size)
     assert choose_p_or_2p(t, y, dy, f0).factor == 1
     zs = [choose_p_or_2p(t, 0.02 * rng.standard_normal(t.size), dy, 1.3, refine=False).z for _ in range(40)]
-    # flat curve: z is about normal, spread 1.15-1.2 (pdm._paired_z); none near the threshold 4
+    # flat curve: z is about normal, spread 1.15-1.2 (p_or_2p.paired_z); none near the threshold 4
     assert abs(np.mean(zs)) < 0.7 and max(zs) < 4
 
 

@@ -57,6 +57,12 @@ stretch of the series on its own, coarser grid (minima there are as wide as one
 over the stretch's length, so that grid samples them properly), whose best minima
 are followed through longer and longer stretches to the whole series.  The cost
 grows linearly with ``N``.
+
+P or 2P
+-------
+:class:`PeriodChoice` records whether a folded curve repeats at P or only after
+2P; :func:`varstar.period.p_or_2p.choose_p_or_2p` makes that choice (by phase
+neighbours, with this module's theta at both periods for the record).
 """
 
 from __future__ import annotations
@@ -75,9 +81,7 @@ from varstar.period._common import check_freq, check_series
 __all__ = [
     "DEFAULT_BUDGET",
     "PeriodChoice",
-    "choose_p_or_2p",
-    "loo_errors",
-    "paired_z",
+    "check_bins",
     "pdm_search",
     "pdm_theta",
 ]
@@ -98,7 +102,8 @@ DEFAULT_BUDGET = 100_000_000
 _STRETCH_GROWTH = 4.0
 
 
-def _check_bins(n_bins: int, n_covers: int) -> tuple[int, int]:
+def check_bins(n_bins: int, n_covers: int) -> tuple[int, int]:
+    """``n_bins`` and ``n_covers`` as integers, refused (InputError) below 2 and 1."""
     n_bins, n_covers = int(n_bins), int(n_covers)
     if n_bins < 2:
         raise InputError(f"phase dispersion: n_bins must be at least 2 (got {n_bins})")
@@ -250,7 +255,7 @@ def pdm_theta(
     """
     t, y, dy = check_series(t, y, dy, what="phase dispersion")
     freq = check_freq(freq)
-    n_bins, n_covers = _check_bins(n_bins, n_covers)
+    n_bins, n_covers = check_bins(n_bins, n_covers)
     s = _prepare(t, y, dy)
     if s.ss_tot <= 0.0:
         raise InputError("phase dispersion: the magnitudes are all equal; there is nothing to fold")
@@ -403,6 +408,34 @@ def _coarse_pass(t, y, dy, freq, targets, budget, n_best, n_bins, n_covers):
                             f"{len(windows)} more window{'s' if len(windows) > 1 else ''} ({n_new:,} grid frequencies)")
 
 
+def _target_windows(freq: np.ndarray, centres: Any, multiples: Sequence[float], half_width: float,
+                    span: float) -> tuple[list[float], np.ndarray, list[str]]:
+    """The windows of :func:`pdm_search` around the candidates: targets, grid mask and a note.
+
+    Returns the sorted window middles (each centre times each of ``multiples``),
+    the mask of the grid frequencies within ``half_width / span`` of one (at least
+    three steps each side, :func:`_window`), and the words for the description
+    (empty when no window falls on the grid).
+    """
+    half = float(half_width) * (1.0 / span)
+    targets = sorted({float(c) * float(k) for c in np.atleast_1d(np.asarray(centres, dtype=float))
+                      for k in multiples if np.isfinite(c) and c * k > 0})
+    mask = np.zeros(freq.size, dtype=bool)
+    n_windows = 0
+    for g in targets:
+        w = _window(freq, g, half)
+        if w is not None:
+            mask[w[0]:w[1]] = True
+            n_windows += 1
+    n_target_freqs = int(mask.sum())
+    parts = []
+    if n_windows:
+        parts.append(f"windows of +-{half_width:g}/T around {n_windows} candidate frequencies "
+                     f"({len(np.atleast_1d(centres))} given, times {', '.join(f'{k:g}' for k in multiples)}): "
+                     f"{n_target_freqs:,} grid frequencies")
+    return targets, mask, parts
+
+
 def pdm_search(
     t: Any,
     y: Any,
@@ -470,7 +503,7 @@ def pdm_search(
     """
     t, y, dy = check_series(t, y, dy, what="phase dispersion")
     freq = check_freq(freq)
-    n_bins, n_covers = _check_bins(n_bins, n_covers)
+    n_bins, n_covers = check_bins(n_bins, n_covers)
     if freq.size > 1 and not np.all(np.diff(freq) > 0):
         raise InputError("phase dispersion search: the frequency grid must increase (build it with frequency_grid)")
     s = _prepare(t, y, dy)
@@ -480,23 +513,7 @@ def pdm_search(
     if n * m <= budget or m < 3 or s.span <= 0:
         return _theta_of(s, freq, n_bins, n_covers), f"whole grid ({m:,} frequencies, {n:,} points)"
 
-    peak = 1.0 / s.span
-    half = float(half_width) * peak
-    targets = sorted({float(c) * float(k) for c in np.atleast_1d(np.asarray(centres, dtype=float))
-                      for k in multiples if np.isfinite(c) and c * k > 0})
-    mask = np.zeros(m, dtype=bool)
-    n_windows = 0
-    for g in targets:
-        w = _window(freq, g, half)
-        if w is not None:
-            mask[w[0]:w[1]] = True
-            n_windows += 1
-    n_target_freqs = int(mask.sum())
-    parts = []
-    if n_windows:
-        parts.append(f"windows of +-{half_width:g}/T around {n_windows} candidate frequencies "
-                     f"({len(np.atleast_1d(centres))} given, times {', '.join(f'{k:g}' for k in multiples)}): "
-                     f"{n_target_freqs:,} grid frequencies")
+    targets, mask, parts = _target_windows(freq, centres, multiples, half_width, s.span)
     if n_coarse > 0:
         by_time = np.argsort(t, kind="stable")
         windows, note = _coarse_pass(t[by_time], y[by_time], dy[by_time], freq, targets, coarse_share * budget,
@@ -512,7 +529,8 @@ def pdm_search(
     return theta, "; ".join(parts)
 
 
-# --------------------------------------------------------------------------- P or 2P
+# --------------------------------------------------------------------------- P or 2P: the verdict
+# (made by :func:`varstar.period.p_or_2p.choose_p_or_2p`, which folds with phase neighbours)
 
 
 @dataclass(frozen=True)
@@ -563,242 +581,3 @@ class PeriodChoice(Result):
             "method": "leave-one-out prediction from phase neighbours at P and 2P; PDM theta at equal bin width",
             **super().to_dict(),
         }
-
-
-def _phase_order(phase: np.ndarray) -> np.ndarray:
-    """``np.argsort(phase, kind="stable")`` for phases in [0, 1), the same permutation, faster.
-
-    A stable radix sort on the top 16 bits of the phase (numpy sorts 16-bit keys by
-    radix, in linear time) leaves only points sharing those bits out of order; the
-    stable merge sort that follows then meets long sorted runs.  Ties keep index
-    order in both passes, so the result is identical.  Five to six times faster at
-    50,000 and 200,000 points (``benchmarks/bench_period.py --kernels``).
-    """
-    key = (phase * 65536.0).astype(np.uint16)  # exact scaling by 2**16; phase < 1
-    coarse = np.argsort(key, kind="stable")
-    return coarse[np.argsort(phase[coarse], kind="stable")]
-
-
-def _fold_orders(tt: np.ndarray, f: float) -> tuple[np.ndarray, np.ndarray]:
-    """Phase order (as :func:`_phase_order`) of the fold at ``f``, and the reordering of it for ``f/2``.
-
-    Returns ``order`` and ``split`` such that ``order[split]`` is the phase order of
-    the fold at ``f/2``, found without another sort: with ``x = f tt`` (the cycle
-    count), the phase at ``f/2`` is ``(p + frac(x)) / 2`` where ``p`` is the parity
-    of ``floor(x)``, so the ``f/2`` fold lists the even cycles' points in their order
-    at ``f``, then the odd cycles' points.  In floating point the phase at ``f/2`` is
-    computed exactly so (halving is exact, and so are the subtractions of the
-    floors), ties included, so ``order[split]`` is identical to sorting the ``f/2``
-    phases.  ``split`` is a stable partition (a radix pass over one byte).
-    """
-    x = f * tt
-    cycle = np.floor(x)
-    order = _phase_order(x - cycle)
-    odd = (cycle.astype(np.int64) & 1).astype(np.uint8)[order]
-    return order, np.argsort(odd, kind="stable")
-
-
-def _loo_sorted(order: np.ndarray, rows: np.ndarray, m: int) -> np.ndarray:
-    """Leave-one-out residuals, in original point order, of points in phase ``order``.
-
-    ``rows`` holds ``w, w y, y`` of the points already in that order (N x 3).  Same
-    operations, in the same order, as the straightforward form in :func:`loo_errors`.
-    """
-    n = order.size
-    ws, wys = rows[:, 0], rows[:, 1]
-    cw = np.empty(n + 2 * m + 1)
-    cwy = np.empty(n + 2 * m + 1)
-    cw[0] = cwy[0] = 0.0
-    np.cumsum(np.concatenate((ws[-m:], ws, ws[:m])), out=cw[1:])  # cyclic padding
-    np.cumsum(np.concatenate((wys[-m:], wys, wys[:m])), out=cwy[1:])
-    sum_w = cw[2 * m + 1 : 2 * m + 1 + n] - cw[:n] - ws  # the 2m neighbours of each point
-    sum_wy = cwy[2 * m + 1 : 2 * m + 1 + n] - cwy[:n] - wys
-    err = np.empty(n)
-    err[order] = rows[:, 2] - sum_wy / sum_w
-    return err
-
-
-def _loo_pair(tt: np.ndarray, cols: np.ndarray, f: float, m: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Leave-one-out residuals of the folds at ``f`` and ``f/2``, and the phase order at ``f``.
-
-    ``cols`` is the (N, 3) stack ``w, w y, y``.  The points are gathered into phase
-    order once (one random access per point for all three values); the ``f/2`` fold
-    takes them from there in two sequential streams.
-    """
-    order, split = _fold_orders(tt, f)
-    rows = np.take(cols, order, axis=0)
-    return _loo_sorted(order, rows, m), _loo_sorted(order[split], np.take(rows, split, axis=0), m), order
-
-
-def loo_errors(tt: np.ndarray, y: np.ndarray, w: np.ndarray, f: float, m: int) -> np.ndarray:
-    """Leave-one-out residuals of the fold at ``f``: each point minus the weighted mean of its 2m phase neighbours.
-
-    ``tt`` are the times (days, any origin), ``y`` the magnitudes and ``w`` their
-    weights (``1/dy**2``); the neighbours are the ``m`` points before and ``m``
-    after each point in cyclic phase order.
-    """
-    phase = f * tt
-    phase -= np.floor(phase)
-    order = _phase_order(phase)
-    return _loo_sorted(order, np.column_stack((w, w * y, y))[order], m)
-
-
-def _refine_by_neighbours(tt: np.ndarray, y: np.ndarray, w: np.ndarray, f: float, m: int) -> float:
-    """Frequency near ``f`` minimising the leave-one-out errors of the P and 2P folds together.
-
-    Both folds enter with equal weight, so the search favours neither answer.
-    Two grid passes.
-    """
-    span = float(tt.max())
-    if span <= 0:
-        return f
-    half = 0.5 / span
-    centre = f
-    cols = np.column_stack((w, w * y, y))
-
-    def cost(g: float) -> float:
-        e_p, e_2p, _ = _loo_pair(tt, cols, g, m)
-        return float(np.sum(w * (e_p**2 + e_2p**2)))
-
-    for n_grid in (41, 21):  # coarse: steps of 1/(40 T); fine: 1/20 of that
-        grid = centre + np.linspace(-half, half, n_grid)
-        grid = grid[grid > 0]
-        costs = [cost(g) for g in grid]  # a few dozen folds, each vectorised over the points
-        centre = float(grid[int(np.argmin(costs))])
-        half = 2.0 * half / (n_grid - 1)
-    return centre
-
-
-def paired_z(d: np.ndarray, cycles: np.ndarray, m: int, order: np.ndarray | None = None) -> float:
-    """``sum(d) / SE`` for the paired prediction-error differences ``d``.
-
-    ``d`` is put in phase order at P (``cycles = f (t - t0)``) and its local mean
-    (a running mean over ``8m + 1`` phase neighbours) is removed before the
-    variance is taken, so that a difference confined to some phases (eclipses) is
-    not counted as scatter.  The variance of the sum is then ``N`` times that of
-    the demeaned values (independent points).  Points that share phase neighbours
-    are slightly correlated; on simulated flat and repeating curves with white
-    noise the resulting ``z`` has a spread of about 1.15-1.2 instead of 1, which
-    the default threshold of :func:`choose_p_or_2p` allows for.  ``order``: the
-    phase order of ``cycles`` when the caller has it.
-    """
-    n = d.size
-    if order is None:
-        order = _phase_order(cycles - np.floor(cycles))
-    ds = d[order]
-    h = min(4 * m, (n - 1) // 2)
-    pad = np.concatenate((ds[n - h :], ds, ds[:h]))
-    c = np.concatenate(([0.0], np.cumsum(pad)))
-    local = (c[2 * h + 1 :] - c[: -2 * h - 1]) / (2 * h + 1)
-    # the local mean includes the point itself: (1 - 1/W) of the variance survives
-    var = float(np.sum((ds - local) ** 2)) / (1.0 - 1.0 / (2 * h + 1))
-    if not var > 0:
-        return 0.0
-    return float(np.sum(d) / math.sqrt(var))
-
-
-def choose_p_or_2p(
-    t: Any,
-    y: Any,
-    dy: Any,
-    f: float,
-    *,
-    n_bins: int = 10,
-    n_covers: int = 2,
-    n_neighbours: int = 10,
-    z_crit: float = 4.0,
-    refine: bool = True,
-) -> PeriodChoice:
-    """Decide whether the light curve supports P = 1/f or only 2P.
-
-    A single-sinusoid periodogram of a light curve with two minima per cycle (an
-    eclipsing or ellipsoidal binary) peaks at half the true period.  Folded at 2P,
-    such a curve shows two different halves; a curve that truly repeats at P shows
-    the same half twice.
-
-    The decision is made by cross-validation: each point is predicted by the
-    weighted mean of its ``n_neighbours`` nearest neighbours in phase (half before,
-    half after) once in the P fold and once in the 2P fold.  If the curve repeats at
-    P, the 2P neighbours come from half the points (cycles of one parity) and so
-    lie about twice as far away in phase: the 2P prediction is not better on
-    average (equal for a flat curve).  If the halves differ, the P prediction mixes
-    the two halves and loses.  With ``d_i = w_i (e_P,i**2 - e_2P,i**2)`` and
-    ``w = 1/dy**2``, ``z = sum d / SE``; the standard error allows for a difference
-    confined to some phases (see ``paired_z``); the factor is 2 when
-    ``z > z_crit``.  Unlike a binned F test (tried first: 40% false choices of 2P
-    on a simulated detached binary) this does not mistake the changing light curve
-    inside a bin for a difference of the halves, a pitfall for narrow eclipses and
-    nightly sampling.  ``theta_p``/``theta_2p`` are PDM values at equal bin width in time
-    (``n_bins`` at P, ``2 n_bins`` at 2P), for the record; plain PDM at equal bin
-    numbers favours the shorter period, whose bins are narrower in time.
-
-    Parameters
-    ----------
-    t, y, dy : array_like
-        Times (days), magnitudes and errors.
-    f : float
-        The candidate frequency (cycles/day), e.g. a periodogram's peak.
-    n_bins, n_covers : int
-        PDM settings for the reported theta values.
-    n_neighbours : int
-        Even number of phase neighbours used to predict each point.
-    z_crit : float
-        Threshold of the one-sided test.  For a flat curve with white noise ``z``
-        is about normal with mean 0 and spread 1.15-1.2 (simulations); for a curve
-        that repeats at P it shifts negative.  4 keeps false choices of 2P near
-        1 in 1000 or fewer.
-    refine : bool
-        First move ``f`` within +-1/(2T) (``T`` the time span) to where the P and
-        2P folds together predict their points best (leave-one-out errors of the
-        phase neighbours; model-free, so narrow eclipses are not blurred by a
-        truncated Fourier series).  A periodogram's grid peak is off by up to half a step;
-        folded over the whole span that error smears the curve, and it can smear
-        the two folds differently when cycle parity goes with the night (nightly
-        sampling), which would fake a difference of the halves.  The refined
-        frequency is the one reported.
-
-    Returns
-    -------
-    PeriodChoice
-        Also unpacks as ``factor, theta_p, theta_2p, note``.
-    """
-    t, y, dy = check_series(t, y, dy, what="period choice")
-    if not (np.isfinite(f) and f > 0):
-        raise InputError(f"period choice: the frequency must be positive (got {f!r})")
-    n_bins, n_covers = _check_bins(n_bins, n_covers)
-    m = int(n_neighbours) // 2
-    if m < 1:
-        raise InputError(f"period choice: n_neighbours must be at least 2 (got {n_neighbours})")
-    if t.size < 4 * m + 2:
-        raise InputError(
-            f"period choice: {t.size} points are too few for {2 * m} phase neighbours; "
-            "give more data or fewer neighbours"
-        )
-    w = 1.0 / dy**2
-    tt = t - t.min()
-    if refine:
-        f = _refine_by_neighbours(tt, y, w, f, m)
-    e_p, e_2p, at_p = _loo_pair(tt, np.column_stack((w, w * y, y)), f, m)
-    d = w * (e_p**2 - e_2p**2)
-    sw = float(np.sum(w))
-    cv_p = float(np.sum(w * e_p**2) / sw)
-    cv_2p = float(np.sum(w * e_2p**2) / sw)
-    z = paired_z(d, f * tt, m, order=at_p)
-    theta_p = float(pdm_theta(t, y, dy, [f], n_bins=n_bins, n_covers=n_covers)[0])
-    theta_2p = float(pdm_theta(t, y, dy, [0.5 * f], n_bins=2 * n_bins, n_covers=n_covers)[0])
-    period = 1.0 / f
-    if z > z_crit:
-        factor = 2
-        note = (
-            f"the two halves of the cycle folded at 2P = {2 * period:.6g} d differ: neighbours in the 2P fold "
-            f"predict the points better (mean squared error {cv_2p:.3g} vs {cv_p:.3g} mag^2, z = {z:.1f}); "
-            f"the light curve repeats only after 2P = {2 * period:.6g} d"
-        )
-    else:
-        factor = 1
-        note = (
-            f"the two halves of the cycle folded at 2P = {2 * period:.6g} d agree within the noise "
-            f"(z = {z:.1f} <= {z_crit:g}): the data support P = {period:.6g} d; for an eclipsing binary with "
-            "equal minima the orbital period may still be 2P"
-        )
-    return PeriodChoice(factor, float(f), factor * period, theta_p, theta_2p, cv_p, cv_2p, z, float(z_crit), note)

@@ -34,6 +34,13 @@ Frequencies closer than ``1.5/T`` (the resolution with a margin) to one already
 found are not separated: prewhitening stops there and says so.  Errors come from
 the final simultaneous fit, its covariance scaled by chi2/dof as in
 :mod:`varstar.period.refine`; phases follow that module's cosine convention.
+
+How the code runs: :func:`_setup` checks the arguments once (a frozen
+:class:`_Setup`); :func:`_start` makes the search's state (:class:`_Search`, the
+one mutable record: accepted frequencies, their fit, the blocked grid
+frequencies, why the search stopped); :func:`_round` is one round (peak, trial
+fit, acceptance) and ends the search at any of its exits; :func:`_found` turns the
+final fit into :class:`FoundFrequency` values (:mod:`.prewhiten_result`).
 """
 
 from __future__ import annotations
@@ -46,20 +53,22 @@ from typing import Any, Callable
 import numpy as np
 
 from varstar.errors import InputError, ReductionError
-from varstar.results import Result, sd
+from varstar.results import sd
 from varstar.period import gls
 from varstar.period._common import check_freq, check_series, propagated_err
-from varstar.period.nightly import nightly_whitener
+from varstar.period.nightly import NightlyWhitener, nightly_whitener
 from varstar.period.sinusoids import (
+    SinusoidFit,
     amplitude_phase,
     design_matrix,
     fit_sinusoids,
     frequency_index,
-    model_jacobian,
     solve_linear,
 )
+from varstar.period.prewhiten_result import FoundFrequency, PrewhiteningResult
 
 __all__ = ["amplitude_spectrum", "FoundFrequency", "PrewhiteningResult", "prewhiten"]
+
 
 def amplitude_spectrum(t: Any, y: Any, dy: Any, freq: Any) -> np.ndarray:
     """Weighted DFT amplitude spectrum (semi-amplitude scale; see the module docstring).
@@ -89,101 +98,6 @@ def _noise(t, r, dy, f0, window, step) -> float:
     lo = max(f0 - 0.5 * window, step)  # frequency 0 is the mean, not noise
     grid = np.arange(lo, hi + 0.5 * step, step)
     return float(np.mean(amplitude_spectrum(t, r, dy, grid)))
-
-
-@dataclass(frozen=True)
-class FoundFrequency(Result):
-    """One frequency of a prewhitening solution (errors are 1 sigma).
-
-    ``amplitude``/``phase`` belong to the first harmonic in the convention
-    ``A cos(2 pi f (t - t_ref) + phase)``; ``harmonic_amplitudes`` lists all
-    ``nterms`` of them.  ``snr`` is amplitude / ``noise`` (mean residual amplitude
-    spectrum around the frequency).  ``relation`` names a harmonic or combination
-    of earlier frequencies (``"2 f1"``, ``"f1 + f2"``, ``"f2 - f1"``) or is empty.
-    """
-
-    label: str
-    frequency: float
-    frequency_err: float
-    period: float
-    period_err: float
-    amplitude: float
-    amplitude_err: float
-    phase: float
-    phase_err: float
-    snr: float
-    noise: float
-    harmonic_amplitudes: tuple[float, ...]
-    relation: str
-
-
-@dataclass(frozen=True, eq=False)
-class PrewhiteningResult(Result):
-    """Frequencies found by prewhitening, their errors, and why the search stopped.
-
-    Attributes
-    ----------
-    frequencies : tuple of FoundFrequency
-        In the order found.
-    mean_mag, mean_mag_err, t_ref : float
-        Common mean of the final fit and the phase reference time.
-    nterms : tuple of int
-        Harmonics fitted with each frequency.
-    chi2, dof, reduced_chi2, rms : float, int, float, float
-        Of the final simultaneous fit (rms unweighted, mag).
-    stop_reason : str
-        Plain words: why no further frequency was accepted.
-    stop_frequency, stop_amplitude, stop_noise, stop_snr : float
-        The rejected candidate (NaN if the search ended for another reason).
-    relations : tuple of str
-        Harmonics and combinations noticed, e.g. ``"f3 = f1 + f2"``.
-    snr_limit, noise_window : float
-        Settings used.
-    warnings : tuple of str
-    params, covariance : np.ndarray
-        Final parameter vector ``[m, f_1, a_11, b_11, ...]`` and scaled covariance.
-    """
-
-    frequencies: tuple[FoundFrequency, ...]
-    mean_mag: float
-    mean_mag_err: float
-    t_ref: float
-    nterms: tuple[int, ...]
-    chi2: float
-    dof: int
-    reduced_chi2: float
-    rms: float
-    stop_reason: str
-    stop_frequency: float
-    stop_amplitude: float
-    stop_noise: float
-    stop_snr: float
-    relations: tuple[str, ...]
-    snr_limit: float
-    noise_window: float
-    warnings: tuple[str, ...]
-    params: np.ndarray = field(repr=False)
-    covariance: np.ndarray = field(repr=False)
-
-    _json_exclude = ("params", "covariance")
-
-    def model(self, t: Any) -> np.ndarray:
-        """The fitted multi-frequency model at times ``t``."""
-        tau = np.asarray(t, dtype=float) - self.t_ref
-        mod, _ = model_jacobian(self.params, tau.ravel(), len(self.frequencies), self.nterms, want_jac=False)
-        return mod.reshape(tau.shape)
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON-safe plain dict (NaN becomes None): the method, the phase convention, then the fields
-        (``params`` and ``covariance`` left out)."""
-        return {
-            "method": (
-                "iterative prewhitening: periodogram peak, simultaneous non-linear least squares of all "
-                "frequencies, amplitude S/N against the mean residual amplitude spectrum (Breger et al. 1993)"
-            ),
-            "phase_convention": "y = mean_mag + sum_i sum_k A_ik cos(2 pi k f_i (t - t_ref) + phi_ik)",
-            **super().to_dict(),
-        }
 
 
 #: A year in days: the seasonal sidebands of nightly systematics lie at multiples of 1/YEAR_D c/d.
@@ -263,6 +177,321 @@ def _best_alias(tau, y, whiten, accepted, terms, nterms, trials) -> float:
     return best
 
 
+@dataclass(frozen=True)
+class _Setup:
+    """What every round of the search reads and never changes: the checked series and the settings.
+
+    ``t, y, dy`` the points, ``freq`` the grid searched, ``periodogram`` the peak
+    finder; ``t_ref`` the weighted mean time (phase reference), ``baseline`` the time
+    span, ``step`` the noise grid's step ``1/(10 T)``, ``resolution`` ``1.5/T``;
+    ``whiten`` the nights' covariance (:mod:`.nightly`); ``aliases_cpd`` the offsets
+    tried at each peak (only 0 without alias trials); the other fields are the
+    arguments of :func:`prewhiten` of the same names (``max_frequencies`` an int).
+    """
+
+    t: np.ndarray
+    y: np.ndarray
+    dy: np.ndarray
+    freq: np.ndarray
+    periodogram: Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray], np.ndarray]
+    nterms: int
+    snr_limit: float
+    max_frequencies: int
+    noise_window: float
+    relation_tolerance: float | None
+    first: float | None
+    first_nterms: int
+    fap_limit: float | None
+    baseline: float
+    t_ref: float
+    step: float
+    resolution: float
+    whiten: NightlyWhitener
+    aliases_cpd: np.ndarray
+
+
+@dataclass(frozen=True)
+class _Stop:
+    """Why the search ended, and the rejected candidate's frequency, amplitude, noise and S/N (NaN if none)."""
+
+    reason: str
+    f: float = math.nan
+    amp: float = math.nan
+    noise: float = math.nan
+    snr: float = math.nan
+
+
+@dataclass(eq=False)
+class _Search:
+    """The state of the search: explicitly mutable, changed by :func:`_start` and each round.
+
+    ``accepted`` the accepted frequencies (their fitted values, in the order found),
+    ``terms`` the harmonics of each; ``fit`` the last accepted simultaneous fit (None
+    until one is accepted) and ``resid`` the data less it (less the weighted mean
+    before); ``blocked`` the grid frequencies the peak search skips (harmonics and
+    half-harmonics of ``first``, and peaks found to be aliases of them);
+    ``skipped`` how many such alias peaks were passed over; ``warnings`` in the order
+    raised; ``stop`` why the search ended (set by the round that ends it).
+    """
+
+    accepted: np.ndarray
+    terms: tuple[int, ...]
+    fit: SinusoidFit | None
+    resid: np.ndarray
+    blocked: np.ndarray
+    skipped: int = 0
+    warnings: list[str] = field(default_factory=list)
+    stop: _Stop | None = None
+
+
+def _setup(t, y, dy, freq, periodogram, *, nterms, snr_limit, max_frequencies, noise_window, relation_tolerance,
+           first, first_nterms, group, group_err, fap_limit, alias_trials) -> _Setup:
+    """Check the arguments of :func:`prewhiten` (same order, same messages) and prepare the series.
+
+    Takes the arguments of :func:`prewhiten`; returns the :class:`_Setup` of the search.
+    Raises InputError for bad series or settings, or when all times are equal.
+    """
+    t, y, dy = check_series(t, y, dy, what="prewhitening")
+    freq = check_freq(freq)
+    if not callable(periodogram):
+        raise InputError("prewhitening: 'periodogram' must be a function periodogram(t, y, dy, freq) -> power")
+    nterms = int(nterms)
+    if nterms < 1 or int(first_nterms) < 1:
+        raise InputError(f"prewhitening: nterms must be at least 1 (got {nterms})")
+    if not snr_limit > 0 or not noise_window > 0 or int(max_frequencies) < 1:
+        raise InputError("prewhitening: snr_limit and noise_window must be positive and max_frequencies >= 1")
+    baseline = float(t.max() - t.min())
+    if baseline <= 0:
+        raise InputError("prewhitening: all times are equal; a time span is needed")
+    w = 1.0 / dy**2
+    return _Setup(
+        t=t, y=y, dy=dy, freq=freq, periodogram=periodogram, nterms=nterms, snr_limit=snr_limit,
+        max_frequencies=int(max_frequencies), noise_window=noise_window, relation_tolerance=relation_tolerance,
+        first=first, first_nterms=int(first_nterms), fap_limit=fap_limit, baseline=baseline,
+        t_ref=float(np.sum(w * t) / np.sum(w)), step=1.0 / (10.0 * baseline), resolution=1.5 / baseline,
+        whiten=nightly_whitener(dy, group, group_err),
+        aliases_cpd=(np.array([0.0, -1.0027379, 1.0027379, -2.0054758, 2.0054758]) if alias_trials
+                     else np.zeros(1)),
+    )
+
+
+def _start(c: _Setup) -> _Search:
+    """The state before the first round.
+
+    Takes the setup; returns a :class:`_Search` with nothing accepted (residuals:
+    the data less their weighted mean), or, when ``first`` is given, ``first``
+    fitted with ``first_nterms`` harmonics and its harmonics and half-harmonics
+    (``k first / 2``, within the resolution) blocked.
+    """
+    w = 1.0 / c.dy**2
+    s = _Search(accepted=np.zeros(0), terms=(), fit=None, resid=c.y - np.sum(w * c.y) / np.sum(w),
+                blocked=np.zeros(c.freq.size, dtype=bool))
+    if c.first is not None:
+        s.fit = fit_sinusoids(c.t, c.y, c.dy, [float(c.first)], (c.first_nterms,), c.t_ref, whiten=c.whiten)
+        s.terms = (c.first_nterms,)
+        s.accepted = s.fit.params[frequency_index(s.terms)].copy()
+        s.resid = s.fit.resid
+        half = 0.5 * float(s.accepted[0])
+        k = np.rint(c.freq / half)
+        s.blocked |= (k >= 1) & (np.abs(c.freq - k * half) < c.resolution)
+    return s
+
+
+def _round(c: _Setup, s: _Search) -> bool:
+    """One round: the residuals' highest free peak, its trial fit, then acceptance or the end.
+
+    Takes the setup and the state (changed in place); returns True to go on, False
+    when the search has ended (``s.stop`` then says why).  The exits: at
+    ``max_frequencies``; no finite periodogram value, or a peak unresolved from an
+    accepted frequency (:func:`_residual_peak`); a failed alias comparison or trial
+    fit (:func:`_trial_fit`); too many peaks that are aliases of the main signal's
+    harmonics (:func:`_skip_alias`); a candidate below the S/N or FAP limits
+    (:func:`_accept`).
+    """
+    if s.accepted.size >= c.max_frequencies:
+        s.stop = _Stop(f"stopped at max_frequencies = {c.max_frequencies}")
+        return False
+    peak = _residual_peak(c, s)
+    if peak is None:
+        return False
+    f_new, fap = peak
+    new_terms = s.terms + (c.nterms,)
+    tried = _trial_fit(c, s, f_new, new_terms)
+    if tried is None:
+        return False
+    f_best, trial = tried
+    if f_best != f_new and _is_harmonic(c, s, f_best):
+        return _skip_alias(c, s, f_new)
+    return _accept(c, s, trial, f_best, fap, new_terms)
+
+
+def _residual_peak(c: _Setup, s: _Search) -> tuple[float, float] | None:
+    """The highest peak of the residuals' periodogram outside the blocked frequencies.
+
+    Takes the setup and the state; returns the peak's grid frequency and, with
+    ``fap_limit``, its false-alarm probability (Baluev 2008, over the grid; NaN
+    without).  Returns None, with ``s.stop`` set, when no value is finite or the peak
+    lies within the resolution of an accepted frequency.  The residuals searched
+    have each night's estimated offset removed.
+    """
+    searched = c.whiten.without_offsets(s.resid)
+    power = np.asarray(c.periodogram(c.t, searched, c.dy, c.freq), dtype=float)
+    if power.shape != c.freq.shape:
+        raise InputError(
+            f"prewhitening: the periodogram returned {power.size} values for {c.freq.size} frequencies"
+        )
+    power = np.where(s.blocked, np.nan, power)
+    if not np.any(np.isfinite(power)):
+        s.stop = _Stop("the periodogram of the residuals has no finite value")
+        return None
+    i_new = int(np.nanargmax(power))
+    f_new = float(c.freq[i_new])
+    close = np.abs(s.accepted - f_new) < c.resolution
+    if close.any():
+        near = int(np.flatnonzero(close)[0])
+        s.stop = _Stop(
+            f"the next peak at {f_new:.6f} c/d lies within 1.5/T = {c.resolution:.5f} c/d of "
+            f"f{near + 1}: unresolved (amplitude or phase change?); a longer time span would separate them",
+            f=f_new,
+        )
+        return None
+    fap = math.nan
+    if c.fap_limit is not None:
+        from varstar.period.significance import fap_baluev
+
+        fap = float(fap_baluev(float(power[i_new]), c.freq, c.t, c.dy, nterms=1))
+    return f_new, fap
+
+
+def _trial_fit(c: _Setup, s: _Search, f_new: float, new_terms: tuple[int, ...]) -> tuple[float, SinusoidFit] | None:
+    """The candidate, and the simultaneous fit of all accepted frequencies with it.
+
+    Takes the peak ``f_new`` and the harmonics of every frequency with the new one
+    (``new_terms``).  With alias trials the candidate is whichever of the peak and its
+    +-1 and +-2 c/d (sidereal) aliases, added to the whole model at fixed
+    frequencies, lowers chi-square most (:func:`_best_alias`): with single-site
+    nights the noise can lift an alias above the true peak (common practice: aliases
+    are told apart by the fit, not by the periodogram alone); aliases may lie beyond
+    the grid.  Returns ``(candidate, fit)``, or None with ``s.stop`` set when the
+    comparison or the fit fails (degenerate sampling for this set).
+    """
+    f_best = f_new
+    if c.aliases_cpd.size > 1:
+        try:
+            f_best = _best_alias(c.t - c.t_ref, c.y, c.whiten, s.accepted, s.terms, c.nterms,
+                                 f_new + c.aliases_cpd[f_new + c.aliases_cpd > 0])
+        except ReductionError as exc:
+            s.stop = _Stop(f"the alias comparison at {f_new:.6f} c/d failed: {exc}", f=f_new)
+            return None
+    try:
+        trial = fit_sinusoids(c.t, c.y, c.dy, np.append(s.accepted, f_best), new_terms, c.t_ref, whiten=c.whiten)
+    except ReductionError as exc:
+        s.stop = _Stop(f"the fit with the candidate at {f_best:.6f} c/d failed: {exc}", f=f_best)
+        return None
+    return f_best, trial
+
+
+def _is_harmonic(c: _Setup, s: _Search, f: float) -> bool:
+    """Whether ``f`` lies within the resolution of a harmonic or half-harmonic of ``first`` (as fitted)."""
+    if c.first is None:
+        return False
+    half = 0.5 * float(s.accepted[0])
+    k = round(f / half)
+    return k >= 1 and abs(f - k * half) < c.resolution
+
+
+def _skip_alias(c: _Setup, s: _Search, f_new: float) -> bool:
+    """Pass over a peak whose best alias is a harmonic of the main signal: not a new frequency.
+
+    Blocks the peak ``f_new`` (within the resolution) and counts it; returns False,
+    with ``s.stop`` set, after more than ``3 max_frequencies`` such peaks, else True.
+    """
+    s.blocked |= np.abs(c.freq - f_new) < c.resolution
+    s.skipped += 1
+    if s.skipped > 3 * c.max_frequencies:
+        s.stop = _Stop("the strongest residual peaks are aliases of the main signal's harmonics")
+        return False
+    return True
+
+
+def _accept(c: _Setup, s: _Search, trial: SinusoidFit, f_best: float, fap: float,
+            new_terms: tuple[int, ...]) -> bool:
+    """Accept the candidate of ``trial`` if its amplitude S/N (and FAP) pass, else end the search.
+
+    Takes the trial fit with the candidate last, the candidate's frequency before
+    the fit (``f_best``) and its FAP.  The noise is the mean residual amplitude
+    spectrum around the fitted frequency (:func:`_noise`).  On acceptance the state
+    takes the trial's frequencies, harmonics, fit and residuals (with warnings for a
+    fit that did not report convergence or a frequency that moved by more than
+    ``0.5/T``) and True is returned; otherwise ``s.stop`` records the rejected
+    candidate and False is returned.
+    """
+    k_new = s.accepted.size
+    base = int(frequency_index(new_terms)[k_new])
+    f_fit = float(trial.params[base])
+    amp = math.hypot(trial.params[base + 1], trial.params[base + 2])
+    noise = _noise(c.t, trial.resid, c.dy, f_fit, c.noise_window, c.step)
+    snr = amp / noise if noise > 0 else math.inf
+    if snr < c.snr_limit or (c.fap_limit is not None and not fap <= c.fap_limit):
+        why = (f"amplitude S/N {snr:.2f} < {c.snr_limit:g}" if snr < c.snr_limit
+               else f"false-alarm probability {fap:.2g} > {c.fap_limit:g} (S/N {snr:.1f})")
+        s.stop = _Stop(f"the next peak at {f_fit:.6f} c/d has {why}", f=f_fit, amp=amp, noise=noise, snr=snr)
+        return False
+    if not trial.converged:
+        s.warnings.append(f"fit with {k_new + 1} frequencies: solver did not report convergence ({trial.message})")
+    if abs(f_fit - f_best) > 0.5 / c.baseline:
+        s.warnings.append(
+            f"f{k_new + 1} moved from the peak at {f_best:.6f} to {f_fit:.6f} c/d during the fit"
+        )
+    s.fit = trial
+    s.terms = new_terms
+    s.accepted = trial.params[frequency_index(new_terms)].copy()
+    s.resid = trial.resid
+    return True
+
+
+def _found(c: _Setup, s: _Search) -> tuple[FoundFrequency, ...]:
+    """The accepted frequencies from the final simultaneous fit, with errors, S/N and relations.
+
+    Takes the setup and the ended search; returns one :class:`FoundFrequency` per
+    accepted frequency, in the order found (noise around each from the final
+    residuals; relations within ``relation_tolerance``, default ``1/T``).
+    """
+    p, cov = s.fit.params, s.fit.covariance
+    tol = 1.0 / c.baseline if c.relation_tolerance is None else float(c.relation_tolerance)
+    rels = _relations(s.accepted, tol)
+    found = []
+    for i, (f_i, base, nt) in enumerate(zip(s.accepted, frequency_index(s.terms), s.terms)):
+        amp, phi, g_a, g_p = amplitude_phase(p[base + 1], p[base + 2])
+        ga = np.zeros(p.size)
+        gp = np.zeros(p.size)
+        ga[base + 1 : base + 3] = g_a
+        gp[base + 1 : base + 3] = g_p
+        f_err = sd(cov[base, base])
+        noise = _noise(c.t, s.fit.resid, c.dy, f_i, c.noise_window, c.step)
+        harm = tuple(
+            float(math.hypot(p[base + 1 + 2 * k], p[base + 2 + 2 * k])) for k in range(nt)
+        )
+        found.append(
+            FoundFrequency(
+                label=f"f{i + 1}",
+                frequency=float(f_i),
+                frequency_err=float(f_err),
+                period=float(1.0 / f_i),
+                period_err=float(f_err / f_i**2),
+                amplitude=amp,
+                amplitude_err=propagated_err(ga, cov),
+                phase=phi,
+                phase_err=propagated_err(gp, cov),
+                snr=float(amp / noise) if noise > 0 else math.inf,
+                noise=float(noise),
+                harmonic_amplitudes=harm,
+                relation=rels[i],
+            )
+        )
+    return tuple(found)
+
+
 def prewhiten(
     t: Any,
     y: Any,
@@ -310,7 +539,7 @@ def prewhiten(
         ``first_nterms`` harmonics.  Residual peaks at its harmonics and
         half-harmonics (``k first / 2``) are then not taken as new frequencies: they
         describe the shape of the main signal, or say that it repeats only after
-        twice its period, which :func:`.pdm.choose_p_or_2p` decides.
+        twice its period, which :func:`.p_or_2p.choose_p_or_2p` decides.
     group, group_err : array_like, optional
         Night label of each point and each night's calibration error
         (:mod:`.nightly`): fits are then generalised least squares, and the
@@ -328,189 +557,34 @@ def prewhiten(
     -------
     PrewhiteningResult
     """
-    t, y, dy = check_series(t, y, dy, what="prewhitening")
-    freq = check_freq(freq)
-    if not callable(periodogram):
-        raise InputError("prewhitening: 'periodogram' must be a function periodogram(t, y, dy, freq) -> power")
-    nterms = int(nterms)
-    if nterms < 1 or int(first_nterms) < 1:
-        raise InputError(f"prewhitening: nterms must be at least 1 (got {nterms})")
-    if not snr_limit > 0 or not noise_window > 0 or int(max_frequencies) < 1:
-        raise InputError("prewhitening: snr_limit and noise_window must be positive and max_frequencies >= 1")
-    baseline = float(t.max() - t.min())
-    if baseline <= 0:
-        raise InputError("prewhitening: all times are equal; a time span is needed")
-    w = 1.0 / dy**2
-    t_ref = float(np.sum(w * t) / np.sum(w))
-    step = 1.0 / (10.0 * baseline)
-    resolution = 1.5 / baseline
-    whiten = nightly_whitener(dy, group, group_err)
-
-    terms: list[int] = []
-    accepted: np.ndarray = np.zeros(0)
-    fit = None
-    resid = y - np.sum(w * y) / np.sum(w)
-    warnings: list[str] = []
-    stop = dict(reason="", f=math.nan, amp=math.nan, noise=math.nan, snr=math.nan)
-    blocked = np.zeros(freq.size, dtype=bool)
-    aliases_cpd = np.array([0.0, -1.0027379, 1.0027379, -2.0054758, 2.0054758]) if alias_trials else np.zeros(1)
-    skipped = 0
-
-    def is_harmonic(f: float) -> bool:
-        """Within the resolution of a harmonic or half-harmonic of ``first``."""
-        if first is None:
-            return False
-        half = 0.5 * float(accepted[0])
-        k = round(f / half)
-        return k >= 1 and abs(f - k * half) < resolution
-
-    if first is not None:
-        fit = fit_sinusoids(t, y, dy, [float(first)], (int(first_nterms),), t_ref, whiten=whiten)
-        terms = [int(first_nterms)]
-        accepted = fit.params[frequency_index(tuple(terms))].copy()
-        resid = fit.resid
-        half = 0.5 * float(accepted[0])
-        k = np.rint(freq / half)
-        blocked |= (k >= 1) & (np.abs(freq - k * half) < resolution)
-    while True:
-        if accepted.size >= int(max_frequencies):
-            stop["reason"] = f"stopped at max_frequencies = {int(max_frequencies)}"
-            break
-        searched = whiten.without_offsets(resid)
-        power = np.asarray(periodogram(t, searched, dy, freq), dtype=float)
-        if power.shape != freq.shape:
-            raise InputError(
-                f"prewhitening: the periodogram returned {power.size} values for {freq.size} frequencies"
-            )
-        power = np.where(blocked, np.nan, power)
-        if not np.any(np.isfinite(power)):
-            stop["reason"] = "the periodogram of the residuals has no finite value"
-            break
-        i_new = int(np.nanargmax(power))
-        f_new = float(freq[i_new])
-        close = np.abs(accepted - f_new) < resolution
-        if close.any():
-            near = int(np.flatnonzero(close)[0])
-            stop.update(
-                reason=(
-                    f"the next peak at {f_new:.6f} c/d lies within 1.5/T = {resolution:.5f} c/d of "
-                    f"f{near + 1}: unresolved (amplitude or phase change?); a longer time span would separate them"
-                ),
-                f=f_new,
-            )
-            break
-        fap = math.nan
-        if fap_limit is not None:
-            from varstar.period.significance import fap_baluev
-
-            fap = float(fap_baluev(float(power[i_new]), freq, t, dy, nterms=1))
-        new_terms = tuple(terms) + (nterms,)
-        # The residual peak and its daily aliases: with single-site nights the noise can lift
-        # an alias above the true peak, so each is added to the whole model (at fixed
-        # frequencies) and the one with the smallest chi-square is taken, then refined
-        # (common practice: aliases are told apart by the fit, not by the periodogram alone).
-        f_best = f_new
-        if aliases_cpd.size > 1:
-            try:
-                f_best = _best_alias(t - t_ref, y, whiten, accepted, tuple(terms), nterms,
-                                     f_new + aliases_cpd[f_new + aliases_cpd > 0])  # aliases may lie beyond the grid
-            except ReductionError as exc:
-                stop.update(reason=f"the alias comparison at {f_new:.6f} c/d failed: {exc}", f=f_new)
-                break
-        else:
-            try:
-                trial = fit_sinusoids(t, y, dy, np.append(accepted, f_new), new_terms, t_ref, whiten=whiten)
-            except ReductionError as exc:  # degenerate sampling for this set: reported as the stop reason
-                stop.update(reason=f"the fit with the candidate at {f_new:.6f} c/d failed: {exc}", f=f_new)
-                break
-        if aliases_cpd.size > 1:
-            try:
-                trial = fit_sinusoids(t, y, dy, np.append(accepted, f_best), new_terms, t_ref, whiten=whiten)
-            except ReductionError as exc:
-                stop.update(reason=f"the fit with the candidate at {f_best:.6f} c/d failed: {exc}", f=f_best)
-                break
-        if f_best != f_new and is_harmonic(f_best):
-            # the peak is an alias of a harmonic of the main signal: not a new frequency
-            blocked |= np.abs(freq - f_new) < resolution
-            skipped += 1
-            if skipped > 3 * int(max_frequencies):
-                stop["reason"] = "the strongest residual peaks are aliases of the main signal's harmonics"
-                break
-            continue
-        k_new = accepted.size
-        base = int(frequency_index(new_terms)[k_new])
-        f_fit = float(trial.params[base])
-        amp = math.hypot(trial.params[base + 1], trial.params[base + 2])
-        noise = _noise(t, trial.resid, dy, f_fit, noise_window, step)
-        snr = amp / noise if noise > 0 else math.inf
-        if snr < snr_limit or (fap_limit is not None and not fap <= fap_limit):
-            why = (f"amplitude S/N {snr:.2f} < {snr_limit:g}" if snr < snr_limit
-                   else f"false-alarm probability {fap:.2g} > {fap_limit:g} (S/N {snr:.1f})")
-            stop.update(reason=f"the next peak at {f_fit:.6f} c/d has {why}", f=f_fit, amp=amp, noise=noise, snr=snr)
-            break
-        if not trial.converged:
-            warnings.append(f"fit with {k_new + 1} frequencies: solver did not report convergence ({trial.message})")
-        if abs(f_fit - f_best) > 0.5 / baseline:
-            warnings.append(
-                f"f{k_new + 1} moved from the peak at {f_best:.6f} to {f_fit:.6f} c/d during the fit"
-            )
-        fit = trial
-        terms = list(new_terms)
-        accepted = trial.params[frequency_index(new_terms)].copy()
-        resid = trial.resid
-
-    p, cov = fit.params, fit.covariance
-    tol = 1.0 / baseline if relation_tolerance is None else float(relation_tolerance)
-    rels = _relations(accepted, tol)
-    found = []
-    for i, (f_i, base, nt) in enumerate(zip(accepted, frequency_index(tuple(terms)), terms)):
-        amp, phi, g_a, g_p = amplitude_phase(p[base + 1], p[base + 2])
-        ga = np.zeros(p.size)
-        gp = np.zeros(p.size)
-        ga[base + 1 : base + 3] = g_a
-        gp[base + 1 : base + 3] = g_p
-        f_err = sd(cov[base, base])
-        noise = _noise(t, fit.resid, dy, f_i, noise_window, step)
-        harm = tuple(
-            float(math.hypot(p[base + 1 + 2 * k], p[base + 2 + 2 * k])) for k in range(nt)
-        )
-        found.append(
-            FoundFrequency(
-                label=f"f{i + 1}",
-                frequency=float(f_i),
-                frequency_err=float(f_err),
-                period=float(1.0 / f_i),
-                period_err=float(f_err / f_i**2),
-                amplitude=amp,
-                amplitude_err=propagated_err(ga, cov),
-                phase=phi,
-                phase_err=propagated_err(gp, cov),
-                snr=float(amp / noise) if noise > 0 else math.inf,
-                noise=float(noise),
-                harmonic_amplitudes=harm,
-                relation=rels[i],
-            )
-        )
-    relations = tuple(f"{ff.label} = {ff.relation}" for ff in found if ff.relation)
+    c = _setup(t, y, dy, freq, periodogram, nterms=nterms, snr_limit=snr_limit, max_frequencies=max_frequencies,
+               noise_window=noise_window, relation_tolerance=relation_tolerance, first=first,
+               first_nterms=first_nterms, group=group, group_err=group_err, fap_limit=fap_limit,
+               alias_trials=alias_trials)
+    s = _start(c)
+    while _round(c, s):
+        pass
+    found = _found(c, s)
+    fit, stop = s.fit, s.stop
     return PrewhiteningResult(
-        frequencies=tuple(found),
-        mean_mag=float(p[0]),
-        mean_mag_err=sd(cov[0, 0]),
-        t_ref=t_ref,
-        nterms=tuple(terms),
+        frequencies=found,
+        mean_mag=float(fit.params[0]),
+        mean_mag_err=sd(fit.covariance[0, 0]),
+        t_ref=c.t_ref,
+        nterms=s.terms,
         chi2=fit.chi2,
         dof=fit.dof,
         reduced_chi2=fit.chi2 / fit.dof if fit.dof > 0 else math.nan,
         rms=float(np.sqrt(np.mean(fit.resid**2))),
-        stop_reason=stop["reason"],
-        stop_frequency=float(stop["f"]),
-        stop_amplitude=float(stop["amp"]),
-        stop_noise=float(stop["noise"]),
-        stop_snr=float(stop["snr"]),
-        relations=relations,
+        stop_reason=stop.reason,
+        stop_frequency=float(stop.f),
+        stop_amplitude=float(stop.amp),
+        stop_noise=float(stop.noise),
+        stop_snr=float(stop.snr),
+        relations=tuple(f"{ff.label} = {ff.relation}" for ff in found if ff.relation),
         snr_limit=float(snr_limit),
         noise_window=float(noise_window),
-        warnings=tuple(warnings),
-        params=p.copy(),
-        covariance=cov.copy(),
+        warnings=tuple(s.warnings),
+        params=fit.params.copy(),
+        covariance=fit.covariance.copy(),
     )
