@@ -476,3 +476,17 @@ def test_prewhitening_false_alarms_and_frequency_pulls():
     pulls = np.asarray(pulls)
     assert abs(pulls.mean()) < 4 / math.sqrt(pulls.size) and abs(pulls.std() - 1) < 4 / math.sqrt(2 * pulls.size)
     assert extra <= 6  # binomial: p ~ 0.04, 40 tries, 3 sigma above the mean of 1.6
+
+
+def test_prewhitening_of_pure_noise_without_a_first_frequency_finds_none():
+    # Without a main frequency and with nothing significant in the data, the model is the
+    # weighted mean alone (its error sigma/sqrt(N) for equal errors: common practice).
+    rng = np.random.default_rng(5)
+    t = np.sort(rng.uniform(0, 30, 400))
+    sig = 0.02
+    y = 12.0 + sig * rng.standard_normal(t.size)
+    res = prewhiten(t, y, np.full(t.size, sig), np.arange(0.05, 10.0, 0.002), lomb_scargle(1))
+    assert res.frequencies == ()
+    assert res.mean_mag == pytest.approx(float(np.mean(y)), abs=1e-12)
+    assert res.mean_mag_err == pytest.approx(sig / math.sqrt(t.size), rel=0.15)
+    assert res.dof == t.size - 1

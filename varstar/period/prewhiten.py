@@ -564,6 +564,8 @@ def prewhiten(
     s = _start(c)
     while _round(c, s):
         pass
+    if s.fit is None:  # nothing accepted and no ``first``: the model is the (weighted) mean alone
+        s.fit = fit_sinusoids(c.t, c.y, c.dy, [], (), c.t_ref, whiten=c.whiten)
     found = _found(c, s)
     fit, stop = s.fit, s.stop
     return PrewhiteningResult(

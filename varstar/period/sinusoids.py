@@ -63,7 +63,9 @@ def harmonic_counts(n_freq: int, nterms: Any) -> tuple[int, ...]:
 
 
 def frequency_index(terms: tuple[int, ...]) -> np.ndarray:
-    """Index of each frequency in the parameter vector (its harmonics follow it)."""
+    """Index of each frequency in the parameter vector (its harmonics follow it); none without frequencies."""
+    if not len(terms):
+        return np.zeros(0, dtype=int)
     widths = 1 + 2 * np.asarray(terms, dtype=int)
     return 1 + np.concatenate(([0], np.cumsum(widths)[:-1])).astype(int)
 
