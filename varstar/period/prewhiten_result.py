@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 
 from varstar.results import Result
-from varstar.period.sinusoids import model_jacobian
+from varstar.period.sinusoids import model_at
 
 __all__ = ["FoundFrequency", "PrewhiteningResult"]
 
@@ -97,9 +97,7 @@ class PrewhiteningResult(Result):
 
     def model(self, t: Any) -> np.ndarray:
         """The fitted multi-frequency model at times ``t``."""
-        tau = np.asarray(t, dtype=float) - self.t_ref
-        mod, _ = model_jacobian(self.params, tau.ravel(), len(self.frequencies), self.nterms, want_jac=False)
-        return mod.reshape(tau.shape)
+        return model_at(self.params, self.t_ref, len(self.frequencies), self.nterms, t)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-safe plain dict (NaN becomes None): the method, the phase convention, then the fields

@@ -51,7 +51,7 @@ from varstar.errors import InputError, ReductionError
 from varstar.results import Result, sd
 from varstar.period._common import check_series, propagated_err
 from varstar.period.nightly import nightly_whitener
-from varstar.period.sinusoids import TWO_PI, amplitude_phase, design_matrix, fit_sinusoids, model_jacobian
+from varstar.period.sinusoids import TWO_PI, amplitude_phase, design_matrix, fit_sinusoids, model_at
 
 __all__ = ["HarmonicFit", "MAX_AUTO_HARMONICS", "fit_harmonics", "fit_harmonics_aic"]
 
@@ -190,10 +190,7 @@ class HarmonicFit(Result):
 
     def model(self, t: Any) -> np.ndarray:
         """Model magnitudes at times ``t`` (same time system as the fitted data)."""
-        tau = np.asarray(t, dtype=float) - self.t_ref
-        shape = tau.shape
-        mod, _ = model_jacobian(self.params, tau.ravel(), 1, self.nterms, want_jac=False)
-        return mod.reshape(shape)
+        return model_at(self.params, self.t_ref, 1, self.nterms, t)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-safe plain dict (NaN becomes None): the method, the phase convention, then the fields

@@ -338,3 +338,9 @@ def amplitude_phase(a: float, b: float) -> tuple[float, float, np.ndarray, np.nd
     g_phi = np.array([b / amp**2, -a / amp**2])
     return amp, phi, g_amp, g_phi
 
+
+def model_at(params: np.ndarray, t_ref: float, n_freq: int, nterms: Any, t: Any) -> np.ndarray:
+    """A fitted model's magnitudes at times ``t`` (any shape; the fit's time system)."""
+    tau = np.asarray(t, dtype=float) - t_ref
+    mod, _ = model_jacobian(params, tau.ravel(), n_freq, nterms, want_jac=False)
+    return mod.reshape(tau.shape)
