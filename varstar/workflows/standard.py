@@ -19,12 +19,11 @@ import pandas as pd
 from ..errors import ArchiveError, InputError
 from ..results import Result
 from ..target import Target
-from ..transform import Coefficients
 from .reduce import STD_COLUMNS, NightReduction, sources_of
 
 if TYPE_CHECKING:  # pragma: no cover
     from ..archive import ArchiveStore
-    from ..transform import NightReference
+    from ..transform import Coefficients, NightReference
 
 
 def night_reference_from_tables(
