@@ -26,7 +26,6 @@ import errno
 import hashlib
 import io
 import json
-import os
 import shutil
 import struct
 import subprocess
