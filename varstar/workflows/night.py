@@ -79,6 +79,7 @@ def ingest(
     settings: EnsembleSettings | None = None,
     timeout_s: float = 30.0,
     replace: bool = False,
+    accept_unusual: bool = False,
 ) -> IngestResult:
     """Reduce measurement files and add them to an archive, all or nothing.
 
@@ -91,6 +92,12 @@ def ingest(
     That is how a night stored from an incomplete file is replaced by the
     complete one.  Everything is computed before the archive is opened for
     writing.
+
+    A night that cannot be what it claims (the target below the horizon or the
+    Sun up at its exposures, no measurement of the target, an airmass column far
+    from the computed one: :func:`varstar.workflows.reduce.unusual_night`) is
+    refused with the reasons, unless ``accept_unusual`` is given; the reasons are
+    then recorded in the night's report.
 
     A regular file is hashed first (read in bounded blocks) and then read and
     checked piece by piece (:func:`varstar.measurements.read_measurement_file`),
@@ -120,7 +127,8 @@ def ingest(
             f"from an incomplete file), ingest again with --replace (or take it out with "
             f"'varstar remove-night {arch.path} {lab}' first)"
         )
-    reductions = [reduce_night(target, t, settings, label=lab) for lab, t in sorted(nights.items())]
+    reductions = [reduce_night(target, t, settings, label=lab, accept_unusual=accept_unusual)
+                  for lab, t in sorted(nights.items())]
     _add_history_notes(arch.comparisons(last_nights=HISTORY_NIGHTS), reductions)
     active = arch.active_transformation()
     if active is not None:

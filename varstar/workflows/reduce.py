@@ -33,6 +33,12 @@ ENSEMBLE_COLUMNS = ("band", "calibration_err", "colour_extinction", "colour_exti
 # Difference between a table's own airmass and ours that deserves a warning
 # (wrong coordinates, site or time zone upstream): common practice.
 _AIRMASS_WARN = 0.05
+# ... and one that cannot be a matter of rounding or refraction: the file belongs to another
+# target, site or date, or its times are not JD(UTC) (our choice).
+AIRMASS_REFUSE = 0.5
+#: Sun altitude (degrees) above which an exposure is taken in daylight: the Sun's upper
+#: limb at the horizon with refraction (common practice).
+DAYLIGHT_SUN_ALT_DEG = -0.8
 
 
 @dataclass(frozen=True)
@@ -183,6 +189,40 @@ def _times(target: Target, exp: pd.DataFrame) -> tuple[Any, np.ndarray, list[str
     return times, np.where(np.isfinite(given), given, times.airmass), warnings
 
 
+def unusual_night(target: Target, table: pd.DataFrame, exp: pd.DataFrame, airmass_computed: np.ndarray) -> list[str]:
+    """Why a night cannot be what it claims, in words (empty when it is plausible).
+
+    A measurement of the target is impossible while it is below the horizon, and
+    an exposure in daylight is a time error; a file without the target's rows,
+    or whose airmass column disagrees with the one computed for the site, target
+    and time by more than :data:`AIRMASS_REFUSE`, belongs to another target,
+    site or date.  The caller refuses such a night unless told to accept it.
+    """
+    from ..timescale import altitudes
+
+    why = []
+    tid = target.target_star.id
+    if not (table["star"] == tid).any():
+        why.append(f"the files have no measurement of the target {tid}")
+    jd = exp["jd"].to_numpy(dtype=float)
+    below = ~np.isfinite(airmass_computed)
+    if below.any():
+        why.append(f"the target is below the horizon at {int(below.sum())} of {jd.size} exposure times")
+    # the Sun moves slowly: its altitude at the exposures rounded to 10 minutes is enough
+    grid = np.unique(np.round(jd * 144.0) / 144.0)
+    _, sun = altitudes(grid, target.ra_deg, target.dec_deg, target.site)
+    day = np.isin(np.round(jd * 144.0) / 144.0, grid[sun > DAYLIGHT_SUN_ALT_DEG])
+    if day.any():
+        why.append(f"{int(day.sum())} of {jd.size} exposures were taken in daylight (the Sun above the horizon at the site)")
+    given = exp["airmass"].to_numpy(dtype=float)
+    both = np.isfinite(given) & np.isfinite(airmass_computed)
+    if both.any():
+        off = float(np.median(np.abs(given[both] - airmass_computed[both])))
+        if off > AIRMASS_REFUSE:
+            why.append(f"the table's airmass differs from the one computed for the site, target and time by {off:.2f} (median)")
+    return why
+
+
 def _solve_band(
     target: Target, table: pd.DataFrame, band: str, rows: np.ndarray, in_band: np.ndarray, exposure_of_row: np.ndarray,
     exp: pd.DataFrame, airmass: np.ndarray, stars: _NightStars, settings: EnsembleSettings,
@@ -288,6 +328,8 @@ def reduce_night(
     table: pd.DataFrame,
     settings: EnsembleSettings | None = None,
     label: str | None = None,
+    *,
+    accept_unusual: bool = False,
 ) -> NightReduction:
     """Reduce one night's tidy measurement table (see :mod:`varstar.measurements`).
 
@@ -305,6 +347,10 @@ def reduce_night(
         Ensemble settings; default from the target's ``[reduction]`` table.
     label
         Night label; default the evening date at the site.
+    accept_unusual
+        Reduce a night that :func:`unusual_night` finds implausible anyway (its
+        reasons are then recorded in the report under ``accepted_unusual``);
+        by default such a night is refused with the reasons.
     """
     if table.empty:
         raise InputError("no measurements to reduce")
@@ -314,6 +360,14 @@ def reduce_night(
         label = str(night_label(table["jd"].to_numpy()[:1], target.site.longitude_deg)[0])
     exp, exposure_of_row = _exposures(table)
     times, airmass, warnings = _times(target, exp)
+    warnings[:0] = table.attrs.get("warnings", [])  # what the measurement reader read generously (placeholders flagged, ...)
+    unusual = unusual_night(target, table, exp, times.airmass)
+    if unusual and not accept_unusual:
+        raise InputError(
+            f"{sources_of(table)} (night {label}): {'; '.join(unusual)}; nothing was written. Check the target "
+            f"file's coordinates and site and that the time column is JD(UTC); if the night really is so, "
+            f"ingest it with --accept-unusual (the reasons are recorded in the night's report)"
+        )
     stars = _night_stars(target, table)
 
     n_exp = len(exp)
@@ -370,6 +424,8 @@ def reduce_night(
     comparisons = pd.DataFrame(comp_rows, columns=list(COMPARISON_COLUMNS))
     ensembles = pd.DataFrame(ens_rows, columns=list(ENSEMBLE_COLUMNS))
     report = _night_report(target, label, table, exposures, points, comparisons, band_reports, warnings)
+    if unusual:
+        report["accepted_unusual"] = unusual
     return NightReduction(label, exposures, raw, points, comparisons, ensembles, report)
 
 
