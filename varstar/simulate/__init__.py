@@ -52,7 +52,7 @@ Modules:
 
 from __future__ import annotations
 
-from .almanac import (
+from ..almanac import (
     AU_LIGHT_S,
     SIDEREAL_DEG_PER_DAY,
     TT_MINUS_UTC_S,

@@ -16,7 +16,7 @@ import numpy as np
 
 from ..errors import InputError
 from ..timescale import exposure_times, night_label
-from .almanac import approx_field_altitude, approx_sun_altitude, date_to_jd0
+from ..almanac import approx_field_altitude, approx_sun_altitude, date_to_jd0
 from .scenario import Scenario
 
 __all__ = ["Exposures", "dark_windows", "night_schedule", "plan_exposures"]

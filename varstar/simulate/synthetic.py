@@ -18,7 +18,7 @@ import pandas as pd
 
 from ..errors import InputError
 from ..timescale import hardie_airmass, night_label
-from .almanac import SIDEREAL_DEG_PER_DAY, approx_bjd_tdb, approx_field_altitude, gmst_deg, precess_approx
+from ..almanac import SIDEREAL_DEG_PER_DAY, approx_bjd_tdb, approx_field_altitude, gmst_deg, precess_approx
 from .catalogues import toml_text
 from .lightcurves import pulsation_template
 from .noise import ccd_noise_e, ccd_snr, flux_to_mag, mag_err_from_snr, mag_to_flux, scintillation_sigma

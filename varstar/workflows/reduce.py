@@ -198,7 +198,7 @@ def unusual_night(target: Target, table: pd.DataFrame, exp: pd.DataFrame, airmas
     and time by more than :data:`AIRMASS_REFUSE`, belongs to another target,
     site or date.  The caller refuses such a night unless told to accept it.
     """
-    from ..timescale import altitudes
+    from ..almanac import approx_sun_altitude
 
     why = []
     tid = target.target_star.id
@@ -208,10 +208,8 @@ def unusual_night(target: Target, table: pd.DataFrame, exp: pd.DataFrame, airmas
     below = ~np.isfinite(airmass_computed)
     if below.any():
         why.append(f"the target is below the horizon at {int(below.sum())} of {jd.size} exposure times")
-    # the Sun moves slowly: its altitude at the exposures rounded to 10 minutes is enough
-    grid = np.unique(np.round(jd * 144.0) / 144.0)
-    _, sun = altitudes(grid, target.ra_deg, target.dec_deg, target.site)
-    day = np.isin(np.round(jd * 144.0) / 144.0, grid[sun > DAYLIGHT_SUN_ALT_DEG])
+    # a tenth of a degree is enough here: the almanac's low-precision Sun, not astropy's (0.5 s a night)
+    day = approx_sun_altitude(jd, target.site.latitude_deg, target.site.longitude_deg) > DAYLIGHT_SUN_ALT_DEG
     if day.any():
         why.append(f"{int(day.sum())} of {jd.size} exposures were taken in daylight (the Sun above the horizon at the site)")
     given = exp["airmass"].to_numpy(dtype=float)

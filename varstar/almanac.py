@@ -1,9 +1,11 @@
-"""Cheap astronomy for night windows and the synthetic generator (no astropy).
+"""Cheap astronomy (no astropy): the Sun's position, mean sidereal time, approximate
+precession, altitudes and an approximate BJD_TDB good to a few seconds.
 
-Low-precision almanac formulae: the Sun's position, mean sidereal time,
-approximate precession, altitudes and an approximate BJD_TDB good to a few
-seconds.  The pipeline itself computes exact times and airmasses with astropy
-(:mod:`varstar.timescale`); these only place simulated nights and scale data.
+Low-precision almanac formulae, for questions that need a tenth of a degree,
+not an arcsecond: placing simulated nights (:mod:`varstar.simulate`) and
+telling a night exposure from a daylight one (the reduction's plausibility
+check).  The pipeline's times and airmasses are exact, from astropy
+(:mod:`varstar.timescale`).
 """
 
 from __future__ import annotations
@@ -12,7 +14,7 @@ import math
 
 import numpy as np
 
-from ..errors import InputError
+from .errors import InputError
 
 __all__ = [
     "AU_LIGHT_S",
