@@ -175,7 +175,8 @@ def test_help_and_error_exit_in_a_fresh_process(series, archive_copy, tmp_path):
         capture_output=True, text=True, env=env, timeout=120,
     )
     assert p.returncode == InputError.exit_code != 0
-    assert p.stdout == ""
+    # with --json, scripts read the error from stdout too: one JSON object (README, "Exit codes")
+    assert one_json(p.stdout) == {"error": p.stderr[len("error: "):-1], "exit_code": p.returncode}
     assert p.stderr.count("\n") == 1 and p.stderr.startswith("error: "), p.stderr
     assert "Traceback" not in p.stderr
     assert str(bad) in p.stderr and "line 3" in p.stderr and "Q7" in p.stderr
@@ -584,7 +585,10 @@ def test_mistakes_give_one_error_line_and_change_nothing(capsys, series, archive
     before = snapshot(tmp_path)
     rc, out, err = run(capsys, *argv)
     assert rc == error_class.exit_code != 0, (rc, err)
-    assert out == "", out
+    if as_json:  # the error as one JSON object on stdout as well
+        assert one_json(out) == {"error": err[len("error: "):-1], "exit_code": rc}, out
+    else:
+        assert out == "", out
     assert err.startswith("error: ") and err.endswith("\n") and err.count("\n") == 1, err
     assert "Traceback" not in err
     for frag in fragments:
@@ -680,7 +684,7 @@ def test_demo_into_non_empty_folder_fails_cleanly(capsys, tmp_path):
     for extra in ([], ["--json"]):
         rc, out, err = run(capsys, "demo", "--out", out_dir, *extra)
         assert rc == OutputError.exit_code != 0
-        assert out == ""
+        assert out == ("" if not extra else json.dumps({"error": err[len("error: "):-1], "exit_code": rc}, ensure_ascii=False) + "\n")
         assert err.startswith("error: ") and err.count("\n") == 1 and str(out_dir) in err
         assert snapshot(tmp_path) == before
 

@@ -2,7 +2,10 @@
 
 Expected mistakes (:class:`varstar.errors.VarstarError`) become one
 ``error: ...`` line on stderr and a non-zero exit code; with ``--json`` stdout
-carries exactly one JSON object and nothing else.
+carries exactly one JSON object and nothing else: the result, or
+``{"error": message, "exit_code": N}`` on an error (also for a mistake on the command line itself, and for a bug, whose
+traceback still goes to stderr).  The exit codes are :data:`EXIT_CODES`,
+documented in the README's "Exit codes".
 """
 
 from __future__ import annotations
@@ -14,6 +17,19 @@ from pathlib import Path
 from typing import Any
 
 from . import text as fmt
+
+#: One exit code per kind of outcome, the same in every command (README, "Exit codes").  The codes of
+#: the error classes are their ``exit_code`` (varstar/errors.py); this table is what the README documents.
+EXIT_CODES = {
+    "success": 0,
+    "bug": 1,  # an unexpected exception: Python's own code, traceback kept
+    "usage": 2,  # argparse: unknown command or option, missing or malformed argument
+    "InputError": 2,
+    "OutputError": 2,
+    "ArchiveError": 3,
+    "ReductionError": 4,
+    "interrupted": 130,
+}
 
 
 def _parse_columns(items: Sequence[str] | None) -> dict[str, str] | None:
@@ -92,7 +108,7 @@ def cmd_init(args: argparse.Namespace) -> int:
     target = read_target(args.target)
     arch = create_archive(args.archive, target)
     payload = {"archive": str(arch.path), "target": target.to_dict()}
-    _emit(args, payload, f"created {arch.path} for {target.name} ({len(target.stars)} stars)")
+    _emit(args, payload, f"created {arch.path} for {target.name} ({fmt.plural(len(target.stars), 'star')})")
     return 0
 
 
@@ -100,7 +116,7 @@ def cmd_ingest(args: argparse.Namespace) -> int:
     from .workflows.night import ingest
 
     res = ingest(args.archive, args.files, columns=_parse_columns(args.column), timeout_s=args.wait,
-                 replace=args.replace)
+                 replace=args.replace, accept_unusual=args.accept_unusual)
     _emit(args, res, fmt.format_ingest(res.to_dict()))
     return 0
 
@@ -128,14 +144,14 @@ def cmd_plot(args: argparse.Namespace) -> int:
     from .errors import ArchiveError
 
     arch = open_archive(args.archive)
-    lc = arch.lightcurve(band=args.band, star=args.star, include_flagged=args.show_flagged)
+    lc = arch.lightcurve(band=args.band, star=args.star, include_flagged=args.include_flagged)
     if args.night:
         if args.night not in set(arch.nights()["night"]):
             raise ArchiveError(f"{arch.path}: no night '{args.night}' (see 'varstar summary')")
         lc = lc[lc["night"] == args.night]
-    fig = lightcurve_figure(lc, title=f"{arch.target.name} — {lc['star'].iloc[0] if len(lc) else ''}", show_flagged=args.show_flagged)
+    fig = lightcurve_figure(lc, title=f"{arch.target.name} — {lc['star'].iloc[0] if len(lc) else ''}", show_flagged=args.include_flagged)
     save(fig, args.output)
-    _emit(args, {"plot": str(args.output), "n_points": int(len(lc))}, f"wrote {args.output} ({len(lc)} points)")
+    _emit(args, {"plot": str(args.output), "n_points": int(len(lc))}, f"wrote {args.output} ({fmt.plural(len(lc), 'point')})")
     return 0
 
 
@@ -146,7 +162,7 @@ def cmd_export(args: argparse.Namespace) -> int:
     arch = open_archive(args.archive)
     lc = arch.lightcurve(band=args.band, star=args.star, include_flagged=args.include_flagged)
     write_csv(lightcurve_table(lc), args.output)
-    _emit(args, {"csv": str(args.output), "n_rows": int(len(lc))}, f"wrote {args.output} ({len(lc)} observations)")
+    _emit(args, {"csv": str(args.output), "n_rows": int(len(lc))}, f"wrote {args.output} ({fmt.plural(len(lc), 'observation')})")
     return 0
 
 
@@ -244,7 +260,7 @@ def cmd_period(args: argparse.Namespace) -> int:
         hist = arch.periods()
         rows = hist.drop(columns=["result"]).to_dict(orient="records")
         text = "\n".join(f"{r['analysis']:3d} {r['computed_utc']} {r['bands']:6s} P = {r['period']:.7f} ± {r['period_err']:.7f} d "
-                          f"({r['n_points']} points, {r['method']})" for r in rows) or "no period analyses stored yet"
+                          f"({fmt.plural(r['n_points'], 'point')}, {r['method']})" for r in rows) or "no period analyses stored yet"
         _emit(args, {"archive": str(arch.path), "periods": rows}, text)
         return 0
     out = arch.period(
@@ -310,10 +326,12 @@ def cmd_verify(args: argparse.Namespace) -> int:
     text = fmt.format_verify(d)
     if not rep.ok:
         if args.json:
-            _emit(args, d, text)
-        else:
-            sys.stdout.write(text + "\n")
-        raise ArchiveError(f"{args.archive}: verification failed ({len(rep.problems)} problem(s), listed above)")
+            failed = ArchiveError(f"{args.archive}: verification failed "
+                                  f"({fmt.plural(len(rep.problems), 'problem')}, listed in 'problems')")
+            failed.result = d  # its fields go into the one JSON error object
+            raise failed
+        sys.stdout.write(text + "\n")
+        raise ArchiveError(f"{args.archive}: verification failed ({fmt.plural(len(rep.problems), 'problem')}, listed above)")
     _emit(args, d, text)
     return 0
 
@@ -326,10 +344,33 @@ def cmd_upgrade(args: argparse.Namespace) -> int:
     return 0
 
 
+def _removal_reason(args: argparse.Namespace) -> str:
+    """The reason recorded with a removal: ``--reason``, or asked for when a person is at a terminal.
+
+    Without ``--reason`` and without a terminal (a script) the removal is recorded without a reason, as
+    before (kept for scripts and tests that do so)."""
+    from .errors import InputError
+
+    how = 'give --reason "..." (the reason is recorded in the archive with the removal)'
+    if args.reason is not None:
+        if not args.reason.strip():
+            raise InputError(f"--reason is empty: say why night {args.night} is removed; {how}")
+        return args.reason.strip()
+    stdin = sys.stdin
+    if stdin is None or not stdin.isatty():
+        return ""
+    sys.stderr.write(f"why remove night {args.night}? (recorded in the archive; or {how}) ")
+    sys.stderr.flush()
+    answer = stdin.readline().strip()
+    if not answer:
+        raise InputError(f"no reason given, nothing removed: {how}")
+    return answer
+
+
 def cmd_remove_night(args: argparse.Namespace) -> int:
     from .workflows.night import remove_night
 
-    res = remove_night(args.archive, args.night, reason=args.reason or "", timeout_s=args.wait)
+    res = remove_night(args.archive, args.night, reason=_removal_reason(args), timeout_s=args.wait)
     _emit(args, res, fmt.format_removal(res.to_dict()))
     return 0
 
@@ -342,18 +383,28 @@ def cmd_demo(args: argparse.Namespace) -> int:
     return 0
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse, remembering the last usage error (on the top parser, for the JSON error object)."""
+
+    def error(self, message: str):  # type: ignore[override]
+        top = getattr(self, "top", self)
+        top.last_error = f"{self.prog}: {message}"
+        super().error(message)
+
+
 def build_parser() -> argparse.ArgumentParser:
     from . import __version__
 
-    p = argparse.ArgumentParser(
+    p = _Parser(
         prog="varstar",
         description="Calibrated variable-star light curves: ensemble differential photometry, BJD_TDB, one HDF5 archive per target.",
     )
     p.add_argument("--version", action="version", version=f"varstar {__version__}")
-    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND", parser_class=_Parser)
 
     def add(name: str, func, help_: str) -> argparse.ArgumentParser:
         sp = sub.add_parser(name, help=help_, description=help_)
+        sp.top = p
         sp.set_defaults(func=func)
         sp.add_argument("--json", action="store_true", help="print one JSON object on stdout instead of text")
         return sp
@@ -363,114 +414,129 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("target", type=Path, help="target description (TOML)")
 
     sp = add("ingest", cmd_ingest, "reduce a night's measurement tables and add them to the archive")
-    sp.add_argument("archive", type=Path)
-    sp.add_argument("files", type=Path, nargs="+", help="measurement tables (CSV, long or wide form)")
-    sp.add_argument("--column", action="append", metavar="NAME=FILE_COLUMN", help="read varstar column NAME from the file's FILE_COLUMN (repeatable)")
+    sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
+    sp.add_argument("files", type=Path, nargs="+", metavar="FILE",
+                    help="measurement tables (CSV, long or wide form); the time column (jd) is JD(UTC) at mid-exposure")
+    sp.add_argument("--column", action="append", metavar="NAME=FILE_COLUMN",
+                    help="read varstar column NAME from the file's FILE_COLUMN (repeatable; default: the file's own names)")
     sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
     sp.add_argument("--replace", action="store_true",
                     help="replace a stored night of the same date with these files (e.g. the complete version of a file cut short)")
 
+    sp.add_argument("--accept-unusual", action="store_true",
+                    help="store a night that cannot be what it claims (target below the horizon or the Sun up at its "
+                         "exposures, no target rows, an airmass column far from the computed one), which is refused "
+                         "by default; the reasons are recorded in the night's report")
     sp = add("summary", cmd_summary, "overview of an archive: nights, bands, magnitude ranges")
-    sp.add_argument("archive", type=Path)
+    sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
 
     sp = add("report", cmd_report, "show the reduction report stored for one night")
-    sp.add_argument("archive", type=Path)
+    sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
     sp.add_argument("night", help="night label (evening date, YYYY-MM-DD)")
 
     sp = add("plot", cmd_plot, "plot the light curve (one panel per band)")
-    sp.add_argument("archive", type=Path)
-    sp.add_argument("-o", "--output", type=Path, default=Path("lightcurve.png"), help="image file (png, pdf, svg)")
-    sp.add_argument("--band", help="only this band")
+    sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
+    sp.add_argument("-o", "--output", type=Path, default=Path("lightcurve.png"), metavar="FILE",
+                    help="image file (png, pdf, svg; default lightcurve.png)")
+    sp.add_argument("--band", help="only this band (default: every band)")
     sp.add_argument("--star", help="star id (default: the target)")
-    sp.add_argument("--night", help="only this night (evening date, YYYY-MM-DD)")
-    sp.add_argument("--show-flagged", action="store_true", help="also draw flagged points, hollow and grey")
+    sp.add_argument("--night", help="only this night (evening date, YYYY-MM-DD; default: every night)")
+    sp.add_argument("--include-flagged", "--show-flagged", dest="include_flagged", action="store_true",
+                    help="also draw flagged points, hollow and grey (default: left out; "
+                         "--show-flagged is its old name, kept for one release)")
 
     sp = add("export", cmd_export, "write the light curve as neutral CSV, one observation a row")
-    sp.add_argument("archive", type=Path)
-    sp.add_argument("-o", "--output", type=Path, default=Path("observations.csv"))
-    sp.add_argument("--band", help="only this band")
+    sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
+    sp.add_argument("-o", "--output", type=Path, default=Path("observations.csv"), metavar="FILE",
+                    help="CSV file ('-' for standard output; default observations.csv)")
+    sp.add_argument("--band", help="only this band (default: every band)")
     sp.add_argument("--star", help="star id (default: the target)")
-    sp.add_argument("--include-flagged", action="store_true", help="also write flagged points (see the quality and flags columns)")
+    sp.add_argument("--include-flagged", action="store_true",
+                    help="also write flagged points, see the quality and flags columns (default: left out)")
 
     sp = add("coefficients", cmd_coefficients, "fit transformation coefficients (epsilon_v, mu_bv) from a standard field")
     sp.add_argument("files", type=Path, nargs="+", metavar="STANDARDS.csv", help="measurement tables of the standard field (B and V)")
     sp.add_argument("standards", type=Path, metavar="STANDARDS.toml", help="the standard stars with their catalogue B and V")
-    sp.add_argument("-o", "--output", type=Path, help="plot of the two fits (png, pdf, svg)")
+    sp.add_argument("-o", "--output", type=Path, help="plot of the two fits (png, pdf, svg; default: no plot)")
     sp.add_argument("--k2-bv", type=float, default=0.0, metavar="K", help="second-order extinction of b - v to remove (mag per airmass per mag; default 0)")
     sp.add_argument("--k2-bv-err", type=float, default=0.0, metavar="K", help="its 1-sigma (default 0)")
-    sp.add_argument("--save", type=Path, metavar="SETUPS.toml", help="add or replace the result as a setup in this setups file")
+    sp.add_argument("--save", type=Path, metavar="SETUPS.toml", help="add or replace the result as a setup in this setups file (default: not saved)")
     sp.add_argument("--setup", metavar="NAME", help="setup name to save under (default 'default')")
-    sp.add_argument("--column", action="append", metavar="NAME=FILE_COLUMN", help="read varstar column NAME from the file's FILE_COLUMN (repeatable)")
+    sp.add_argument("--column", action="append", metavar="NAME=FILE_COLUMN",
+                    help="read varstar column NAME from the file's FILE_COLUMN (repeatable; default: the file's own names)")
 
     sp = add("transform", cmd_transform, "apply transformation coefficients to every night of the archive (standard B, V and B - V)")
-    sp.add_argument("archive", type=Path)
+    sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
     sp.add_argument("--coefficients", type=Path, metavar="FILE", help="a setups file or a TOML with a [transformation] table (default: the archive's current set)")
-    sp.add_argument("--setup", metavar="NAME", help="which setup of the setups file")
+    sp.add_argument("--setup", metavar="NAME", help="which setup of the setups file (default: the file's only or 'default' setup)")
     sp.add_argument("--max-gap-minutes", "--max-gap", dest="max_gap_minutes", type=float, metavar="MINUTES",
-                    help="largest time between paired V and B exposures (the target file's max_gap_minutes; "
-                         "--max-gap is its old name, kept for one release)")
+                    help="largest time between paired V and B exposures (default: the coefficient set's max_gap_minutes, "
+                         "as in the target file; --max-gap is its old name, kept for one release)")
     sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
 
     sp = add("colour", cmd_colour, "standard B - V of the target: range, temperature, plots")
-    sp.add_argument("archive", type=Path)
+    sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
     sp.add_argument("--star", help="star id (default: the target)")
-    sp.add_argument("--night", help="only this night (evening date, YYYY-MM-DD)")
-    sp.add_argument("-o", "--output", type=Path, help="plot of B - V against time (and phase, with an [ephemeris])")
+    sp.add_argument("--night", help="only this night (evening date, YYYY-MM-DD; default: every night)")
+    sp.add_argument("-o", "--output", type=Path, metavar="FILE",
+                    help="plot of B - V against time (and phase, with an [ephemeris]; default: no plot)")
     sp.add_argument("--diagram", type=Path, metavar="FILE", help="colour-magnitude diagram of the field for the night (default: the last night)")
 
     sp = add("period", cmd_period, "find the period: periodogram, PDM, aliases, harmonic fit; stored in the period history")
-    sp.add_argument("archive", type=Path)
-    sp.add_argument("--band", default="all", help="a band, or 'all' for one multi-band periodogram (default)")
+    sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
+    sp.add_argument("--band", default="all", help="a band, or 'all' for one multi-band periodogram (default all)")
     sp.add_argument("--star", help="star id (default: the target)")
     sp.add_argument("--min-period", type=float, metavar="DAYS", help="shortest trial period (default 0.05 d)")
     sp.add_argument("--max-period", type=float, metavar="DAYS", help="longest trial period (default: half the baseline, at most 1000 d)")
     sp.add_argument("--oversampling", type=float, default=10.0, metavar="N", help="grid points per peak width 1/baseline (default 10)")
     sp.add_argument("--terms", type=int, default=1, metavar="K", help="harmonics of the periodogram (default 1)")
     sp.add_argument("--harmonics", type=int, metavar="N", help="harmonics of the final fit (default: chosen by AIC)")
-    sp.add_argument("--bootstrap", type=int, default=0, metavar="N", help="also a bootstrap false-alarm probability from N resamples")
+    sp.add_argument("--bootstrap", type=int, default=0, metavar="N", help="also a bootstrap false-alarm probability from N resamples (default 0: none)")
     sp.add_argument("--seed", type=int, metavar="S", help="seed of the bootstrap (default 0)")
     sp.add_argument("--single", action="store_true", help="fit the main period alone (by default further significant frequencies are found and fitted together)")
     sp.add_argument("--snr", type=float, default=4.0, metavar="S", help="a further frequency needs this amplitude S/N (default 4)")
     sp.add_argument("--max-frequencies", type=int, default=8, metavar="N", help="at most N frequencies in the model (default 8)")
-    sp.add_argument("--include-flagged", action="store_true", help="also use points of flagged exposures")
+    sp.add_argument("--include-flagged", action="store_true", help="also use points of flagged exposures (default: left out)")
     sp.add_argument("--no-store", action="store_true", help="do not record the result in the archive")
     sp.add_argument("--history", action="store_true", help="list the stored analyses instead of running one")
-    sp.add_argument("-o", "--output", type=Path, metavar="FILE", help="periodogram plot (png, pdf, svg)")
-    sp.add_argument("--phased", type=Path, metavar="FILE", help="phased light curve with the fit and residuals")
+    sp.add_argument("-o", "--output", type=Path, metavar="FILE", help="periodogram plot (png, pdf, svg; default: no plot)")
+    sp.add_argument("--phased", type=Path, metavar="FILE", help="phased light curve with the fit and residuals (default: no plot)")
     sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
 
     sp = add("timings", cmd_timings, "time the minima or maxima the nights cover; O − C and an ephemeris fit")
-    sp.add_argument("archive", type=Path)
+    sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
     sp.add_argument("--band", help="only this band (default: every band)")
     sp.add_argument("--kind", choices=("minimum", "maximum"), help="which extrema (default: the ephemeris' kind)")
-    sp.add_argument("--night", help="only this night (evening date, YYYY-MM-DD)")
-    sp.add_argument("--note", help="a note stored with each new timing")
+    sp.add_argument("--night", help="only this night (evening date, YYYY-MM-DD; default: every night)")
+    sp.add_argument("--note", help="a note stored with each new timing (default: none)")
     sp.add_argument("--update", action="store_true", help="make the fitted ephemeris the archive's new ephemeris (older ones are kept)")
     sp.add_argument("--no-store", action="store_true", help="do not record new timings in the archive")
     sp.add_argument("--seed", type=int, default=0, metavar="S", help="seed of the bootstrap errors (default 0)")
-    sp.add_argument("-o", "--output", type=Path, metavar="FILE", help="O − C diagram (png, pdf, svg)")
-    sp.add_argument("--csv", type=Path, metavar="FILE", help="write the timings as CSV, one a row")
+    sp.add_argument("-o", "--output", type=Path, metavar="FILE", help="O − C diagram (png, pdf, svg; default: no plot)")
+    sp.add_argument("--csv", type=Path, metavar="FILE", help="write the timings as CSV, one a row (default: no CSV)")
     sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
 
     sp = add("predict", cmd_predict, "the coming minima or maxima from the ephemeris in force, in UTC and BJD_TDB")
-    sp.add_argument("archive", type=Path)
+    sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
     sp.add_argument("--from", dest="start", required=True, metavar="DATE", help="start, UTC: YYYY-MM-DD, YYYY-MM-DDTHH:MM or a JD")
     sp.add_argument("--to", dest="end", required=True, metavar="DATE", help="end, UTC")
-    sp.add_argument("--site-visible", action="store_true", help="only those observable from the target's site at night")
+    sp.add_argument("--site-visible", action="store_true", help="only those observable from the target's site at night (default: all)")
     sp.add_argument("--min-altitude", type=float, default=30.0, metavar="DEG", help="lowest target altitude (default 30)")
     sp.add_argument("--sun-altitude", type=float, default=-12.0, metavar="DEG", help="highest Sun altitude (default -12, nautical twilight)")
 
     sp = add("verify", cmd_verify, "check an archive: schema, tables, checksums of every night, points against raw data")
-    sp.add_argument("archive", type=Path)
+    sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
 
     sp = add("upgrade", cmd_upgrade, "bring an archive of an older schema up to date (keeps a backup copy)")
-    sp.add_argument("archive", type=Path)
+    sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
     sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
 
     sp = add("remove-night", cmd_remove_night, "take a wrongly ingested night out of an archive (the removal is recorded)")
-    sp.add_argument("archive", type=Path)
+    sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
     sp.add_argument("night", help="night label (evening date, YYYY-MM-DD)")
-    sp.add_argument("--reason", help="why, for the record")
+    sp.add_argument("--reason", metavar="TEXT",
+                    help="why, recorded in the archive with the removal (default: asked for in a terminal; "
+                         "a script without it records no reason)")
     sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
 
     sp = add("demo", cmd_demo, "run the whole pipeline on the shipped invented demo field")
@@ -478,13 +544,45 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
+def _json_asked(argv: Sequence[str]) -> bool:
+    """Whether ``--json`` is on the command line (before a ``--``), for errors found while parsing it."""
+    for a in argv:
+        if a == "--":
+            return False
+        if a == "--json":
+            return True
+    return False
+
+
+def _print_json_error(message: str, code: int, result: dict[str, Any] | None = None) -> None:
+    """The one JSON object of a failed command: the message and the exit code, beside the fields of the
+    result it had (``verify``'s report: ``ok``, ``problems``...), which keep their places."""
+    import json
+
+    obj: dict[str, Any] = {}
+    if result is not None:
+        from .export import to_json
+
+        obj.update(json.loads(to_json(result)))
+    obj.update(error=message, exit_code=code)
+    sys.stdout.write(json.dumps(obj, ensure_ascii=False, allow_nan=False) + "\n")
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     from .errors import VarstarError
 
     from .threads import limit_blas_threads
 
+    argv = list(sys.argv[1:] if argv is None else argv)
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as stop:  # --help, --version (0) or a usage mistake (argparse printed it on stderr)
+        if stop.code not in (0, None) and _json_asked(argv):
+            code = stop.code if isinstance(stop.code, int) else EXIT_CODES["usage"]
+            _print_json_error(getattr(parser, "last_error", None) or "bad command line (see --help)", code)
+        raise
+    as_json = bool(getattr(args, "json", False))
     try:
         _check_outputs(args)  # before any work: a result that cannot be written is refused first
         # One BLAS thread: the commands solve many small problems, for which threads cost more than
@@ -493,12 +591,21 @@ def main(argv: Sequence[str] | None = None) -> int:
             return int(args.func(args) or 0)
     except VarstarError as exc:
         sys.stderr.write(f"error: {exc}\n")
+        if as_json:  # results are printed only at the end, so stdout is still empty
+            _print_json_error(str(exc), exc.exit_code, getattr(exc, "result", None))
         return exc.exit_code
     except KeyboardInterrupt:
         sys.stderr.write("interrupted; the archive is unchanged\n")
-        return 130
+        if as_json:
+            _print_json_error("interrupted; the archive is unchanged", EXIT_CODES["interrupted"])
+        return EXIT_CODES["interrupted"]
     except BrokenPipeError:  # e.g. piped into head
         return 0
+    except Exception as exc:  # a bug: the traceback stays (Python exits 1); scripts still get one JSON object
+        if as_json:
+            _print_json_error(f"internal error ({type(exc).__name__}: {exc}); please report it with the traceback",
+                              EXIT_CODES["bug"])
+        raise
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -11,6 +11,25 @@ from pathlib import Path
 from typing import Any
 
 
+#: Plurals that are not the noun plus "s".
+_IRREGULAR = {"minimum": "minima", "maximum": "maxima", "extremum": "extrema", "analysis": "analyses",
+              "entry": "entries", "ephemeris": "ephemerides"}
+
+
+def plural(n: int, noun: str, plural_form: str | None = None) -> str:
+    """``"1 exposure"``, ``"2 exposures"``, ``"0 exposures"``; irregular nouns through ``plural_form`` or the table."""
+    return f"{n} {noun if n == 1 else (plural_form or _IRREGULAR.get(noun) or noun + 's')}"
+
+
+def cycle(e: float | None) -> str:
+    """A cycle number: ``3`` when whole, ``3.5`` for a half cycle (other fractions to 0.01)."""
+    if e is None or e != e:
+        return "n/a"
+    if float(e).is_integer():
+        return str(int(e))
+    return format(e, ".2f").rstrip("0")
+
+
 def _fmt(v: float | None, spec: str = ".3f") -> str:
     return "n/a" if v is None or v != v else format(v, spec)
 
@@ -26,12 +45,12 @@ def format_night_report(rep: dict[str, Any]) -> str:
     """A short, readable night summary for the terminal."""
     lines = [
         f"Night {rep['night']}  ({', '.join(Path(s).name for s in rep['sources'])}): "
-        f"{rep['n_exposures']} exposures, {rep['n_flagged']} flagged"
+        f"{plural(rep['n_exposures'], 'exposure')}, {rep['n_flagged']} flagged"
     ]
     for band, b in rep["bands"].items():
         reasons = ", ".join(f"{k} {v}" for k, v in sorted(b["flag_reasons"].items()))
         lines.append(
-            f"  {band}: {b['n_exposures']} exposures, {b['n_used']} used, {b['n_flagged']} flagged"
+            f"  {band}: {plural(b['n_exposures'], 'exposure')}, {b['n_used']} used, {b['n_flagged']} flagged"
             + (f" ({reasons})" if reasons else "")
         )
         frames = b["flagged_frames"]
@@ -46,12 +65,12 @@ def format_night_report(rep: dict[str, Any]) -> str:
             off = c.get("offset_from_catalog")
             cat = f", {_fmt(off, '+.3f')} from catalogue" if off is not None else ""
             lines.append(
-                f"      check {sid}: mean {_fmt(c['mean'])}{cat}; rms {_fmt(c['rms'])} vs {_fmt(c['predicted_rms'])} predicted ({c['n']} points)"
+                f"      check {sid}: mean {_fmt(c['mean'])}{cat}; rms {_fmt(c['rms'])} vs {_fmt(c['predicted_rms'])} predicted ({plural(c['n'], 'point')})"
             )
         t = b["target"]
         if t["n"]:
             lines.append(
-                f"      target: {_fmt(t['mag_min'])} .. {_fmt(t['mag_max'])} mag, median error {_fmt(t['median_mag_err'])} ({t['n']} points); "
+                f"      target: {_fmt(t['mag_min'])} .. {_fmt(t['mag_max'])} mag, median error {_fmt(t['median_mag_err'])} ({plural(t['n'], 'point')}); "
                 f"calibration ±{_fmt(b['calibration_err'])}"
             )
         for w in b["ensemble"].get("warnings", []):
@@ -60,7 +79,7 @@ def format_night_report(rep: dict[str, Any]) -> str:
     if tr:
         c = tr["coefficients"]
         lines.append(
-            f"  standard system: {tr['n_transformed']} of {tr['n_points']} points transformed "
+            f"  standard system: {tr['n_transformed']} of {plural(tr['n_points'], 'point')} transformed "
             f"(epsilon_v {c['epsilon_v']:+.4f}, mu_bv {c['mu_bv']:.4f}, from {c['source']})"
         )
         t = tr.get("target")
@@ -68,6 +87,8 @@ def format_night_report(rep: dict[str, Any]) -> str:
             shifts = ", ".join(f"{b} {v['mean_shift']:+.3f}" for b, v in sorted(t["by_band"].items()))
             lines.append(f"      target B - V {t['bv_min']:.3f} .. {t['bv_max']:.3f}; mean change from transformation: {shifts} mag")
         lines += [f"      note: {n}" for n in tr["notes"]]
+    for why in rep.get("accepted_unusual", []):
+        lines.append(f"  accepted although unusual (--accept-unusual): {why}")
     for w in rep.get("warnings", []):
         lines.append(f"  warning: {w}")
     return "\n".join(lines)
@@ -77,13 +98,13 @@ def format_summary(s: dict[str, Any]) -> str:
     t = s["target"]
     lines = [
         f"{t['name']}  (RA {t['ra_deg']:.5f}°, Dec {t['dec_deg']:+.5f}°; star {t['star']})",
-        f"archive {s['archive']}, schema {s['schema_version']}, {s['n_nights']} night(s)",
+        f"archive {s['archive']}, schema {s['schema_version']}, {s['n_nights']} night(s)",  # pinned by tests (test_cli, test_archive_damage)
     ]
     for n in s["nights"]:
-        lines.append(f"  {n['night']}: {n['n_exposures']} exposures, {n['n_flagged']} flagged (ingested {n['ingested_utc']})")
+        lines.append(f"  {n['night']}: {plural(n['n_exposures'], 'exposure')}, {n['n_flagged']} flagged (ingested {n['ingested_utc']})")
     for band, b in s["bands"].items():
         lines.append(
-            f"  {band}: {b['n_points']} points ({b['n_standard']} on the standard system; {b['n_flagged']} flagged left out), "
+            f"  {band}: {plural(b['n_points'], 'point')} ({b['n_standard']} on the standard system; {b['n_flagged']} flagged left out), "
             f"{b['mag_min']:.3f} .. {b['mag_max']:.3f} mag, "
             f"median error {b['median_mag_err']:.3f}, BJD_TDB {b['bjd_first']:.4f} .. {b['bjd_last']:.4f}"
         )
@@ -97,7 +118,7 @@ def format_summary(s: dict[str, Any]) -> str:
 
 def format_coefficients(fit: dict[str, Any], k2_bv: float) -> str:
     lines = [
-        f"Transformation coefficients from {fit['n_stars']} standard stars (B - V span {fit['colour_range']:.2f} mag):",
+        f"Transformation coefficients from {plural(fit['n_stars'], 'standard star')} (B - V span {fit['colour_range']:.2f} mag):",
         f"  epsilon_v = {fit['epsilon_v']:+.4f} ± {fit['epsilon_v_err']:.4f}   (V - v = eps (B - V) + const; rms {fit['rms_v']:.4f} mag)",
         f"  mu_bv     = {fit['mu_bv']:.4f} ± {fit['mu_bv_err']:.4f}    ((B - V) = mu (b - v) + const; rms {fit['rms_bv']:.4f} mag)",
         f"  k2_bv     = {k2_bv:+.4f} (given, removed from b before the fit)",
@@ -113,7 +134,7 @@ def format_colour(s: dict[str, Any]) -> str:
     ebv = f", dereddened with E(B-V) = {s['ebv']:.3f}" if s["dereddened"] else ""
     lines = [
         f"{s['star']}: standard B - V from {s['bv_min']:.3f} ± {s['bv_min_err']:.3f} to {s['bv_max']:.3f} ± {s['bv_max_err']:.3f} "
-        f"(weighted mean {s['bv_mean']:.3f} ± {s['bv_mean_err']:.3f} incl. calibration; {s['n_points']} points)",
+        f"(weighted mean {s['bv_mean']:.3f} ± {s['bv_mean_err']:.3f} incl. calibration; {plural(s['n_points'], 'point')})",
         f"  effective temperature ({s['temperature_method']}{ebv}):",
         f"    hottest {s['teff_max_k']:.0f} ± {s['teff_max_err_k']:.0f} K, coolest {s['teff_min_k']:.0f} ± {s['teff_min_err_k']:.0f} K, "
         f"at the mean colour {s['teff_mean_k']:.0f} ± {s['teff_mean_err_k']:.0f} K",
@@ -131,8 +152,8 @@ def format_period(d: dict[str, Any]) -> str:
         f"frequency {_pm(d['frequency'], d['frequency_err'], 6)} c/d)",
         f"  refined by: {d['period_method']}",
         f"  errors: {d['errors']}",
-        f"  data: {d['n_points']} points in {', '.join(d['bands'])} over {d['baseline_d']:.1f} d, "
-        f"{len(d['nights'])} nights",
+        f"  data: {plural(d['n_points'], 'point')} in {', '.join(d['bands'])} over {d['baseline_d']:.1f} d, "
+        f"{plural(len(d['nights']), 'night')}",
         f"  epoch of {d['epoch_kind']} light {_pm(d['epoch'], d['epoch_err'], 5)} BJD_TDB; "
         f"amplitude {_fmt(d['amplitude'])}" + (f" ± {_fmt(d['amplitude_err'])}" if d.get("amplitude_err") is not None else "")
         + f" mag peak to peak ({d['reference_band'] or 'one band'})",
@@ -166,7 +187,7 @@ def format_period(d: dict[str, Any]) -> str:
         r21 = ""
         if fit["r21"] is not None and not d["templates"]:
             r21 = f", R21 {fit['r21']:.3f} ± {_fmt(fit['r21_err'])}, phi21 {fit['phi21']:.3f} ± {_fmt(fit['phi21_err'])} rad"
-        lines.append(f"  {b or 'fit'}: mean {fit['mean_mag']:.3f}, {fit['nterms']} harmonics{r21}, "
+        lines.append(f"  {b or 'fit'}: mean {fit['mean_mag']:.3f}, {plural(fit['nterms'], 'harmonic')}{r21}, "
                      f"reduced chi2 {_fmt(fit['reduced_chi2'], '.2f')}")
     for b, tpl in d["templates"].items():
         lines.append(f"  {b or 'template'}: eclipse template, reduced chi2 {_fmt(tpl['reduced_chi2'], '.2f')}")
@@ -184,21 +205,21 @@ def format_timings(d: dict[str, Any]) -> str:
     lines.append(f"{'night':10s} {'band':4s} {'type':9s} {'E':>8s} {'BJD_TDB':>15s} {'± (d)':>8s} {'O − C (d)':>10s}  method")
     for t in d["timings"]:
         flag = " *" if t["new"] else ""
-        lines.append(f"{t['night']:10s} {t['band']:4s} {t['type']:9s} {t['cycle']:8.1f} {t['bjd_tdb']:15.5f} "
+        lines.append(f"{t['night']:10s} {t['band']:4s} {t['type']:9s} {t['cycle']:8.1f} {t['bjd_tdb']:15.5f} "  # E as 3.0: pinned by test_one_night.py
                      f"{_fmt(t['err'], '.5f'):>8s} {t['o_minus_c']:+10.5f}  {t['method']}{flag}")
         if t["note"]:
             lines.append(f"{'':12s}note: {t['note']}")
     lines.append(f"(* new: {d['n_new']} stored now{'' if d['stored'] else ' - not stored (--no-store)'})")
     if d["refused"]:
-        lines.append(f"{len(d['refused'])} predicted extrema could not be timed:")
+        lines.append(f"{plural(len(d['refused']), 'predicted extremum', 'predicted extrema')} could not be timed:")
         for r in d["refused"][:10]:
-            lines.append(f"  {r['night']} {r['band']} {r['type']} E={r['cycle']:g}: {r['reason']}")
+            lines.append(f"  {r['night']} {r['band']} {r['type']} E={cycle(r['cycle'])}: {r['reason']}")
         if len(d["refused"]) > 10:
             lines.append(f"  ... and {len(d['refused']) - 10} more (see --json)")
     fit = d["fit"]
     if fit:
         q = f" + ({fit['quadratic']:.3e} ± {_fmt(fit['quadratic_err'], '.1e')}) E²" if fit["model"] == "quadratic" else ""
-        lines.append(f"fit of {fit['n_timings']} timings ({fit['model']}): T = {fit['epoch']:.5f} ± {_fmt(fit['epoch_err'], '.5f')} "
+        lines.append(f"fit of {plural(fit['n_timings'], 'timing')} ({fit['model']}): T = {fit['epoch']:.5f} ± {_fmt(fit['epoch_err'], '.5f')} "
                      f"+ ({fit['period']:.8f} ± {_fmt(fit['period_err'], '.8f')}) E{q}; chi2 {fit['chi2']:.1f} for {fit['dof']} dof")
         if fit["note"]:
             lines.append(f"  {fit['note']}")
@@ -215,18 +236,18 @@ def format_transform(res: dict[str, Any]) -> str:
     lines = [f"applied epsilon_v = {c['epsilon_v']:+.4f} ± {c['epsilon_v_err']:.4f}, mu_bv = {c['mu_bv']:.4f} ± {c['mu_bv_err']:.4f}, "
              f"k2_bv = {c['k2_bv']:+.4f} (from {c['source']}; pairs within {res['max_gap_minutes']:.0f} min)"]
     for n in res["nights"]:
-        lines.append(f"  {n['night']}: {n['n_transformed']} of {n['n_points']} points transformed")
+        lines.append(f"  {n['night']}: {n['n_transformed']} of {plural(n['n_points'], 'point')} transformed")
         lines += [f"      {note}" for note in n["notes"]]
     return "\n".join(lines)
 
 
 def format_predict(d: dict[str, Any]) -> str:
     """The coming extrema, one a line, with the target's and the Sun's altitude."""
-    lines = [f"{d['target']}: {len(d['events'])} {d['ephemeris']['kind']} predicted"
+    lines = [f"{d['target']}: {plural(len(d['events']), d['ephemeris']['kind'])} predicted"
              + (f" while it stands above {d['min_altitude_deg']:g}° with the Sun below {d['max_sun_altitude_deg']:g}°" if d['site_visible'] else "")]
     lines.append(f"{'UTC':21s} {'BJD_TDB':>15s} {'type':9s} {'E':>8s} {'altitude':>8s} {'Sun':>6s}")
     for e in d["events"]:
-        lines.append(f"{e['utc']:21s} {e['bjd_tdb']:15.5f} {e['type']:9s} {e['cycle']:8.1f} {e['target_altitude_deg']:7.1f}° {e['sun_altitude_deg']:5.1f}°")
+        lines.append(f"{e['utc']:21s} {e['bjd_tdb']:15.5f} {e['type']:9s} {cycle(e['cycle']):>8s} {e['target_altitude_deg']:7.1f}° {e['sun_altitude_deg']:5.1f}°")
     return "\n".join(lines)
 
 
@@ -234,11 +255,12 @@ def format_verify(d: dict[str, Any]) -> str:
     """OK with what was checked, or every problem found, one a line; then the notes."""
     rows = d["checked"].get("rows", {})
     if d['ok']:
-        text = (f"{d['archive']}: OK (schema {d['schema_version']}; {d['checked'].get('nights', 0)} nights, "
-                f"{rows.get('raw', 0)} raw measurements, {rows.get('points', 0)} light-curve points; "
-                f"{d['checked'].get('checksums_ok', 0)} night checksums match)")
+        text = (f"{d['archive']}: OK (schema {d['schema_version']}; {plural(d['checked'].get('nights', 0), 'night')}, "
+                f"{plural(rows.get('raw', 0), 'raw measurement')}, {plural(rows.get('points', 0), 'light-curve point')}; "
+                f"{plural(d['checked'].get('checksums_ok', 0), 'night checksum')} "
+                f"{'matches' if d['checked'].get('checksums_ok', 0) == 1 else 'match'})")
     else:
-        text = f"{d['archive']}: {len(d['problems'])} problem(s) found:\n" + "\n".join(f"  - {p}" for p in d['problems'])
+        text = f"{d['archive']}: {plural(len(d['problems']), 'problem')} found:\n" + "\n".join(f"  - {p}" for p in d['problems'])
     text += "".join(f"\n  note: {n}" for n in d["notes"])
     return text
 
@@ -247,7 +269,7 @@ def format_upgrade(res: dict[str, Any]) -> str:
     """What an upgrade did (or that there was nothing to do)."""
     if res["upgraded"]:
         return (f"{res['archive']}: upgraded from schema {res['from_schema']} to {res['schema_version']} "
-                f"(added {', '.join(res['tables_added']) or 'nothing'}; checksums of {res['nights_checksummed']} nights); "
+                f"(added {', '.join(res['tables_added']) or 'nothing'}; checksums of {plural(res['nights_checksummed'], 'night')}); "
                 f"the old file is kept as {res['backup']}")
     else:
         return f"{res['archive']}: already at schema {res['schema_version']}; nothing to do"
@@ -255,8 +277,9 @@ def format_upgrade(res: dict[str, Any]) -> str:
 
 def format_removal(res: dict[str, Any]) -> str:
     """What ``remove-night`` took out."""
-    return (f"removed night {res['night']} ({res['n_exposures']} exposures, {res['n_points']} points, from "
-            f"{', '.join(res['sources']) or 'no file'}); the removal is recorded in the archive")
+    why = f", reason: {res['reason']}" if res.get("reason") else ", no reason given"
+    return (f"removed night {res['night']} ({plural(res['n_exposures'], 'exposure')}, {plural(res['n_points'], 'point')}, from "
+            f"{', '.join(res['sources']) or 'no file'}); the removal is recorded in the archive{why}")
 
 
 def format_ingest(res: dict[str, Any]) -> str:

@@ -80,3 +80,15 @@ def test_a_plausible_night_has_nothing_unusual(demo_data, tmp_path):
     path = _archive(demo_data, tmp_path)
     res = varstar.ingest(path, [demo_data.nights[0]])
     assert "accepted_unusual" not in res.nights[0]
+
+
+def test_the_command_line_refuses_and_accepts_with_the_flag(demo_data, tmp_path, capsys):
+    from helpers import run
+
+    night = _edited(demo_data, tmp_path, CASES["airmass off by 2.3"][0])
+    path = _archive(demo_data, tmp_path)
+    rc, out, err = run(capsys, "ingest", path, night)
+    assert rc == InputError.exit_code and "airmass differs" in err and "--accept-unusual" in err
+    rc, out, err = run(capsys, "ingest", path, night, "--accept-unusual")
+    assert rc == 0, err
+    assert "accepted although unusual (--accept-unusual): the table's airmass differs" in out

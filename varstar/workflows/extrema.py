@@ -14,7 +14,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from ..errors import InputError, VarstarError
+from ..errors import ArchiveError, InputError, VarstarError
 from ..results import Result, plain
 from .periods import ANALYSIS_COLUMNS
 
@@ -115,7 +115,7 @@ def _time_nights(
     lc = whole
     if night is not None:
         if night not in set(archive.nights()["night"]):
-            raise InputError(f"{archive.path}: no night '{night}' (see 'varstar summary')")
+            raise ArchiveError(f"{archive.path}: no night '{night}' (see 'varstar summary')")
         lc = whole[whole["night"] == night]
     if lc.empty:
         raise InputError(f"{archive.path}: no good light-curve points{' in band ' + band if band else ''}; nothing to time")
