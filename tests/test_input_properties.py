@@ -585,7 +585,7 @@ def long_fault(draw, t: Table, kind: str, col: str | None = None) -> tuple[Table
         return t, Fault(kind, None, () if c == "star" else (c,))
     if kind == "rename column":
         c = draw(st.sampled_from(t.header))
-        new = draw(st.sampled_from([c.upper(), c + "_x", " " + c + "2", "Unnamed", "mag err"]))
+        new = draw(st.sampled_from([c + "_x", " " + c + "2", "Unnamed", "mag err"]))
         assume(new.strip() not in t.header)
         t.header[t.col(c)] = new
         return t, Fault(kind, None, ())

@@ -8,8 +8,15 @@ Wide form: one row per exposure, columns ``jd``, ``band`` and the optional
 per-exposure columns, plus ``<id>`` and ``<id>_err`` for each star.
 
 Either form may name its columns differently: ``columns`` maps varstar's name to
-the file's (``{"jd": "JD_UTC", "band": "FILTER"}``).  Lines starting with ``#``
-and blank lines are ignored; every error names the file and the line.
+the file's (``{"jd": "JD_UTC", "band": "FILTER"}``); varstar's names are matched
+without regard to case.  Cells are separated by commas, or by semicolons or tabs
+when the header line has no comma.  Lines starting with ``#`` and blank lines
+are ignored; every error names the file and the line.
+
+A row marked bad upstream (``flag`` not 0) is kept whatever its magnitude and
+error hold; a good row holding a placeholder such as ``99.999`` is kept flagged.
+What the reader changed this way is said in ``table.attrs["warnings"]`` (a list
+of sentences, each naming the file), which the night's report carries.
 
 A table is read in pieces of whole lines (:data:`CHUNK_BYTES`): the header is
 checked before any row is parsed, each piece is checked before the next is
@@ -43,19 +50,20 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
-from .header import OPTIONAL, PER_EXPOSURE, REQUIRED_LONG, Header, plan_header
+from .header import DELIMITER_NAMES, OPTIONAL, PER_EXPOSURE, REQUIRED_LONG, Header, plan_header
 from .lines import check_fields, read_piece, split_lines
 from .messages import fail
 from .stream import CHUNK_BYTES, MAX_LINE_BYTES, file_sha256, is_regular_file, open_table, read_bytes, read_error, text_pieces
 from .validate import (
     AIRMASS_MAX, EXPTIME_MAX_S, FLAG_MAX, FLAG_MIN, JD_MAX, JD_MIN, MAG_ABS_MAX, MAG_ERR_MAX,
-    check_cut_line, check_exposures, validate_rows,
+    SENTINEL_FLAG, SENTINELS, check_cut_line, check_exposures, sentinel_warning, validate_rows,
 )
 from .wide import wide_to_long
 
 __all__ = [
     "TIDY_COLUMNS", "REQUIRED_LONG", "OPTIONAL", "PER_EXPOSURE",
     "JD_MIN", "JD_MAX", "EXPTIME_MAX_S", "MAG_ABS_MAX", "MAG_ERR_MAX", "AIRMASS_MAX", "FLAG_MIN", "FLAG_MAX",
+    "SENTINELS", "SENTINEL_FLAG",
     "CHUNK_BYTES", "MAX_LINE_BYTES",
     "parse_measurements", "parse_stream", "read_measurement_file", "read_measurements",
     "read_bytes", "file_sha256", "is_regular_file",
@@ -78,7 +86,7 @@ def parse_measurements(
     Parameters
     ----------
     data
-        The file's bytes (UTF-8 text, comma-separated).
+        The file's bytes (UTF-8 text; cells separated by commas, or by semicolons or tabs when the header line has no comma).
     source
         Name used in messages and in the ``source`` column (usually the path).
     star_ids
@@ -91,6 +99,8 @@ def parse_measurements(
     pandas.DataFrame
         Columns :data:`TIDY_COLUMNS`; ``airmass`` and ``exptime_s`` are NaN where
         not given, ``flag`` is 0 where not given, ``frame`` is a string id.
+        ``attrs["warnings"]`` lists what the reader read generously (a delimiter
+        other than the comma, placeholders flagged), each naming the file.
 
     Raises
     ------
@@ -120,6 +130,8 @@ def parse_stream(
     parts: list[pd.DataFrame] = []
     n_rows = 0
     cut_line: int | None = None  # a last line without a line end
+    placeholder_lines: list[np.ndarray] = []
+    placeholder_values: list[str] = []
     for text, first, last in text_pieces(stream, source, hasher):
         if "\x00" in text:
             raise fail(source, None, "contains NUL bytes: not a text table")
@@ -138,6 +150,10 @@ def parse_stream(
         n_rows += numbers.size
         part = _parse_piece(body, numbers, plan, source, ids, id_set, cut_line)
         if part is not None:
+            found = part.attrs.pop("placeholders", None)
+            if found is not None:
+                placeholder_lines.append(found[0])
+                placeholder_values += found[1]
             parts.append(part)
     if plan is None:
         raise fail(source, None, "empty table (no header line)")
@@ -150,6 +166,13 @@ def parse_stream(
     check_exposures(out, source)
     if cut_line is not None and cut_line != plan.line:
         check_cut_line(out, cut_line, source)
+    warnings = []
+    if plan.sep != ",":
+        warnings.append(f"{source}: read with cells separated by {DELIMITER_NAMES[plan.sep]} (the header line has no comma)")
+    if placeholder_lines:
+        found = np.concatenate(placeholder_lines)
+        warnings.append(sentinel_warning(source, found, placeholder_values, int(found.size)))
+    out.attrs["warnings"] = warnings
     return out
 
 
@@ -159,7 +182,7 @@ def _parse_piece(body: str, numbers: np.ndarray, plan: Header, source: str, ids:
     lines_all = np.concatenate([[plan.line], numbers])
     df = read_piece(text, lines_all, source, plan, cut_line)
     if len(df) != len(numbers):  # a quoted cell over a line end, or a lone carriage return
-        check_fields(text, lines_all, source, cut_line)
+        check_fields(text, lines_all, source, cut_line, plan.sep)
         raise fail(source, None, "could not match rows to lines")  # pragma: no cover - check_fields names the line
     df.columns = list(plan.names)
     if plan.long:
@@ -209,4 +232,7 @@ def read_measurements(
     if len(tables) > 1:
         for t in tables:
             t["frame"] = Path(t["source"].iloc[0]).name + ":" + t["frame"].astype(str)
-    return pd.concat(tables, ignore_index=True)
+    warnings = [w for t in tables for w in t.attrs.get("warnings", [])]
+    out = pd.concat(tables, ignore_index=True)
+    out.attrs["warnings"] = warnings
+    return out

@@ -6,9 +6,19 @@ ranges) and returns the tidy columns; :func:`check_exposures` and
 are parsed by :func:`numeric_column`, which looks at a cell's text only where
 the fast parse did not give a finite number.  Ids follow the one rule of
 :func:`varstar.inputs.id_problem`.
+
+A measurement marked bad upstream (``flag`` not 0) is kept but never used, so
+its magnitude and error are not held to the rules of a good one: a value that
+is not a plausible number (text, ``nan``, ``99.999``) is stored as empty
+(NaN).  Its time, band, star, frame, airmass and exposure time are checked as
+any row's.  A good row whose magnitude or error is one of the placeholder
+values photometry programs write for "no measurement" (:data:`SENTINELS`) is
+stored flagged (:data:`SENTINEL_FLAG`), with a warning, rather than refused.
 """
 
 from __future__ import annotations
+
+import re
 
 import numpy as np
 import pandas as pd
@@ -23,9 +33,17 @@ MAG_ABS_MAX = 50.0
 MAG_ERR_MAX = 5.0
 AIRMASS_MAX = 40.0
 FLAG_MIN, FLAG_MAX = -(2**31), 2**31 - 1
+#: Placeholders for "no measurement" that photometry programs commonly write in a magnitude or error
+#: column (common practice).  Each is outside the plausible ranges above (|mag| > 50, mag_err > 5 or
+#: negative), so no real measurement is taken for one.
+SENTINELS = (99.999, 99.99, 99.9999, -99.0, -99.999)
+_DECIMAL_COMMA = re.compile(r"[+-]?[0-9]+,[0-9]+")
+#: The flag given to a good row that holds a placeholder (flags are plain integers, 0 = good).
+SENTINEL_FLAG = 1
 
 
-def numeric_column(df: pd.DataFrame, col: str, lines: np.ndarray, source: str, *, allow_empty: bool) -> np.ndarray:
+def numeric_column(df: pd.DataFrame, col: str, lines: np.ndarray, source: str, *, allow_empty: bool,
+                   lenient: np.ndarray | None = None) -> np.ndarray:
     """The column ``col`` of ``df`` as floats (NaN where empty), or the first bad cell named by its line.
 
     Parameters
@@ -40,6 +58,9 @@ def numeric_column(df: pd.DataFrame, col: str, lines: np.ndarray, source: str, *
         The file's name, for messages.
     allow_empty
         Whether an empty cell is allowed (it becomes NaN).
+    lenient
+        Optional mask of rows (measurements marked bad) where a cell that is not a
+        finite number becomes NaN instead of an error.
 
     Raises
     ------
@@ -61,9 +82,14 @@ def numeric_column(df: pd.DataFrame, col: str, lines: np.ndarray, source: str, *
         again = pd.to_numeric(txt.where(~empty, None), errors="coerce").to_numpy(dtype=float, na_value=np.nan)
         vals[odd] = again
         bad = ~empty & ~np.isfinite(again)
+        if lenient is not None:
+            spared = bad & lenient[odd]
+            vals[odd[spared]] = np.nan
+            bad &= ~spared
         if bad.any():
             i = int(np.flatnonzero(bad)[0])
-            raise fail(source, int(lines[odd[i]]), f"column '{col}': {shown_cell(txt.iloc[i])} is not a finite number")
+            hint = " (write decimals with a point, not a comma)" if _DECIMAL_COMMA.fullmatch(txt.iloc[i]) else ""
+            raise fail(source, int(lines[odd[i]]), f"column '{col}': {shown_cell(txt.iloc[i])} is not a finite number{hint}")
         if not allow_empty and empty.any():
             i = int(np.flatnonzero(empty)[0])
             raise fail(source, int(lines[odd[i]]), f"column '{col}' is empty")
@@ -74,6 +100,27 @@ def _stripped(col: pd.Series) -> np.ndarray:
     """Text column with surrounding blanks removed (stripping each distinct value once)."""
     codes, uniq = pd.factorize(col.astype(str))
     return np.asarray([u.strip() for u in uniq], dtype=object)[codes]
+
+
+def flag_mask(df: pd.DataFrame) -> np.ndarray | None:
+    """Rows whose ``flag`` cell reads as a number other than 0 (a loose look, before the flags are checked), or None."""
+    if "flag" not in df.columns:
+        return None
+    fv = pd.to_numeric(df["flag"], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+    return np.isfinite(fv) & (fv != 0)
+
+
+def _sentinel_rows(mag: np.ndarray, err: np.ndarray, good: np.ndarray) -> np.ndarray:
+    """Good rows whose magnitude or error is a placeholder (:data:`SENTINELS`)."""
+    return good & (np.isin(mag, SENTINELS) | np.isin(err, SENTINELS))
+
+
+def sentinel_warning(source: str, lines: np.ndarray, values: list[str], n: int) -> str:
+    """The warning for ``n`` good rows of ``source`` that held a placeholder (first lines and values given)."""
+    shown = ", ".join(f"line {int(k)}: {v}" for k, v in zip(lines[:5], values[:5]))
+    more = f" and {n - 5} more" if n > 5 else ""
+    return (f"{source}: {n} measurement(s) hold a placeholder for 'no measurement' ({shown}{more}); "
+            f"stored flagged (flag {SENTINEL_FLAG}) and not used")
 
 
 def _check_range(vals: np.ndarray, lines: np.ndarray, source: str, col: str, lo: float, hi: float, hint: str = "") -> None:
@@ -173,21 +220,34 @@ def validate_rows(df: pd.DataFrame, source: str, ids: list[str], id_set: set[str
     jd = numeric_column(df, "jd", lines, source, allow_empty=False)
     _check_range(jd, lines, source, "jd", JD_MIN, JD_MAX, _jd_hint(jd))
     flag = _flag_column(df, lines, source)
-    # A measurement the upstream photometry marked bad may lack a magnitude.
-    mag = numeric_column(df, "mag", lines, source, allow_empty=True)
-    err = numeric_column(df, "mag_err", lines, source, allow_empty=True)
+    # A measurement the upstream photometry marked bad may lack a magnitude, or hold anything there.
+    marked = flag != 0
+    mag = numeric_column(df, "mag", lines, source, allow_empty=True, lenient=marked)
+    err = numeric_column(df, "mag_err", lines, source, allow_empty=True, lenient=marked)
+    placeholder = _sentinel_rows(mag, err, ~marked)
+    placeholders = None
+    if placeholder.any():
+        flag[placeholder] = SENTINEL_FLAG
+        where = np.flatnonzero(placeholder)
+        vals = [f"mag {mag[i]:g}" if np.isin(mag[i], SENTINELS) else f"mag_err {err[i]:g}" for i in where[:5]]
+        placeholders = (lines[where], vals)
+    flagged = flag != 0
+    with np.errstate(invalid="ignore"):
+        mag[flagged & (np.abs(mag) > MAG_ABS_MAX)] = np.nan
+        err[flagged & ((err < 0) | (err > MAG_ERR_MAX))] = np.nan
     for col, vals in (("mag", mag), ("mag_err", err)):
         hole = ~np.isfinite(vals) & (flag == 0)
         if hole.any():
             i = int(np.flatnonzero(hole)[0])
             raise fail(source, int(lines[i]), f"column '{col}' is empty for a good measurement (set flag to non-zero if it is bad)")
-    _check_range(mag, lines, source, "mag", -MAG_ABS_MAX, MAG_ABS_MAX)
+    bad_hint = " (if it marks a measurement as bad, set its flag to non-zero)"
+    _check_range(mag, lines, source, "mag", -MAG_ABS_MAX, MAG_ABS_MAX, bad_hint)
     with np.errstate(invalid="ignore"):
         nonpos = np.isfinite(err) & (err <= 0) & (flag == 0)
     if nonpos.any():
         i = int(np.flatnonzero(nonpos)[0])
         raise fail(source, int(lines[i]), f"column 'mag_err': {err[i]:g} must be positive")
-    _check_range(err, lines, source, "mag_err", 0.0, MAG_ERR_MAX)
+    _check_range(err, lines, source, "mag_err", 0.0, MAG_ERR_MAX, bad_hint)
     airmass = numeric_column(df, "airmass", lines, source, allow_empty=True) if "airmass" in df.columns else np.full(n, np.nan)
     _check_range(airmass, lines, source, "airmass", 0.99, AIRMASS_MAX)
     exptime = numeric_column(df, "exptime", lines, source, allow_empty=True) if "exptime" in df.columns else np.full(n, np.nan)
@@ -198,7 +258,7 @@ def validate_rows(df: pd.DataFrame, source: str, ids: list[str], id_set: set[str
         raise fail(source, int(lines[i]), f"column 'exptime': {exptime[i]:g} s is outside the plausible range (0, {EXPTIME_MAX_S:g}] s")
     frame = _frame_column(df, jd, lines, source)
 
-    return pd.DataFrame(
+    out = pd.DataFrame(
         {
             "line": lines,
             "frame": frame,
@@ -212,6 +272,9 @@ def validate_rows(df: pd.DataFrame, source: str, ids: list[str], id_set: set[str
             "flag": flag,
         }
     )
+    if placeholders is not None:  # (lines of every such row, the first values) for the file's warning
+        out.attrs["placeholders"] = placeholders
+    return out
 
 
 def check_exposures(out: pd.DataFrame, source: str) -> None:

@@ -12,7 +12,7 @@ import pandas as pd
 
 from .header import PER_EXPOSURE
 from .messages import fail
-from .validate import numeric_column
+from .validate import flag_mask, numeric_column
 
 
 def wide_to_long(df: pd.DataFrame, lines: np.ndarray, source: str) -> pd.DataFrame:
@@ -36,15 +36,17 @@ def wide_to_long(df: pd.DataFrame, lines: np.ndarray, source: str) -> pd.DataFra
     Raises
     ------
     InputError
-        For a star cell that is not a number, or a magnitude without its error (or the
-        reverse) where the table has no ``flag`` column.
+        For a star cell that is not a number (but in an exposure marked bad, whose
+        cells are not used), or a magnitude without its error (or the reverse) where
+        the table has no ``flag`` column.
     """
     stars = [c for c in df.columns if c not in PER_EXPOSURE and not c.endswith("_err")]
     base = df[[c for c in PER_EXPOSURE if c in df.columns]]
     parts = []
+    marked = flag_mask(df)  # the flags themselves are checked with the long-form rows
     for s in stars:
         for c in (s, f"{s}_err"):  # here, so that a message names the file's column, not 'mag'
-            numeric_column(df, c, lines, source, allow_empty=True)
+            numeric_column(df, c, lines, source, allow_empty=True, lenient=marked)
         mag = df[s].astype(str).str.strip()
         err = df[f"{s}_err"].astype(str).str.strip()
         lonely = ((mag == "") != (err == "")).to_numpy()

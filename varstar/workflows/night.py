@@ -117,6 +117,8 @@ def ingest(
         for p, t, _ in parsed:
             t["frame"] = p.name + ":" + t["frame"].astype(str)
     table = pd.concat([t for _, t, _ in parsed], ignore_index=True)
+    # what the reader noted about each file (placeholders flagged, delimiter, ...): concat drops it
+    table.attrs["warnings"] = [w for _, t, _ in parsed for w in t.attrs.get("warnings", [])]
     nights = split_nights(target, table)
     stored = sorted(set(nights) & set(arch.nights()["night"]))
     if stored and not replace:
