@@ -367,7 +367,8 @@ def test_two_outputs_to_stdout_or_stdout_with_json_are_refused_before_any_work(f
     assert out == "" and err.startswith("error: -o and --phased both name standard output")
     assert main([*base, "--json", "-o", "-"]) == 2
     out, err = capsys.readouterr()
-    assert out == "" and "--json" in err and err.count("\n") == 1
+    assert "--json" in err and err.count("\n") == 1
+    assert json.loads(out) == {"error": err[len("error: "):-1], "exit_code": 2}  # with --json the error is JSON too
     same = tmp_path / "same.png"
     assert main([*base, "-o", str(same), "--phased", str(tmp_path / "." / "same.png")]) == 2
     out, err = capsys.readouterr()
