@@ -169,18 +169,25 @@ def cmd_export(args: argparse.Namespace) -> int:
 def cmd_coefficients(args: argparse.Namespace) -> int:
     from .plots import coefficient_figure, save
     from .setups import save_setup
-    from .standards import fit_standard_field
+    from .standards import fit_standard_field, k2_assumption_notes
 
     if args.setup and not args.save:
         from .errors import InputError
 
         raise InputError("--setup names the setup to write with --save FILE; give --save too")
-    fit = fit_standard_field(args.files, args.standards, columns=_parse_columns(args.column), k2_bv=args.k2_bv)
-    coeffs = fit.coefficients(f"{Path(args.standards).name} fit", k2_bv=args.k2_bv, k2_bv_err=args.k2_bv_err)
+    given = args.k2_bv is not None
+    k2_bv = args.k2_bv if given else 0.0
+    columns = _parse_columns(args.column)
+    fit = fit_standard_field(args.files, args.standards, columns=columns, k2_bv=k2_bv)
+    coeffs = fit.coefficients(f"{Path(args.standards).name} fit", k2_bv=k2_bv, k2_bv_err=args.k2_bv_err)
     payload = fit.to_dict()
-    payload["k2_bv"] = args.k2_bv
+    payload["k2_bv"] = k2_bv
     payload["k2_bv_err"] = args.k2_bv_err
-    text = fmt.format_coefficients(payload, args.k2_bv)
+    payload["k2_bv_given"] = given
+    if not given:
+        payload["warnings"] = [*payload.get("warnings", []),
+                               *k2_assumption_notes(args.files, args.standards, fit, columns=columns)]
+    text = fmt.format_coefficients(payload, k2_bv)
     if args.output:
         save(coefficient_figure(fit), args.output)
         payload["plot"] = str(args.output)
@@ -458,7 +465,9 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("files", type=Path, nargs="+", metavar="STANDARDS.csv", help="measurement tables of the standard field (B and V)")
     sp.add_argument("standards", type=Path, metavar="STANDARDS.toml", help="the standard stars with their catalogue B and V")
     sp.add_argument("-o", "--output", type=Path, help="plot of the two fits (png, pdf, svg; default: no plot)")
-    sp.add_argument("--k2-bv", type=float, default=0.0, metavar="K", help="second-order extinction of b - v to remove (mag per airmass per mag; default 0)")
+    sp.add_argument("--k2-bv", type=float, default=None, metavar="K",
+                    help="second-order extinction of b - v to remove (mag per airmass per mag; default: not given, "
+                         "0 assumed, and the output says what that assumption moves)")
     sp.add_argument("--k2-bv-err", type=float, default=0.0, metavar="K", help="its 1-sigma (default 0)")
     sp.add_argument("--save", type=Path, metavar="SETUPS.toml", help="add or replace the result as a setup in this setups file (default: not saved)")
     sp.add_argument("--setup", metavar="NAME", help="setup name to save under (default 'default')")

@@ -105,3 +105,33 @@ def fit_standard_field(
     return fit_coefficients(
         field.star_ids, cat["V"], err["V"], cat["B"], err["B"], v, v_err, b, b_err, min_colour_range=min_colour_range,
     )
+
+
+#: The second-order extinction of b - v an observer takes without a measurement of their own
+#: (mag per airmass per mag of colour; common practice); used only to show what assuming 0 costs.
+K2_BV_TYPICAL = -0.03
+
+
+def k2_assumption_notes(
+    files: Sequence[str | Path],
+    standards: str | Path,
+    fit: CoefficientFit,
+    *,
+    columns: Mapping[str, str] | None = None,
+) -> list[str]:
+    """What assuming k2_bv = 0 does to a fit: the coefficients with :data:`K2_BV_TYPICAL` instead.
+
+    Returns one note per coefficient that moves by more than its error (empty
+    when neither does), so the observer knows whether k2_bv must be measured.
+    """
+    other = fit_standard_field(files, standards, columns=columns, k2_bv=K2_BV_TYPICAL)
+    notes = []
+    for name in ("epsilon_v", "mu_bv"):
+        shift = getattr(other, name) - getattr(fit, name)
+        err = getattr(fit, f"{name}_err")
+        if err > 0 and abs(shift) > err:
+            notes.append(
+                f"k2_bv not given, 0 assumed: with the usual {K2_BV_TYPICAL:+.3f} instead, {name} would move by "
+                f"{shift:+.4f} ({abs(shift) / err:.1f} times its error); measure k2_bv and give --k2-bv"
+            )
+    return notes

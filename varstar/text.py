@@ -41,6 +41,20 @@ def _pm(v: float | None, err: float | None, decimals: int) -> str:
     return f"{_fmt(v, f'.{decimals}f')} ± {_fmt(err, f'.{decimals}f')}"
 
 
+#: A fitted term is shown when it differs from zero by more than this many standard errors (about 1 in
+#: 370 by chance for a normal error: common practice for "significant").
+SIGNIFICANT_SIGMA = 3.0
+
+
+def colour_extinction_line(ensemble: dict[str, Any]) -> str:
+    """The ensemble's fitted colour-extinction term in words, or "" when it is not significant or not fitted."""
+    k, k_err = ensemble.get("colour_extinction"), ensemble.get("colour_extinction_err")
+    if k is None or k_err is None or not k_err > 0 or abs(k) <= SIGNIFICANT_SIGMA * k_err:
+        return ""
+    return (f"colour extinction {k:+.4f} ± {k_err:.4f} mag per airmass per mag of B - V (fitted tonight; "
+            f"{abs(k) / k_err:.1f} standard errors from zero)")
+
+
 def format_night_report(rep: dict[str, Any]) -> str:
     """A short, readable night summary for the terminal."""
     lines = [
@@ -73,6 +87,9 @@ def format_night_report(rep: dict[str, Any]) -> str:
                 f"      target: {_fmt(t['mag_min'])} .. {_fmt(t['mag_max'])} mag, median error {_fmt(t['median_mag_err'])} ({plural(t['n'], 'point')}); "
                 f"calibration ±{_fmt(b['calibration_err'])}"
             )
+        line = colour_extinction_line(b["ensemble"])
+        if line:
+            lines.append(f"      {line}")
         for w in b["ensemble"].get("warnings", []):
             lines.append(f"      note: {w}")
     tr = rep.get("transformation")
@@ -121,7 +138,8 @@ def format_coefficients(fit: dict[str, Any], k2_bv: float) -> str:
         f"Transformation coefficients from {plural(fit['n_stars'], 'standard star')} (B - V span {fit['colour_range']:.2f} mag):",
         f"  epsilon_v = {fit['epsilon_v']:+.4f} ± {fit['epsilon_v_err']:.4f}   (V - v = eps (B - V) + const; rms {fit['rms_v']:.4f} mag)",
         f"  mu_bv     = {fit['mu_bv']:.4f} ± {fit['mu_bv_err']:.4f}    ((B - V) = mu (b - v) + const; rms {fit['rms_bv']:.4f} mag)",
-        f"  k2_bv     = {k2_bv:+.4f} (given, removed from b before the fit)",
+        (f"  k2_bv     = {k2_bv:+.4f} (given, removed from b before the fit)" if fit.get("k2_bv_given", True)
+         else "  k2_bv     not given: 0 assumed (give --k2-bv to remove second-order extinction before the fit)"),
     ]
     for sid, why in fit.get("rejected", []):
         lines.append(f"  rejected {sid}: {why}")

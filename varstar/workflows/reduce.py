@@ -30,6 +30,10 @@ COMPARISON_COLUMNS = ("band", "star", "status", "reason", "offset", "excess", "c
 #: Columns of a night's ensemble table (one row per band).
 ENSEMBLE_COLUMNS = ("band", "calibration_err", "colour_extinction", "colour_extinction_err", "colour_reference", "n_kept")
 
+#: The catalogue error assumed for a comparison star whose magnitude comes without one: what
+#: catalogues of field stars typically reach (common practice); said in the night's report.
+CATALOGUE_ERR_ASSUMED = 0.01
+
 # Difference between a table's own airmass and ours that deserves a warning
 # (wrong coordinates, site or time zone upstream): common practice.
 _AIRMASS_WARN = 0.05
@@ -241,7 +245,7 @@ def _solve_band(
             n_exposures=in_band.size,
             is_comparison=stars.is_comparison[stars.measured],
             catalog_mag=np.array([s.catalog.get(band, np.nan) for s in cat]),
-            catalog_err=np.array([s.catalog_err.get(band, 0.0) for s in cat]),
+            catalog_err=np.array([s.catalog_err.get(band, CATALOGUE_ERR_ASSUMED) for s in cat]),
             time=exp["jd"].to_numpy()[in_band],
             airmass=airmass[in_band],
             good=(table["flag"].to_numpy()[rows] == 0) & np.isfinite(table["mag"].to_numpy()[rows]),
@@ -398,6 +402,14 @@ def reduce_night(
             "n_kept": int(sum(st == "kept" for st in sol.star_status)),
         })
         comp_rows += _comparison_rows(band, sol, mean_err, stars, settings)
+        no_err = [stars.ids[i] for i in np.flatnonzero(stars.is_comparison)
+                  if stars.local[i] >= 0 and band in target.stars[i].catalog and band not in target.stars[i].catalog_err]
+        if no_err:
+            warnings.append(
+                f"{', '.join(no_err)}: no catalogue error in {band}; {CATALOGUE_ERR_ASSUMED:.3f} mag assumed for "
+                f"{'each' if len(no_err) > 1 else 'it'} in the calibration error (add {band}_err = ... beside "
+                f"{band} = ... in the target file)"
+            )
         summary = sol.to_dict()
         for entry in summary["stars"]:  # the index of each star in the target file, as before
             entry["index"] = int(stars.measured[entry["index"]])

@@ -19,7 +19,7 @@ import pandas as pd
 from ..errors import ArchiveError, InputError
 from ..results import Result
 from ..target import Target
-from .reduce import STD_COLUMNS, NightReduction, sources_of
+from .reduce import CATALOGUE_ERR_ASSUMED, STD_COLUMNS, NightReduction, sources_of
 
 if TYPE_CHECKING:  # pragma: no cover
     from ..archive import ArchiveStore
@@ -47,7 +47,10 @@ def night_reference_from_tables(
         return sub[col].reindex(ids).to_numpy(dtype=float)
 
     def cat(band: str, err: bool = False) -> np.ndarray:
-        return np.array([(s.catalog_err if err else s.catalog).get(band, np.nan) for s in comps], dtype=float)
+        if err:  # a magnitude without its error: the same assumed error as the ensemble's (see reduce_night)
+            return np.array([s.catalog_err.get(band, CATALOGUE_ERR_ASSUMED if band in s.catalog else np.nan)
+                             for s in comps], dtype=float)
+        return np.array([s.catalog.get(band, np.nan) for s in comps], dtype=float)
 
     ens = ensembles.set_index("band")
     return night_reference(
