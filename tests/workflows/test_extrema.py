@@ -178,3 +178,17 @@ def test_timings_from_python(archive):
     assert {t["band"] for t in d["timings"]} == {"V"} and d["n_new"] == 0
     assert arch.timings().empty
     assert math.isfinite(d["fit"]["period_err"])
+
+
+def test_the_python_api_shows_its_options():
+    import inspect
+
+    from varstar.workflows.archive import Archive
+
+    # options in the signature, not hidden behind **options (so help() and editors show them)
+    timed = inspect.signature(Archive.time_extrema).parameters
+    assert {"band", "kind", "night", "note", "store", "update", "seed", "timeout_s"} <= set(timed)
+    assert not any(p.kind is p.VAR_KEYWORD for p in timed.values())
+    pred = inspect.signature(Archive.predict).parameters
+    assert {"start", "end", "site_visible", "min_altitude_deg", "max_sun_altitude_deg", "secondary"} <= set(pred)
+    assert not any(p.kind is p.VAR_KEYWORD for p in pred.values())
