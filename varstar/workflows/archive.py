@@ -13,10 +13,10 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from ..archive import store
+from . import extrema
 
 if TYPE_CHECKING:  # pragma: no cover
     from ..target import Target
-    from .extrema import PredictResult, TimingsResult
     from .periods import StoredPeriod
 
 
@@ -37,48 +37,11 @@ class Archive(store.ArchiveStore):
 
         return period_of_archive(self, band=band, star=star, store=store, **options)
 
-    def time_extrema(
-        self,
-        *,
-        band: str | None = None,
-        kind: str | None = None,
-        night: str | None = None,
-        note: str = "",
-        store: bool = True,
-        update: bool = False,
-        seed: int = 0,
-        timeout_s: float = 30.0,
-    ) -> TimingsResult:
-        """Time the extrema the nights cover, store the new timings (``store``), fit the ephemeris.
-
-        See :func:`varstar.workflows.extrema.timings_of_archive`: ``band`` and
-        ``night`` narrow what is timed, ``kind`` chooses minima or maxima (default:
-        the ephemeris'), ``update`` makes the fitted ephemeris the archive's.
-        """
-        from .extrema import timings_of_archive
-
-        return timings_of_archive(self, band=band, kind=kind, night=night, note=note, store=store, update=update,
-                                  seed=seed, timeout_s=timeout_s)
-
-    def predict(
-        self,
-        start: str,
-        end: str,
-        *,
-        site_visible: bool = False,
-        min_altitude_deg: float = 30.0,
-        max_sun_altitude_deg: float = -12.0,
-        secondary: bool | None = None,
-    ) -> PredictResult:
-        """Coming extrema between two UTC dates (see :func:`varstar.workflows.extrema.predict_of_archive`).
-
-        With ``site_visible`` only those when the target is at least
-        ``min_altitude_deg`` high and the Sun below ``max_sun_altitude_deg``.
-        """
-        from .extrema import predict_of_archive
-
-        return predict_of_archive(self, start, end, site_visible=site_visible, min_altitude_deg=min_altitude_deg,
-                                  max_sun_altitude_deg=max_sun_altitude_deg, secondary=secondary)
+    #: Time the extrema the nights cover, store the new timings, fit the ephemeris:
+    #: :func:`varstar.workflows.extrema.timings_of_archive` as a method (its options are its signature's).
+    time_extrema = extrema.timings_of_archive
+    #: Coming extrema between two UTC dates: :func:`varstar.workflows.extrema.predict_of_archive` as a method.
+    predict = extrema.predict_of_archive
 
 
 def open_archive(path: str | Path) -> Archive:
