@@ -85,6 +85,8 @@ def lightcurve_figure(lc: pd.DataFrame, *, title: str = "", show_flagged: bool =
     if len(bands) == 0:
         axes[0].text(0.5, 0.5, "no observations", ha="center", va="center", transform=axes[0].transAxes)
     axes[-1].set_xlabel(f"BJD_TDB − {t0:.0f} (d)")
+    if len(nights) == 1:
+        _ut_axis(axes[0], lc, t0)
     if nights:
         # every panel's entries: a night seen in one band only, or flagged points in one band only, count too
         seen = {}
@@ -96,6 +98,32 @@ def lightcurve_figure(lc: pd.DataFrame, *, title: str = "", show_flagged: bool =
     if title:
         fig.suptitle(title)
     return literal_text(fig)
+
+
+def _ut_axis(ax, lc: pd.DataFrame, t0: float) -> None:
+    """A secondary axis on top of ``ax`` (x: BJD_TDB − ``t0`` in days) reading UT in hours, from ``jd_utc``.
+
+    Nothing is added when the light curve has no finite ``jd_utc``.  Over one
+    night BJD_TDB − JD(UTC) changes by a few seconds at most (the light time
+    drifts slowly, the leap-second count is constant), far below an hour tick, so one
+    offset maps the axes.  Hours count from the UT midnight before the first
+    point and are labelled modulo 24.
+    """
+    from matplotlib.ticker import FuncFormatter
+
+    if "jd_utc" not in lc:
+        return
+    jd = pd.to_numeric(lc["jd_utc"], errors="coerce").to_numpy(dtype=float)
+    bjd = lc["bjd_tdb"].to_numpy(dtype=float)
+    ok = np.isfinite(jd) & np.isfinite(bjd)
+    if not ok.any():
+        return
+    midnight = float(np.floor(jd[ok].min() - 0.5) + 0.5)  # JD of 0 h UT (a Julian day starts at noon)
+    shift = (t0 - midnight) + float(np.median(jd[ok] - bjd[ok]))  # x (d) + shift = days since that midnight
+    sec = ax.secondary_xaxis("top", functions=(lambda x: (np.asarray(x) + shift) * 24.0,
+                                               lambda h: np.asarray(h) / 24.0 - shift))
+    sec.xaxis.set_major_formatter(FuncFormatter(lambda h, _pos: f"{round(h, 6) % 24:g}"))
+    sec.set_xlabel("UT (hours)")
 
 
 def _own_texts(fig: "Figure") -> "Iterator[Text]":
@@ -338,6 +366,44 @@ def colour_magnitude_figure(field: pd.DataFrame, track: pd.DataFrame, *, title: 
     return literal_text(fig)
 
 
+#: Peak notes closer than this fraction of the frequency axis are stacked, one level each
+#: (a two-line note is about 8 % of a 10-inch figure's axis wide).
+NOTE_CLOSE = 0.10
+#: Height of one level of peak notes (points): two lines of 7-point text and a gap.
+NOTE_STEP_PT = 20.0
+
+
+def _span(x: np.ndarray) -> float:
+    x = np.asarray(x, dtype=float)
+    x = x[np.isfinite(x)]
+    return float(np.ptp(x)) if x.size else 0.0
+
+
+def _note_places(xs: Sequence[float], ys: Sequence[float], width: float) -> list[tuple[float, int]]:
+    """Where each note of a peak at (``xs``, ``ys``) stands: a height (data) and a level above it.
+
+    Peaks closer than ``NOTE_CLOSE * width`` form a group (chained); a group's
+    notes share the height of its highest peak, and each takes the lowest level
+    that no earlier, close note holds, so no two close notes print over each other.
+    """
+    near = NOTE_CLOSE * width
+    order = sorted(range(len(xs)), key=lambda k: xs[k])
+    group = {}
+    for pos, k in enumerate(order):
+        group[k] = group[order[pos - 1]] if pos and xs[k] - xs[order[pos - 1]] < near else k
+    top = {}
+    for k, g in group.items():
+        top[g] = max(top.get(g, -np.inf), ys[k])
+    places: list[tuple[float, int]] = []
+    for k, x in enumerate(xs):
+        taken = {places[j][1] for j in range(k) if abs(xs[j] - x) < near}
+        level = 0
+        while level in taken:
+            level += 1
+        places.append((top[group[k]], level))
+    return places
+
+
 def periodogram_figure(
     freq: np.ndarray,
     power: np.ndarray,
@@ -356,6 +422,8 @@ def periodogram_figure(
     strongest peaks and how they relate to the best one); ``theta`` (same grid)
     adds a panel with the phase-dispersion statistic of the second method.
     """
+    from matplotlib.transforms import offset_copy
+
     n = 2 if theta is not None else 1
     fig = _figure(n, width=10.0, height_per=3.4)
     axes = fig.subplots(n, 1, sharex=True, squeeze=False)[:, 0]
@@ -364,13 +432,18 @@ def periodogram_figure(
     styles = ("--", ":", "-.")
     for k, (fap, level) in enumerate(sorted((fap_levels or {}).items())):
         ax.axhline(level, ls=styles[k % len(styles)], color="0.35", lw=0.9, label=f"false-alarm probability {fap:g}")
-    for pk in peaks or []:
+    places = _note_places([pk["frequency"] for pk in peaks or []], [pk["power"] for pk in peaks or []], _span(freq))
+    for pk, (height, level) in zip(peaks or [], places):
         # the best peak may carry its refined frequency, off the grid's best_frequency: its relation names it
         best = pk.get("relation") == "best" or abs(pk["frequency"] - best_frequency) < 1e-12
         ax.plot(pk["frequency"], pk["power"], "v" if best else "^", color=PALETTE[5] if best else PALETTE[1], ms=8,
                 label="best peak" if best else "other strong peaks")
+        # close peaks' notes stand at their group's top, a level apart, so none overprints; each note still
+        # starts at its own peak's frequency
         ax.annotate(("best" if best else pk.get("relation", "")) + f"\nP = {1 / pk['frequency']:.5f} d",
-                    (pk["frequency"], pk["power"]), textcoords="offset points", xytext=(4, 6), fontsize=7, color="0.25")
+                    (pk["frequency"], pk["power"]), xytext=(pk["frequency"], height),
+                    textcoords=offset_copy(ax.transData, fig=fig, x=4, y=6 + NOTE_STEP_PT * level, units="points"),
+                    fontsize=7, color="0.25")
     ax.set_ylabel(ylabel)
     ax.set_ylim(bottom=0)
     ax.grid(alpha=0.3)
@@ -382,7 +455,7 @@ def periodogram_figure(
     if theta is not None:
         axes[1].plot(freq, theta, "-", color=PALETTE[2], lw=0.7)
         axes[1].axvline(best_frequency, color=PALETTE[5], lw=0.8, ls="--")
-        axes[1].set_ylabel("PDM θ (Stellingwerf 1978)")
+        axes[1].set_ylabel("PDM θ, Stellingwerf 1978 (lower is better)")
         axes[1].grid(alpha=0.3)
     axes[-1].set_xlabel("frequency (cycles per day)")
     if title:
@@ -456,24 +529,53 @@ def oc_figure(
     fit: dict | None = None,
     reference: str = "",
     title: str = "",
+    bands: Sequence[str] | None = None,
+    disagree: Sequence[bool] | None = None,
 ) -> "Figure":
     """O − C diagram: timings against cycle number with error bars, by type, with the fitted ephemerides.
 
     ``o_minus_c_d`` and ``err_d`` are in days (drawn in minutes) against the
     reference ephemeris; ``fit`` is the dict of an ephemeris fit (its linear and
     quadratic solutions are drawn as curves relative to the same reference).
+    ``bands`` (one per timing) colours the timings by band, the marker still
+    telling the type; ``disagree`` (one per timing) rings the timings whose two
+    estimates disagree.
     """
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
     fig = _figure(1, width=9.0, height_per=4.2)
     ax = fig.subplots()
     cycle = np.asarray(cycle, dtype=float)
     oc_min = np.asarray(o_minus_c_d, dtype=float) * 1440.0
     err_min = np.asarray(err_d, dtype=float) * 1440.0
     types = np.asarray(types, dtype=object)
+    band_of = None if bands is None else np.asarray([str(b) for b in bands], dtype=object)
+    band_colour = {} if band_of is None else {
+        b: PALETTE[k % len(PALETTE)] for k, b in enumerate(sorted(set(band_of.tolist())))}
+    type_handles = []
     for typ, (marker, colour) in TIMING_STYLE.items():
         m = types == typ
-        if m.any():
+        if not m.any():
+            continue
+        hollow = typ == "secondary"
+        label = f"{typ} ({int(m.sum())})"
+        if band_of is None:
             ax.errorbar(cycle[m], oc_min[m], yerr=err_min[m], fmt=marker, color=colour, ms=6, capsize=2,
-                        mfc=colour if typ != "secondary" else "white", label=f"{typ} ({int(m.sum())})")
+                        mfc="white" if hollow else colour, label=label)
+            continue
+        for band, bcolour in band_colour.items():
+            mb = m & (band_of == band)
+            if mb.any():
+                ax.errorbar(cycle[mb], oc_min[mb], yerr=err_min[mb], fmt=marker, color=bcolour, ms=6, capsize=2,
+                            mfc="white" if hollow else bcolour, label=f"{typ}, {band}")
+        type_handles.append(Line2D([], [], ls="none", marker=marker, ms=6, color="0.3",
+                                   mfc="white" if hollow else "0.3", label=label))
+    if disagree is not None:
+        bad = np.asarray([bool(v) for v in disagree], dtype=bool)
+        if bad.any():
+            ax.plot(cycle[bad], oc_min[bad], ls="none", marker="o", ms=13, mfc="none", mec="black", mew=1.0,
+                    label="estimates disagree")
     if fit is not None and cycle.size:
         e = np.linspace(cycle.min(), cycle.max(), 200)
         ref = fit.get("reference")
@@ -490,7 +592,14 @@ def oc_figure(
     if reference:
         ax.set_title(f"against {reference}", fontsize="small", loc="left")
     ax.grid(alpha=0.3)
-    ax.legend(fontsize="small", loc="best")
+    if band_of is None:
+        ax.legend(fontsize="small", loc="best")
+    else:
+        # the marker tells the type, the colour the band: one legend entry for each, then the lines
+        lines = [ln for ln in ax.lines if not ln.get_label().startswith("_")]
+        band_handles = [Patch(color=c, label=b) for b, c in band_colour.items()]
+        handles = type_handles + band_handles + lines
+        ax.legend(handles, [h.get_label() for h in handles], fontsize="small", loc="best")
     if title:
         fig.suptitle(title)
     return literal_text(fig)
@@ -525,4 +634,5 @@ def timings_figure(timed: dict, title: str) -> "Figure":
     fit = dict(timed["fit"], reference=eph) if timed["fit"] else None
     return oc_figure([t["cycle"] for t in rows], [t["o_minus_c"] for t in rows], [t["err"] for t in rows],
                      [t["type"] for t in rows], fit=fit,
-                     reference=f"T0 = {eph['epoch']:.5f}, P = {eph['period']:.7f} d (BJD_TDB)", title=title)
+                     reference=f"T0 = {eph['epoch']:.5f}, P = {eph['period']:.7f} d (BJD_TDB)", title=title,
+                     bands=[t.get("band", "") for t in rows], disagree=[bool(t.get("disagree")) for t in rows])
