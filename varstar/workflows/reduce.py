@@ -187,9 +187,7 @@ def _times(target: Target, exp: pd.DataFrame) -> tuple[Any, np.ndarray, list[str
             f"the table's airmass differs from the one computed for the site and target by "
             f"{np.median(np.abs(given[both] - times.airmass[both])):.2f} (median): check coordinates, site and that jd is UTC"
         )
-    below = ~np.isfinite(given) & ~np.isfinite(times.airmass)
-    if below.any():
-        warnings.append(f"the target is below the horizon at {int(below.sum())} exposure time(s): check coordinates, site and that jd is UTC")
+    # the target below the horizon is not a warning but a refusal: see unusual_night
     return times, np.where(np.isfinite(given), given, times.airmass), warnings
 
 
