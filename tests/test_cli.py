@@ -340,13 +340,13 @@ def test_summary_text_and_json(capsys, series, full_archive):
 
     text = ok(capsys, "summary", path)
     assert f"{series.field}  (RA " in text and f"star {series.target_id})" in text
-    assert f"schema {SCHEMA_VERSION}, 2 night(s)" in text
+    assert f"schema {SCHEMA_VERSION}, 2 nights" in text
     for n in obj["nights"]:
         assert f"  {n['label']}: {n['n_exposures']} exposures, {n['n_flagged']} flagged" in text
     for band, b in obj["bands"].items():
         assert b["n_standard"] == 0  # no coefficients in this archive: nothing on the standard system
         assert (
-            f"  {band}: {b['n_points']} points ({b['n_standard']} on the standard system; {b['n_flagged']} flagged left out), "
+            f"  {band}: {b['n_points']} points ({b['n_standard']} on the standard system; {b['n_flagged']} left out: their exposure or measurement is flagged), "
             f"{b['mag_min']:.3f} .. {b['mag_max']:.3f} mag" in text
         )
     assert sha256(path) == before  # reading never changes the archive
@@ -356,7 +356,7 @@ def test_summary_of_an_empty_archive(capsys, series, tmp_path):
     varstar.create_archive(tmp_path / "e.h5", varstar.read_target(series.toml))
     obj = one_json(ok(capsys, "summary", tmp_path / "e.h5", "--json"))
     assert obj["n_nights"] == 0 and obj["nights"] == [] and obj["bands"] == {}
-    assert "0 night(s)" in ok(capsys, "summary", tmp_path / "e.h5")
+    assert "0 nights" in ok(capsys, "summary", tmp_path / "e.h5")
 
 
 def test_report_text_and_json(capsys, series, full_archive):
@@ -538,6 +538,17 @@ def _case(name: str, series, arch: Path, d: Path):
         return ["plot", arch, "-o", d / "lc.xyz"], OutputError, [str(d / "lc.xyz"), "xyz"]
     if name == "report of unknown night":
         return ["report", arch, "2026-01-01"], ArchiveError, [str(arch), "2026-01-01", series.cloudy]
+    # "no such night" is the archive lacking what was asked for: the same code in every command
+    if name == "remove-night of unknown night":
+        return ["remove-night", arch, "2026-01-01", "--reason", "x"], ArchiveError, [str(arch), "2026-01-01"]
+    if name == "colour of unknown night":
+        return ["colour", arch, "--night", "2026-01-01"], ArchiveError, [str(arch), "2026-01-01"]
+    if name == "timings of unknown night":
+        return ["timings", arch, "--night", "2026-01-01"], ArchiveError, [str(arch), "2026-01-01"]
+    if name == "unknown description version":
+        return ["edit-target", arch, "--show", "9"], ArchiveError, [str(arch), "no description 9"]
+    if name == "edit-target without a change":
+        return ["edit-target", arch], InputError, ["--set"]
     if name == "summary of a file that is not an archive":
         return ["summary", series.nights[series.clear]], ArchiveError, [str(series.nights[series.clear]), "HDF5"]
     raise AssertionError(name)
@@ -571,6 +582,11 @@ MISTAKES = [
     "plot of unknown night",
     "plot to unknown image format",
     "report of unknown night",
+    "remove-night of unknown night",
+    "colour of unknown night",
+    "timings of unknown night",
+    "unknown description version",
+    "edit-target without a change",
     "summary of a file that is not an archive",
 ]
 

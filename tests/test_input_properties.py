@@ -565,7 +565,8 @@ def long_fault(draw, t: Table, kind: str, col: str | None = None) -> tuple[Table
         row[t.col("star")] = draw(st.sampled_from(["X9", "v1", "C1 C2", "K", "=V1", "C\u0001"]))
         return t, Fault(kind, frozenset([i]), ("unknown star",))
     if kind == "band without catalogue":
-        row[t.col("band")] = draw(st.sampled_from(["R", "b", "V'", "Ic"]))
+        # not "b": a band differing only in case from the description's B is that band (README)
+        row[t.col("band")] = draw(st.sampled_from(["R", "Rc", "V'", "Ic"]))
         return t, Fault(kind, frozenset([i]), ("band '",))
     if kind == "duplicate row":
         copy = list(row)

@@ -30,6 +30,7 @@ _API = {
     "ingest": "varstar.workflows.night",
     "reduce_night": "varstar.workflows.reduce",
     "remove_night": "varstar.workflows.night",
+    "edit_target": "varstar.workflows.describe",
     "transform_archive": "varstar.workflows.standard",
     "verify": "varstar.archive.verify",
     "upgrade": "varstar.archive.verify",

@@ -116,7 +116,8 @@ def cmd_ingest(args: argparse.Namespace) -> int:
     from .workflows.night import ingest
 
     res = ingest(args.archive, args.files, columns=_parse_columns(args.column), timeout_s=args.wait,
-                 replace=args.replace, accept_unusual=args.accept_unusual)
+                 replace=args.replace, accept_unusual=args.accept_unusual, time_format=args.time_format,
+                 time_system=args.time_system, time_point=args.time_point)
     _emit(args, res, fmt.format_ingest(res.to_dict()))
     return 0
 
@@ -297,7 +298,8 @@ def cmd_timings(args: argparse.Namespace) -> int:
 
     arch = open_archive(args.archive)
     d = timings_of_archive(arch, band=args.band, kind=args.kind, night=args.night, note=args.note or "",
-                           store=not args.no_store, update=args.update, seed=args.seed, timeout_s=args.wait).to_dict()
+                           store=not args.no_store, update=args.update, include_disagreeing=args.include_disagreeing,
+                           seed=args.seed, timeout_s=args.wait).to_dict()
     text = fmt.format_timings(d)
     if args.output and d["timings"]:
         save(timings_figure(d, f"{arch.target.name}: O − C"), args.output)
@@ -382,6 +384,43 @@ def cmd_remove_night(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_edit_target(args: argparse.Namespace) -> int:
+    from .errors import ArchiveError, InputError
+    from .export import to_json
+
+    if args.show is not None or args.history:
+        if args.description or args.set or args.unset:
+            raise InputError("--show and --history only read; give the new description or --set/--unset without them")
+        from .workflows.archive import open_archive
+
+        history = open_archive(args.archive).descriptions()
+        if args.history:
+            payload = {"archive": str(args.archive), "descriptions": history.to_dict(orient="records")}
+            _emit(args, payload, fmt.format_descriptions(history))
+            return 0
+        n = len(history) - 1 if args.show == -1 else args.show
+        if not 0 <= n < len(history):
+            raise ArchiveError(f"{args.archive}: no description {n} (versions 0 to {len(history) - 1}; see --history)")
+        toml = str(history["toml"].iloc[n])
+        if args.json:
+            sys.stdout.write(to_json({"archive": str(args.archive), "description": n, "toml": toml}) + "\n")
+        else:
+            sys.stdout.write(toml if toml.endswith("\n") else toml + "\n")
+        return 0
+    if args.description is None and not args.set and not args.unset:
+        raise InputError("give a new description (a TOML file), or keys to change with --set KEY=VALUE / --unset KEY "
+                         "(see 'varstar edit-target --help')")
+    from .inputs import read_toml_text
+    from .workflows.describe import edit_target
+
+    text = read_toml_text(args.description) if args.description is not None else None
+    res = edit_target(args.archive, text=text, source=str(args.description) if args.description else None,
+                      sets=args.set or (), unsets=args.unset or (), note=args.note or "", dry_run=args.dry_run,
+                      accept_unusual=args.accept_unusual, timeout_s=args.wait)
+    _emit(args, res, fmt.format_description_change(res.to_dict()))
+    return 0
+
+
 def cmd_demo(args: argparse.Namespace) -> int:
     from .demo import run_demo
 
@@ -423,13 +462,22 @@ def build_parser() -> argparse.ArgumentParser:
     sp = add("ingest", cmd_ingest, "reduce a night's measurement tables and add them to the archive")
     sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
     sp.add_argument("files", type=Path, nargs="+", metavar="FILE",
-                    help="measurement tables (CSV, long or wide form); the time column (jd) is JD(UTC) at mid-exposure")
+                    help="measurement tables (CSV, long or wide form); the time column (jd) is JD(UTC) at mid-exposure "
+                         "unless declared otherwise (--time-format, --time-system, --time-point)")
     sp.add_argument("--column", action="append", metavar="NAME=FILE_COLUMN",
                     help="read varstar column NAME from the file's FILE_COLUMN (repeatable; default: the file's own names)")
     sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
     sp.add_argument("--replace", action="store_true",
                     help="replace a stored night of the same date with these files (e.g. the complete version of a file cut short)")
-
+    sp.add_argument("--time-format", choices=("jd", "mjd"),
+                    help="what the time column holds: a Julian Date or an MJD (= JD - 2400000.5) (default: "
+                         "[measurements] time_format of the target description, else jd)")
+    sp.add_argument("--time-system", choices=("utc", "hjd_utc", "bjd_tdb"),
+                    help="the time system of the time column (default: [measurements] time_system, else utc); "
+                         "the archive stores JD(UTC) and computes BJD_TDB itself")
+    sp.add_argument("--time-point", choices=("mid", "start", "end"),
+                    help="which moment of the exposure the time is (default: [measurements] time_point, else mid); "
+                         "start or end need the exposure time (column exptime) on every row")
     sp.add_argument("--accept-unusual", action="store_true",
                     help="store a night that cannot be what it claims (target below the horizon or the Sun up at its "
                          "exposures, no target rows, an airmass column far from the computed one), which is refused "
@@ -498,8 +546,13 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--min-period", type=float, metavar="DAYS", help="shortest trial period (default 0.05 d)")
     sp.add_argument("--max-period", type=float, metavar="DAYS", help="longest trial period (default: half the baseline, at most 1000 d)")
     sp.add_argument("--oversampling", type=float, default=10.0, metavar="N", help="grid points per peak width 1/baseline (default 10)")
-    sp.add_argument("--terms", type=int, default=1, metavar="K", help="harmonics of the periodogram (default 1)")
-    sp.add_argument("--harmonics", type=int, metavar="N", help="harmonics of the final fit (default: chosen by AIC)")
+    sp.add_argument("--terms", type=int, default=1, metavar="K",
+                    help="SEARCH: harmonics per trial frequency of the periodogram that finds the period (1 = a "
+                         "sinusoid; 2 or 3 find eclipsing binaries and other non-sinusoidal stars; default 1); "
+                         "not --harmonics")
+    sp.add_argument("--harmonics", type=int, metavar="N",
+                    help="FIT: harmonics of the light-curve model fitted at the period found, which gives the "
+                         "period's error, epoch and amplitude (default: chosen by AIC); not --terms")
     sp.add_argument("--bootstrap", type=int, default=0, metavar="N", help="also a bootstrap false-alarm probability from N resamples (default 0: none)")
     sp.add_argument("--seed", type=int, metavar="S", help="seed of the bootstrap (default 0)")
     sp.add_argument("--single", action="store_true", help="fit the main period alone (by default further significant frequencies are found and fitted together)")
@@ -520,6 +573,9 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--note", help="a note stored with each new timing (default: none)")
     sp.add_argument("--update", action="store_true", help="make the fitted ephemeris the archive's new ephemeris (older ones are kept)")
     sp.add_argument("--no-store", action="store_true", help="do not record new timings in the archive")
+    sp.add_argument("--include-disagreeing", action="store_true",
+                    help="use in the ephemeris fit also the timings whose two estimates disagree beyond the usual "
+                         "difference between the methods (left out by default, and listed)")
     sp.add_argument("--seed", type=int, default=0, metavar="S", help="seed of the bootstrap errors (default 0)")
     sp.add_argument("-o", "--output", type=Path, metavar="FILE", help="O − C diagram (png, pdf, svg; default: no plot)")
     sp.add_argument("--csv", type=Path, metavar="FILE", help="write the timings as CSV, one a row (default: no CSV)")
@@ -548,8 +604,28 @@ def build_parser() -> argparse.ArgumentParser:
                          "a script without it records no reason)")
     sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
 
+    sp = add("edit-target", cmd_edit_target,
+             "change the archive's target description (a new TOML, or single keys); earlier versions are kept and "
+             "the nights the change affects are reduced again from their raw measurements, all in one change")
+    sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
+    sp.add_argument("description", type=Path, nargs="?",
+                    help="a whole new target description (TOML); default: edit the one in force with --set/--unset")
+    sp.add_argument("--set", action="append", metavar="KEY=VALUE",
+                    help="set one key (repeatable): a dotted path, stars by id, a TOML value, e.g. "
+                         "--set 'reduction.exclude=[\"C4\"]', --set stars.C2.V_err=0.02, --set ephemeris.period=0.5672, "
+                         "--set 'stars.C9={role = \"comparison\", V = 12.5}' (default: no key set)")
+    sp.add_argument("--unset", action="append", metavar="KEY", help="remove one key (repeatable), e.g. --unset stars.C2.B_err (default: none removed)")
+    sp.add_argument("--note", metavar="TEXT", help="why the description changed, kept in its history (default: none)")
+    sp.add_argument("--dry-run", action="store_true", help="say what would change and which nights, and change nothing")
+    sp.add_argument("--accept-unusual", action="store_true",
+                    help="re-reduce nights the new description makes implausible (target below the horizon, ...) anyway")
+    sp.add_argument("--show", nargs="?", type=int, const=-1, default=None, metavar="N",
+                    help="print the description in force (default) or version N as TOML, and change nothing")
+    sp.add_argument("--history", action="store_true", help="list every version of the description, and change nothing")
+    sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
+
     sp = add("demo", cmd_demo, "run the whole pipeline on the shipped invented demo field")
-    sp.add_argument("--out", type=Path, default=None, help="folder for the results (default: a new folder here)")
+    sp.add_argument("-o", "--out", type=Path, default=None, help="folder for the results (default: a new folder here)")
     return p
 
 

@@ -55,8 +55,8 @@ def colour_summary(lc: pd.DataFrame, target: "Target") -> dict[str, Any]:
     d = lc[np.isfinite(lc["bv"].to_numpy())]
     if d.empty:
         raise ArchiveError(
-            "no transformed points with a colour: give transformation coefficients ([transformation] in the target "
-            "file, or 'varstar transform') and observe B and V"
+            "no transformed points with a colour: put transformation coefficients in force with 'varstar transform "
+            "ARCHIVE --coefficients FILE' (a setups file or a fit from 'varstar coefficients') and observe B and V"
         )
     ebv, ebv_err = (target.ebv, target.ebv_err) if target.ebv is not None else (0.0, 0.0)
     bv = d["bv"].to_numpy()

@@ -67,9 +67,14 @@ def write_csv(df: pd.DataFrame, path: str | Path) -> Path:
     With ``\n`` line ends the csv writer leaves a carriage return inside a cell
     unquoted, and a spreadsheet starts a new row there (whose first cell could be
     a formula); so when a text cell holds one, every text cell is quoted.
+    Boolean columns are written 1 and 0.
     """
     import csv
 
+    # One spelling of true and false in every CSV varstar writes: 1 and 0 (any reader takes them as numbers).
+    bools = [c for c in df.columns if pd.api.types.is_bool_dtype(df[c])]
+    if bools:
+        df = df.astype({c: "int8" for c in bools})
     safe = safe_text_columns(df)
     text_cols = [c for c in safe.columns if safe[c].dtype == object or pd.api.types.is_string_dtype(safe[c])]
     has_cr = any(safe[c].astype(str).str.contains("\r", regex=False).any() for c in text_cols)
@@ -383,18 +388,21 @@ def safe_filename(text: str, default: str = "target") -> str:
 
 
 #: Columns of the timings CSV, in order.
-TIMINGS_COLUMNS = ("bjd_tdb", "err", "method", "band", "type", "cycle", "o_minus_c", "check_method", "check_bjd_tdb",
-                   "check_err", "disagree", "night", "n_points", "note")
+TIMINGS_COLUMNS = ("bjd_tdb", "err", "method", "band", "type", "cycle", "o_minus_c", "o_minus_c_min", "check_method",
+                   "check_bjd_tdb", "check_err", "disagree", "in_fit", "night", "n_points", "note")
 
 
 def timings_table(timings: list[dict[str, Any]]) -> pd.DataFrame:
     """Timings (as returned by :func:`varstar.analyses.timings_of_archive`) as a neutral table, one a row.
 
-    Times are BJD_TDB, errors and O − C in days; ``disagree`` is 1 where the two
-    estimates differ by more than their errors allow.
+    Times are BJD_TDB, errors and O − C in days (``o_minus_c_min`` in minutes, as
+    the O − C figure); ``disagree`` is 1 where the two estimates differ by more
+    than their errors allow (beyond the usual difference between the methods).
     """
     df = pd.DataFrame(list(timings), columns=[*TIMINGS_COLUMNS, "new"])[list(TIMINGS_COLUMNS)]
-    df["disagree"] = df["disagree"].astype(bool).astype(int)
+    df["o_minus_c_min"] = df["o_minus_c"] * 1440.0
+    df["in_fit"] = df["in_fit"].fillna(False).astype(bool)
+    df["disagree"] = df["disagree"].astype(bool)  # written 1 / 0, as every boolean (write_csv)
     for c in ("bjd_tdb", "check_bjd_tdb"):  # full Julian Dates: fixed decimals (1e-6 d = 0.09 s), not 10 digits
         df[c] = df[c].map(lambda v: f"{v:.6f}" if v is not None and np.isfinite(v) else "")
     return df

@@ -316,8 +316,47 @@ def reduction_options(target: Target) -> tuple[dict[str, int | float], tuple[str
     return kw, tuple(names)
 
 
+#: How a measurement table's time column may be declared (``[measurements]`` in the description,
+#: or the ingest options): its format, time system and point of the exposure; defaults first.
+TIME_CHOICES = {
+    "time_format": ("jd", "mjd"),
+    "time_system": ("utc", "hjd_utc", "bjd_tdb"),
+    "time_point": ("mid", "start", "end"),
+}
+
+
+def time_declaration(target: Target, **given: str | None) -> dict[str, str]:
+    """The declared time column: ``[measurements]`` of the description, overridden by ``given`` (not None).
+
+    Returns ``{"time_format", "time_system", "time_point"}`` with the defaults
+    (JD, UTC, mid-exposure) where nothing is declared.
+
+    Raises
+    ------
+    InputError
+        Naming the key (or option) and the values it takes.
+    """
+    table = target.extra.get("measurements", {})
+    w = f"{target.source}: [measurements]"
+    if not isinstance(table, dict):
+        raise InputError(f"{w} must be a table")
+    for key in table:
+        if key not in TIME_CHOICES:
+            raise InputError(f"{w}.{key} is not a key of this table (known: {', '.join(TIME_CHOICES)})")
+    out = {}
+    for key, choices in TIME_CHOICES.items():
+        val = given.get(key)
+        where = f"--{key.replace('_', '-')}"
+        if val is None:
+            val, where = table.get(key, choices[0]), f"{w}.{key}"
+        if not isinstance(val, str) or val.lower() not in choices:
+            raise InputError(f"{where}: {shown(val)} is not one of {', '.join(choices)}")
+        out[key] = val.lower()
+    return out
+
+
 def check_tables(target: Target) -> None:
-    """Check the optional tables other modules read later (``[reduction]``, ``[ephemeris]``).
+    """Check the optional tables other modules read later (``[reduction]``, ``[measurements]``, ``[ephemeris]``).
 
     :func:`parse_target` keeps them verbatim; a file being read for a new
     archive is checked here as well, so that ``init`` refuses what ``ingest`` or
@@ -325,6 +364,7 @@ def check_tables(target: Target) -> None:
     archive is created: it may name another file.)
     """
     reduction_options(target)
+    time_declaration(target)
     if "ephemeris" in target.extra:
         from .timings import ephemeris_from_table  # here: numpy
 

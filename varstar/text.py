@@ -62,10 +62,12 @@ def format_night_report(rep: dict[str, Any]) -> str:
         f"{plural(rep['n_exposures'], 'exposure')}, {rep['n_flagged']} flagged"
     ]
     for band, b in rep["bands"].items():
-        reasons = ", ".join(f"{k} {v}" for k, v in sorted(b["flag_reasons"].items()))
+        counts = sorted(b["flag_reasons"].items(), key=lambda kv: (-kv[1], kv[0]))
+        reasons = ", ".join(f"{k.replace('_', ' ')} {v}" for k, v in counts)
+        several = sum(v for _, v in counts) > b["n_flagged"]
         lines.append(
             f"  {band}: {plural(b['n_exposures'], 'exposure')}, {b['n_used']} used, {b['n_flagged']} flagged"
-            + (f" ({reasons})" if reasons else "")
+            + (f" (for {reasons}{'; some for more than one reason' if several else ''})" if reasons else "")
         )
         frames = b["flagged_frames"]
         if frames:
@@ -115,13 +117,14 @@ def format_summary(s: dict[str, Any]) -> str:
     t = s["target"]
     lines = [
         f"{t['name']}  (RA {t['ra_deg']:.5f}°, Dec {t['dec_deg']:+.5f}°; star {t['star']})",
-        f"archive {s['archive']}, schema {s['schema_version']}, {s['n_nights']} night(s)",  # pinned by tests (test_cli, test_archive_damage)
+        f"archive {s['archive']}, schema {s['schema_version']}, {plural(s['n_nights'], 'night')}",
     ]
     for n in s["nights"]:
-        lines.append(f"  {n['night']}: {plural(n['n_exposures'], 'exposure')}, {n['n_flagged']} flagged (ingested {n['ingested_utc']})")
+        lines.append(f"  {n['night']}: {plural(n['n_exposures'], 'exposure')}, {n['n_flagged']} flagged by the reduction "
+                     f"(ingested {n['ingested_utc']})")
     for band, b in s["bands"].items():
         lines.append(
-            f"  {band}: {plural(b['n_points'], 'point')} ({b['n_standard']} on the standard system; {b['n_flagged']} flagged left out), "
+            f"  {band}: {plural(b['n_points'], 'point')} ({b['n_standard']} on the standard system; {b['n_flagged']} left out: their exposure or measurement is flagged), "
             f"{b['mag_min']:.3f} .. {b['mag_max']:.3f} mag, "
             f"median error {b['median_mag_err']:.3f}, BJD_TDB {b['bjd_first']:.4f} .. {b['bjd_last']:.4f}"
         )
@@ -220,14 +223,17 @@ def format_timings(d: dict[str, Any]) -> str:
     e = d["ephemeris"]
     lines = [f"ephemeris in force: T({e['kind']}) = {e['epoch']:.5f} + {e['period']:.7f} E"
              + (f" + {e['quadratic']:.3e} E²" if e.get("quadratic") else "") + " (BJD_TDB)"]
-    lines.append(f"{'night':10s} {'band':4s} {'type':9s} {'E':>8s} {'BJD_TDB':>15s} {'± (d)':>8s} {'O − C (d)':>10s}  method")
+    lines.append(f"{'night':10s} {'band':4s} {'type':9s} {'E':>8s} {'BJD_TDB':>15s} {'± (d)':>8s} {'O − C (d)':>10s} "
+                 f"{'(min)':>7s}  method")
     for t in d["timings"]:
-        flag = " *" if t["new"] else ""
-        lines.append(f"{t['night']:10s} {t['band']:4s} {t['type']:9s} {t['cycle']:8.1f} {t['bjd_tdb']:15.5f} "  # E as 3.0: pinned by test_one_night.py
-                     f"{_fmt(t['err'], '.5f'):>8s} {t['o_minus_c']:+10.5f}  {t['method']}{flag}")
+        flag = (" *" if t["new"] else "") + (" !" if t.get("disagree") and not t.get("in_fit", True) else "")
+        lines.append(f"{t['night']:10s} {t['band']:4s} {t['type']:9s} {cycle(t['cycle']):>8s} {t['bjd_tdb']:15.5f} "
+                     f"{_fmt(t['err'], '.5f'):>8s} {t['o_minus_c']:+10.5f} {t['o_minus_c'] * 1440.0:+7.2f}  {t['method']}{flag}")
         if t["note"]:
             lines.append(f"{'':12s}note: {t['note']}")
     lines.append(f"(* new: {d['n_new']} stored now{'' if d['stored'] else ' - not stored (--no-store)'})")
+    if any(t.get("disagree") and not t.get("in_fit", True) for t in d["timings"]):
+        lines.append("(! its two estimates disagree: left out of the ephemeris fit; --include-disagreeing puts it in)")
     if d["refused"]:
         lines.append(f"{plural(len(d['refused']), 'predicted extremum', 'predicted extrema')} could not be timed:")
         for r in d["refused"][:10]:
@@ -298,6 +304,38 @@ def format_removal(res: dict[str, Any]) -> str:
     why = f", reason: {res['reason']}" if res.get("reason") else ", no reason given"
     return (f"removed night {res['night']} ({plural(res['n_exposures'], 'exposure')}, {plural(res['n_points'], 'point')}, from "
             f"{', '.join(res['sources']) or 'no file'}); the removal is recorded in the archive{why}")
+
+
+def format_description_change(res: dict[str, Any]) -> str:
+    """What ``edit-target`` changed (or, with ``--dry-run``, would change)."""
+    if not res["changed"]:
+        return "\n".join(res["notes"])
+    would = res["dry_run"]
+    head = (f"dry run: the description would become version {res['previous'] + 1} (nothing changed)" if would else
+            f"target description {res['description']} is in force (version {res['previous']} and earlier are kept "
+            f"in the archive's history)")
+    lines = [head, "changes:"] + [f"  {c}" for c in res["changes"]]
+    n, k = len(res["rereduced"]), len(res["unchanged_nights"])
+    verb = "would be" if would else "were"
+    if n:
+        lines.append(f"{plural(n, 'night')} {verb} reduced again from their raw measurements and stored: "
+                     f"{', '.join(res['rereduced'])}")
+    if k:
+        lines.append(f"{plural(k, 'night')} reduced again gave the stored result and {'would stay' if would else 'stay'} "
+                     f"as they are")
+    if not n and not k:
+        lines.append("no night's reduction reads what changed: no night needs reducing again")
+    lines += [f"note: {x}" for x in res["notes"]]
+    return "\n".join(lines)
+
+
+def format_descriptions(history: Any) -> str:
+    """The versions of an archive's target description (``edit-target --history``)."""
+    lines = []
+    for r in history.itertuples():
+        what = f"; re-reduced {r.rereduced}" if r.rereduced else ""
+        lines.append(f"{int(r.description):>3}  {r.set_utc}  {r.note or '(no note)'}{what}")
+    return "\n".join(lines)
 
 
 def format_ingest(res: dict[str, Any]) -> str:

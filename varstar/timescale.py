@@ -203,7 +203,20 @@ def _site_location(site) -> tuple[float, float, float]:
         raise TypeError("site must have latitude_deg, longitude_deg and elevation_m (varstar.target.Site)") from exc
 
 
-def bjd_tdb_to_utc(bjd_tdb: np.ndarray, ra_deg: float, dec_deg: float, site) -> np.ndarray:
+def to_jd_utc(times: np.ndarray, system: str, ra_deg: float, dec_deg: float, site) -> np.ndarray:
+    """JD(UTC) of times given in ``system``: ``"utc"`` (as they are), ``"hjd_utc"`` or ``"bjd_tdb"``.
+
+    The inverse of :func:`exposure_times` for the target at ``ra_deg``,
+    ``dec_deg`` seen from ``site`` (see :func:`bjd_tdb_to_utc`).
+    """
+    if system == "utc":
+        return np.asarray(times, dtype=float)
+    if system not in ("hjd_utc", "bjd_tdb"):
+        raise ValueError(f"unknown time system {system!r}")
+    return bjd_tdb_to_utc(times, ra_deg, dec_deg, site, heliocentric=system == "hjd_utc")
+
+
+def bjd_tdb_to_utc(bjd_tdb: np.ndarray, ra_deg: float, dec_deg: float, site, *, heliocentric: bool = False) -> np.ndarray:
     """Invert :func:`exposure_times`: the JD(UTC) at which the site sees a given BJD_TDB.
 
     BJD_TDB = JD_UTC + c(JD_UTC), with c the TT - UTC, TDB - TT and barycentric
@@ -222,6 +235,10 @@ def bjd_tdb_to_utc(bjd_tdb: np.ndarray, ra_deg: float, dec_deg: float, site) -> 
     site
         Observing site (:class:`varstar.target.Site`).
 
+    heliocentric
+        The dates are HJD(UTC) instead (the heliocentric light time alone,
+        which changes as slowly: the same iteration).
+
     Returns
     -------
     numpy.ndarray
@@ -236,8 +253,8 @@ def bjd_tdb_to_utc(bjd_tdb: np.ndarray, ra_deg: float, dec_deg: float, site) -> 
     jd = uniq.copy()
     with offline_astropy():
         for _ in range(3):
-            corr, _, _ = _exact(jd, loc, coord)
-            jd = uniq - corr
+            bary, helio, _ = _exact(jd, loc, coord)
+            jd = uniq - (helio if heliocentric else bary)
     return jd[inverse].reshape(bjd.shape)
 
 

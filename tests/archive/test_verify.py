@@ -131,13 +131,14 @@ def test_remove_unknown_night_changes_nothing(capsys, arch):
     path, _ = arch
     before = digest(path)
     rc, out, err = run(capsys, "remove-night", path, "2030-01-01")
-    assert rc == 2 and "no night '2030-01-01'" in err and digest(path) == before
+    # the archive lacks what was asked for: 3, as in every command (README, "Exit codes")
+    assert rc == 3 and "no night '2030-01-01'" in err and digest(path) == before
 
 
 def _make_schema_1(path: Path) -> None:
     """Turn an archive into what schema 1 wrote: no newer tables, version 1."""
     with h5py.File(path, "r+") as f:
-        for t in ADDED_IN[2]:
+        for t in ADDED_IN[2] + ADDED_IN[3]:
             del f[t]
         for t, col in RETYPED_IN[2]:  # schema 1 kept these as variable-length text
             values = f[t][col][()].astype(str)
@@ -173,6 +174,24 @@ def test_older_schema_reads_refuses_changes_and_upgrades_with_a_backup(capsys, a
     assert rc == 0 and "nothing to do" in out
     # a second upgrade of another old copy does not overwrite the first backup
     assert upgrade(path)["upgraded"] is False
+
+
+def test_a_schema_2_archive_upgrades_with_its_description_as_the_first_version(arch):
+    path, _ = arch
+    with h5py.File(path, "r+") as f:
+        del f["descriptions"]
+        f.attrs["schema_version"] = 2
+        n_digests = f["digests"]["night"].shape[0]
+        toml = f["target"].attrs["toml"]
+    a = varstar.open_archive(path)
+    assert list(a.descriptions()["description"]) == [0] and a.description_in_force() == 0  # read as it is
+    res = upgrade(path)
+    assert res["upgraded"] and res["tables_added"] == ("descriptions",) and res["nights_checksummed"] == 0
+    hist = varstar.open_archive(path).descriptions()
+    assert list(hist["description"]) == [0] and hist["toml"].iloc[0] == toml
+    with h5py.File(path, "r") as f:
+        assert f["digests"]["night"].shape[0] == n_digests  # the checksums are not written twice
+    assert verify(path).ok
 
 
 def test_newer_schema_is_refused(arch):

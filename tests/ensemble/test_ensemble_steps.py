@@ -632,7 +632,8 @@ def test_rejection_reason_reports_the_scatter():
     st = vt.star_test
     rms = math.sqrt(st.r2[:, 3].sum() / st.mask[:, 3].sum())
     text = rejection_reason(vt, 3, 5.0)
-    assert text.startswith(f"scatter {rms:.3f} mag vs ")
+    assert text.startswith(f"scatter about the ensemble {vt.red[3] / vt.error_scale:.1f} times what its errors allow")
+    assert f"rms {rms:.3f} mag" in text
     assert "ensemble error scale" in text and ("p<1e-30" in text or "p=" in text)
 
 

@@ -622,3 +622,47 @@ def test_end_to_end_quadratic_ephemeris_from_light_curves():
     e2, oc = o_minus_c(t, work)
     assert np.array_equal(e2, e)
     assert np.allclose(oc, [tm.o_minus_c for tm in timings], atol=1e-12)
+
+
+# ----------------------------------------------------------------- disagreement beyond the usual difference
+
+
+def test_disagreements_judge_against_the_usual_difference_of_the_methods():
+    # Simulated truth: a symmetric method's centre lies 5 min after an asymmetric maximum on every
+    # night, with a spread of 1 min from night to night (coverage), beside the formal errors.
+    from varstar.timings import disagreements
+
+    rng = np.random.default_rng(11)
+    n = 400
+    e1, e2 = np.full(n, 0.3 / 1440), np.full(n, 0.4 / 1440)
+    main = rng.normal(0.0, e1)
+    check = main - 5.0 / 1440 + rng.normal(0.0, np.hypot(e2, 1.0 / 1440))
+    bad = 17
+    check[bad] -= 25.0 / 1440  # a disturbed night: 25 min beyond the usual difference
+    dis, usual = disagreements(main, e1, check, e2, np.zeros(n))
+    assert abs(usual[0] * 1440 - 5.0) < 0.3
+    assert dis[bad]
+    # the rest are judged against 3 combined errors (with the spread): few false alarms (3 sigma: 0.27 %)
+    assert dis.sum() - 1 <= 0.01 * n
+    # Judged as they are (no usual difference), nearly every night would disagree.
+    naive = np.abs(main - check) > DISAGREE_SIGMA * np.hypot(e1, e2)
+    assert naive.mean() > 0.9
+
+
+def test_disagreements_with_too_few_timings_or_no_check():
+    from varstar.timings import disagreements
+
+    e = np.full(2, 1e-4)
+    dis, usual = disagreements(np.zeros(2), e, np.array([0.0, 0.01]), e, np.array(["a", "a"]))
+    assert usual.tolist() == [0.0, 0.0] and dis.tolist() == [False, True]  # two: compared as they are
+    dis, _ = disagreements(np.zeros(3), np.full(3, 1e-4), np.array([np.nan, 0.0, 0.0]), np.full(3, 1e-4), np.zeros(3))
+    assert not dis.any()  # a missing second estimate never disagrees
+
+
+def test_a_small_group_does_not_judge_a_template_against_a_symmetric_method():
+    from varstar.timings import disagreements
+
+    e = np.full(2, 1e-4)
+    check = np.array([0.004, 0.005])  # 6-7 min: what a symmetric centre does on an asymmetric maximum
+    dis, _ = disagreements(np.zeros(2), e, check, e, np.zeros(2), offset_expected=np.array([True, False]))
+    assert dis.tolist() == [False, True]

@@ -192,3 +192,26 @@ def test_the_python_api_shows_its_options():
     pred = inspect.signature(Archive.predict).parameters
     assert {"start", "end", "site_visible", "min_altitude_deg", "max_sun_altitude_deg", "secondary"} <= set(pred)
     assert not any(p.kind is p.VAR_KEYWORD for p in pred.values())
+
+
+def test_a_timing_whose_estimates_disagree_is_left_out_of_the_fit_unless_asked(capsys, archive):
+    import h5py
+
+    path, _ = archive
+    a = varstar.open_archive(path)
+    first = a.time_extrema()
+    # The demo's maxima are asymmetric: the symmetric second estimate lies minutes from the template's
+    # on every night alike, which is the methods' usual difference, not a disagreement.
+    assert all(t["in_fit"] and not t["disagree"] for t in first["timings"])
+    n = len(first["timings"])
+    with h5py.File(path, "r+") as f:  # one night's second estimate 40 min off: a disturbed extremum
+        f["timings"]["check_bjd_tdb"][0] = f["timings"]["check_bjd_tdb"][0] + 40.0 / 1440.0
+    res = a.time_extrema(store=False)
+    out = {(t["night"], t["band"]): t for t in res["timings"]}
+    bad = [t for t in out.values() if t["disagree"]]
+    assert len(bad) == 1 and not bad[0]["in_fit"]
+    assert res["fit"]["n_timings"] == n - 1 and "left out of the fit" in res["fit_note"]
+    res = a.time_extrema(store=False, include_disagreeing=True)
+    assert res["fit"]["n_timings"] == n and "are in the fit" in res["fit_note"]
+    rc, text, _ = run(capsys, "timings", path, "--no-store")
+    assert rc == 0 and " !" in text and "left out of the ephemeris fit" in text

@@ -194,6 +194,34 @@ def test_band_without_catalogue_values_is_refused(tmp_path):
     assert path.read_bytes() == before
 
 
+def test_band_names_differing_only_in_case_are_one_band_unless_the_target_has_both(tmp_path):
+    # Filter names are case-insensitive in everyday use (common practice), but Stromgren v and Johnson V
+    # are different bands: a description listing both keeps them apart.
+    night = (DEMO / "night-2026-09-11.csv").read_text()
+    lower = tmp_path / "lower.csv"
+    lower.write_text(night.replace(",V,", ",v,").replace(",B,", ",b,"))
+    path = tmp_path / "a.h5"
+    varstar.create_archive(path, varstar.read_target(DEMO / "target.toml"))
+    rep = varstar.ingest(path, [lower]).nights[0]
+    assert sorted(rep["bands"]) == ["B", "V"]
+    assert any("band 'v' of" in w and "read as 'V'" in w for w in rep["warnings"])
+    reference = tmp_path / "b.h5"
+    varstar.create_archive(reference, varstar.read_target(DEMO / "target.toml"))
+    varstar.ingest(reference, [DEMO / "night-2026-09-11.csv"])
+    cols = ["bjd_tdb", "band", "mag", "mag_err"]
+    assert varstar.open_archive(path).lightcurve()[cols].equals(varstar.open_archive(reference).lightcurve()[cols])
+
+    both = (DEMO / "target.toml").read_text().replace('role = "comparison"\n', 'role = "comparison"\nv = 11.0\n', 1)
+    (tmp_path / "both.toml").write_text(both)
+    target = varstar.read_target(tmp_path / "both.toml")
+    assert {"v", "V"} <= target.catalog_bands()
+    from varstar.workflows.reduce import band_names
+    import pandas as pd
+
+    table = pd.DataFrame({"band": ["v", "V", "b"], "source": ["f.csv"] * 3})
+    assert band_names(target, table)["band"].tolist() == ["v", "V", "B"]
+
+
 def test_excluded_comparison_is_left_out(tmp_path):
     text = (DEMO / "target.toml").read_text() + '\n[reduction]\nexclude = ["C4"]\n'
     (tmp_path / "t.toml").write_text(text)

@@ -18,10 +18,10 @@ if TYPE_CHECKING:  # pragma: no cover
     import h5py
 
 FORMAT_NAME = "varstar-archive"
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 
 #: Tables each older schema lacks; :mod:`.integrity` adds them on ``varstar upgrade``.
-ADDED_IN = {2: ("timings", "ephemerides", "digests", "removals")}
+ADDED_IN = {2: ("timings", "ephemerides", "digests", "removals"), 3: ("descriptions",)}
 #: Columns whose type a schema changed (from variable-length text to fixed ASCII).
 RETYPED_IN = {2: (("sources", "sha256"), ("nights", "label"))}
 
@@ -189,6 +189,16 @@ TABLES: dict[str, dict[str, str]] = {
         "n_points": "i8",
         "sources": STR,
         "reason": STR,
+    },
+    # every version of the target description, the first the one the archive was created with;
+    # the last is the one in force (and is also in /target)
+    "descriptions": {
+        "description": "i4",
+        "set_utc": STR,
+        "software": STR,
+        "toml": STR,
+        "note": STR,
+        "rereduced": STR,
     },
 }
 

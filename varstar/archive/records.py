@@ -60,6 +60,26 @@ def active_transformation(f: h5py.File) -> tuple[int, Coefficients, float] | Non
     return int(rows["transformation"][k]), coeffs, float(rows["max_gap_d"][k])
 
 
+def first_description(toml: str, set_utc: str, software: str) -> dict[str, list]:
+    """The ``/descriptions`` row of the description an archive was created with (number 0)."""
+    return {"description": [0], "set_utc": [str(set_utc)], "software": [str(software)], "toml": [str(toml)],
+            "note": ["the description the archive was created with"], "rereduced": [""]}
+
+
+def descriptions(f: h5py.File) -> pd.DataFrame:
+    """Every version of the target description, oldest first (an archive of schema 2, not upgraded yet, has
+    only the one in ``/target``, shown as number 0)."""
+    if tables.has_table(f, "descriptions"):
+        return pd.DataFrame(tables.read(f, "descriptions"))
+    return pd.DataFrame(first_description(f["target"].attrs["toml"], f.attrs.get("created_utc", ""),
+                                          f.attrs.get("created_by", "")))
+
+
+def description_in_force(f: h5py.File) -> int:
+    """The number of the target description in force (the last ``/descriptions`` row)."""
+    return tables.n_rows(f, "descriptions") - 1 if tables.has_table(f, "descriptions") else 0
+
+
 def history(f: h5py.File, table: str) -> pd.DataFrame:
     """A history table (periods, ephemerides, timings, ...) whole; empty with its columns in an older schema."""
     if not tables.has_table(f, table):

@@ -63,6 +63,7 @@ def create_archive(
         g.attrs["dec_deg"] = target.dec_deg
         tables.create_tables(f)
         tables.append(f, "stars", {"id": [s.id for s in target.stars], "role": [s.role for s in target.stars]})
+        tables.append(f, "descriptions", records.first_description(target.source_text, f.attrs["created_utc"], f.attrs["created_by"]))
         if transformation is not None:
             add_transformation(f, transformation[0], transformation[1], utc_now())
 
@@ -151,6 +152,22 @@ class ArchiveStore:
                 f"valid when the archive was created, so the archive file is probably damaged: run 'varstar verify "
                 f"{self.path}', and put back a copy of the archive."
             ) from None
+
+    def descriptions(self) -> pd.DataFrame:
+        """Every version of the target description, oldest first (the last is in force): ``description``
+        (its number), ``set_utc``, ``software``, ``toml``, ``note``, ``rereduced`` (nights re-reduced under it)."""
+        with self._open() as f:
+            return records.descriptions(f)
+
+    def description_in_force(self) -> int:
+        """The number of the target description in force (the last row of :meth:`descriptions`)."""
+        with self._open() as f:
+            return records.description_in_force(f)
+
+    def star_ids(self) -> list[str]:
+        """Every star the archive has known (its stars are stored under these ids; none ever leaves)."""
+        with self._open() as f:
+            return [str(x) for x in tables.read(f, "stars", ["id"])["id"]]
 
     def nights(self) -> pd.DataFrame:
         """One row per ingested night: ``night`` (its label, the evening date), ``night_number``, counts,

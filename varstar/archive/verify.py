@@ -25,7 +25,7 @@ import numpy as np
 
 from ..errors import ArchiveError
 from ..results import Result
-from . import tables
+from . import records, tables
 from .integrity import (
     CONSISTENCY_TOL_MAG, capacity_problems, expected_tables, failed_object, free_space_problem, hdf5_detail,
     is_hdf5_failure, night_digests, structure_problems,
@@ -234,7 +234,12 @@ def _nights_of_rows(f: h5py.File, t: str, spans: list[tuple[int, int, str]], lab
 
 
 def _check_stars_against_target(f: h5py.File, toml: str, path: Path, problems: list[str]) -> None:
-    """``/stars`` must be the target description's stars, in its order: star codes are their row numbers."""
+    """``/stars`` must hold every star of the description in force, with its role (star codes are row numbers).
+
+    The first rows are the stars of the original description in its order (checked
+    against ``/descriptions``); stars a later version added follow, and a star never
+    leaves ``/stars``.
+    """
     from ..errors import VarstarError
     from ..target import parse_target
 
@@ -245,16 +250,25 @@ def _check_stars_against_target(f: h5py.File, toml: str, path: Path, problems: l
         return
     stored = tables.read(f, "stars", ["id", "role"])
     ids, roles = list(stored["id"]), list(stored["role"])
-    want_ids, want_roles = [s.id for s in target.stars], [s.role for s in target.stars]
-    if ids != want_ids or roles != want_roles:
-        k = next((i for i, (a, b) in enumerate(zip(zip(ids, roles), zip(want_ids, want_roles))) if a != b),
-                 min(len(ids), len(want_ids)))
-        got = f"'{ids[k]}' ({roles[k]})" if k < len(ids) else "nothing"
-        want = f"'{want_ids[k]}' ({want_roles[k]})" if k < len(want_ids) else "nothing"
+    role_of = dict(zip(ids, roles))
+    wrong = [f"'{s.id}' ({s.role})" for s in target.stars if role_of.get(s.id) != s.role]
+    if wrong:
         problems.append(
-            f"/stars does not list the stars of the stored target description ({len(ids):,} rows for "
-            f"{len(want_ids):,} stars; row {k} holds {got} where the description has {want}): star codes do not "
-            f"lead to the stars they were stored for"
+            f"/stars does not list the stars of the target description in force with their roles ({len(ids):,} rows; "
+            f"missing or with another role: {', '.join(wrong[:5])}): star codes do not lead to the stars they were "
+            f"stored for"
+        )
+    first = records.descriptions(f)["toml"].iloc[0]
+    try:
+        original = [s.id for s in parse_target(str(first), source=f"{path}:/descriptions").stars]
+    except VarstarError:
+        original = None  # a description history that cannot be read shows in the checksums of its own checks
+    if original is not None and ids[:len(original)] != original:
+        k = next((i for i, (a, b) in enumerate(zip(ids, original)) if a != b), min(len(ids), len(original)))
+        got = f"'{ids[k]}'" if k < len(ids) else "nothing"
+        problems.append(
+            f"/stars does not begin with the stars of the original target description in its order (row {k} holds "
+            f"{got} where it has '{original[k]}'): star codes do not lead to the stars they were stored for"
         )
     dupes = sorted({i for i in ids if ids.count(i) > 1}) if len(set(ids)) != len(ids) else []
     if dupes:
@@ -523,11 +537,15 @@ def upgrade(path: str | Path, *, timeout_s: float = 30.0) -> UpgradeResult:
                 if not tables.has_table(f, t):
                     tables.create_tables(f, only=(t,))
                     added.append(t)
+                    if t == "descriptions":  # the one stored at init is the first version
+                        tables.append(f, t, records.first_description(
+                            f["target"].attrs["toml"], f.attrs.get("created_utc", ""), f.attrs.get("created_by", "")))
             for t, col in RETYPED_IN.get(v, ()):
                 if f[t][col].dtype != np.dtype(TABLES[t][col]):
                     tables.retype_column(f, t, col)
         nights = sorted(tables.read(f, "nights", ["night"])["night"].tolist())
-        if nights:
+        if nights and "digests" in added:  # the checksums of nights stored before there were any
             tables.append(f, "digests", night_digests(f, nights))
         f.attrs["schema_version"] = SCHEMA_VERSION
-    return UpgradeResult(str(path), True, SCHEMA_VERSION, str(backup), version, tuple(added), len(nights))
+    return UpgradeResult(str(path), True, SCHEMA_VERSION, str(backup), version, tuple(added),
+                         len(nights) if "digests" in added else 0)

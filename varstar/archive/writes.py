@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from .. import __version__
-from ..errors import InputError
+from ..errors import ArchiveError
 from ..results import plain, utc_now
 from . import records, tables
 from .integrity import night_digests_of_range
@@ -94,7 +94,9 @@ class ArchiveWriter:
         return tables.n_rows(self._f, "ephemerides")
 
     # -- nights -----------------------------------------------------------------------------
-    def append_night(self, red: Any, sha_of: Mapping[str, str]) -> int:
+    def append_night(
+        self, red: Any, sha_of: Mapping[str, str], *, night_id: int | None = None, ingested_utc: str | None = None
+    ) -> int:
         """Store one reduced night with its raw measurements, sources and checksums; return its number.
 
         ``red`` is a :class:`varstar.workflows.reduce.NightReduction`: its
@@ -102,13 +104,15 @@ class ArchiveWriter:
         DataFrames carry the stored tables' column names (stars and bands by
         name, exposures numbered from 0 within the night), with its ``label``
         and ``report``.  ``sha_of`` maps each source name in ``red.raw["source"]``
-        to its file's SHA-256.
+        to its file's SHA-256.  ``night_id`` and ``ingested_utc`` are given by
+        :meth:`replace_reduction` only (a night stored again keeps them).
         """
         f = self._f
         stars = pd.Index(tables.read(f, "stars", ["id"])["id"])
         # never reuse the number of a removed night: its removal record keeps it
-        used = np.concatenate([tables.read(f, "nights", ["night"])["night"], tables.read(f, "removals", ["night"])["night"]])
-        night_id = int(used.max()) + 1 if used.size else 0
+        if night_id is None:
+            used = np.concatenate([tables.read(f, "nights", ["night"])["night"], tables.read(f, "removals", ["night"])["night"]])
+            night_id = int(used.max()) + 1 if used.size else 0
         starts = {t: tables.n_rows(f, t) for t in DIGEST_COLUMNS}
         band_code = {b: tables.code_of(f, "bands", "name", b, add=True) for b in sorted(pd.unique(red.exposures["band"]))}
         src_names = sorted(pd.unique(red.raw["source"]))
@@ -137,7 +141,7 @@ class ArchiveWriter:
         tables.append(f, "nights", {
             "night": [night_id],
             "label": [red.label],
-            "ingested_utc": [self.now],
+            "ingested_utc": [ingested_utc or self.now],
             "software": [self.software],
             "n_exposures": [len(e)],
             "n_flagged": [int((e["flags"] != "").sum())],
@@ -151,21 +155,23 @@ class ArchiveWriter:
         tables.append(f, "digests", night_digests_of_range(f, night_id, ranges))
         return night_id
 
-    def drop_night(self, label: str, *, reason: str) -> dict[str, Any]:
-        """Take every row of the night ``label`` out and record the removal.
-
-        The row numbers other tables hold into the exposures and sources are
-        renumbered.  Returns the night, its counts, its source files and the reason.
-        """
-        f = self._f
-        nights = tables.read(f, "nights", ["night", "label", "n_exposures", "n_points"])
+    def _night_row(self, label: str) -> tuple[int, dict[str, Any]]:
+        """The row of ``/nights`` of the night ``label`` and its values; a missing night is an input error."""
+        nights = tables.read(self._f, "nights", ["night", "label", "n_exposures", "n_points", "ingested_utc"])
         hit = np.flatnonzero(nights["label"] == label)
         if hit.size == 0:
             known = ", ".join(nights["label"].tolist()[-5:]) or "none"
-            raise InputError(f"{self.path}: no night '{label}' (nights are evening dates YYYY-MM-DD; latest: {known}); "
+            raise ArchiveError(f"{self.path}: no night '{label}' (nights are evening dates YYYY-MM-DD; latest: {known}); "
                              f"nothing changed")
         i = int(hit[0])
-        night_id = int(nights["night"][i])
+        return int(nights["night"][i]), {k: v[i] for k, v in nights.items()}
+
+    def _remove_night_rows(self, night_id: int) -> list[str]:
+        """Take every row of night ``night_id`` out of every table; return its source file names.
+
+        The row numbers other tables hold into the exposures and sources are renumbered.
+        """
+        f = self._f
         src = tables.read(f, "sources", ["night", "name"])
         names = sorted(set(src["name"][src["night"] == night_id].tolist()))
         remap = {}
@@ -175,14 +181,69 @@ class ArchiveWriter:
         for t in ("raw", "points", "exposures", "sources", "comparisons", "ensembles", "timings", "digests"):
             keep = f[t]["night"][()] != night_id
             tables.keep_rows(f, t, keep, {c: m for c, m in remap.items() if c in TABLES[t]})
-        tables.keep_rows(f, "nights", nights["night"] != night_id)
-        tables.append(f, "removals", {
+        tables.keep_rows(f, "nights", f["nights"]["night"][()] != night_id)
+        return names
+
+    def drop_night(self, label: str, *, reason: str) -> dict[str, Any]:
+        """Take every row of the night ``label`` out and record the removal.
+
+        Returns the night, its counts, its source files and the reason.
+        """
+        night_id, row = self._night_row(label)
+        names = self._remove_night_rows(night_id)
+        tables.append(self._f, "removals", {
             "night": [night_id], "label": [label], "removed_utc": [self.now], "software": [self.software],
-            "n_exposures": [int(nights["n_exposures"][i])], "n_points": [int(nights["n_points"][i])],
+            "n_exposures": [int(row["n_exposures"])], "n_points": [int(row["n_points"])],
             "sources": [", ".join(names)], "reason": [reason],
         })
-        return {"night": label, "n_exposures": int(nights["n_exposures"][i]), "n_points": int(nights["n_points"][i]),
+        return {"night": label, "n_exposures": int(row["n_exposures"]), "n_points": int(row["n_points"]),
                 "sources": names, "reason": reason}
+
+    def replace_reduction(self, red: Any) -> int:
+        """Put a new reduction of a stored night in place of its old one; return the night's number.
+
+        ``red`` (a :class:`varstar.workflows.reduce.NightReduction` of the night's
+        stored raw measurements, labelled as the night) replaces every row the old
+        reduction made; the raw measurements and sources are written back as they
+        were (with their checksums), and the night keeps its number and ingest
+        date.  Its timings, measured on the old reduction, go with it.
+        """
+        night_id, row = self._night_row(red.label)
+        src = tables.read(self._f, "sources", ["night", "name", "sha256"])
+        sha_of = {str(n): str(h) for k, n, h in zip(src["night"], src["name"], src["sha256"]) if int(k) == night_id}
+        self._remove_night_rows(night_id)
+        return self.append_night(red, sha_of, night_id=night_id, ingested_utc=str(row["ingested_utc"]))
+
+    # -- the target description -------------------------------------------------------------
+    def description_in_force(self) -> int:
+        """The number of the target description in force."""
+        return records.description_in_force(self._f)
+
+    def set_description(self, target: Any, note: str, rereduced: Sequence[str]) -> int:
+        """Make ``target`` (a :class:`varstar.target.Target`) the description in force; return its number.
+
+        The earlier versions stay in ``/descriptions``; ``/target`` holds the new
+        text; ``/stars`` gets the new roles, and stars the archive has not known
+        are appended (a star never leaves ``/stars``: its code must keep its meaning).
+        """
+        f = self._f
+        number = tables.n_rows(f, "descriptions")
+        tables.append(f, "descriptions", {
+            "description": [number], "set_utc": [self.now], "software": [self.software], "toml": [target.source_text],
+            "note": [note], "rereduced": [", ".join(rereduced)],
+        })
+        g = f["target"]
+        g.attrs["toml"], g.attrs["name"] = target.source_text, target.name
+        g.attrs["ra_deg"], g.attrs["dec_deg"] = target.ra_deg, target.dec_deg
+        ids = list(tables.read(f, "stars", ["id"])["id"])
+        row_of = {sid: k for k, sid in enumerate(ids)}
+        new = [s for s in target.stars if s.id not in row_of]
+        for s in target.stars:
+            if s.id in row_of:
+                f["stars"]["role"][row_of[s.id]] = s.role
+        if new:
+            tables.append(f, "stars", {"id": [s.id for s in new], "role": [s.role for s in new]})
+        return number
 
     # -- the standard system ----------------------------------------------------------------
     def add_transformation(self, coeffs: Coefficients, max_gap_d: float) -> int:

@@ -293,9 +293,13 @@ def rejection_reason(vt: VariabilityTest, o: int, clip_sigma: float) -> str:
         expected = math.sqrt(float(np.where(st.mask[:, o], st.V[:, o], 0.0).sum()) / n_o * vt.error_scale)
         lp10 = float(vt.logp[o]) / math.log(10.0)
         p_txt = "p<1e-30" if lp10 < -30 else f"p={10.0**lp10:.1e}"
+        # The test weighs each residual by its own error (chi2), so a star can fail it with an rms below the
+        # mean error (large residuals where the errors are small); say the test, not only the two rms.
+        chance = "below 1 in 10^30" if lp10 < -30 else f"{10.0**lp10:.1e}"
         return (
-            f"scatter {rms:.3f} mag vs {expected:.3f} expected "
-            f"(chi2/dof {vt.red[o] / vt.error_scale:.1f}{scale_txt}, {p_txt})"
+            f"scatter about the ensemble {vt.red[o] / vt.error_scale:.1f} times what its errors allow (chi2/dof, "
+            f"each point weighed by its own error{scale_txt}); the chance of that for a constant star is {chance} "
+            f"({p_txt}); rms {rms:.3f} mag against {expected:.3f} from its errors"
         )
     return (
         f"{int(vt.n_clips[o])} of {int(vt.n_points[o])} measurements are outliers beyond "

@@ -80,6 +80,8 @@ def parse_measurements(
     source: str,
     star_ids: Sequence[str],
     columns: Mapping[str, str] | None = None,
+    *,
+    time_format: str = "jd",
 ) -> pd.DataFrame:
     """Parse and validate one measurement table.
 
@@ -93,6 +95,9 @@ def parse_measurements(
         The ids declared in the target description.
     columns
         Optional mapping from varstar's column name to the file's.
+    time_format
+        What the time column holds: ``"jd"`` (default) or ``"mjd"``; the table's
+        ``jd`` is a Julian Date either way.
 
     Returns
     -------
@@ -107,7 +112,7 @@ def parse_measurements(
     InputError
         Naming ``source``, the line and the column of the first problem.
     """
-    return parse_stream(io.BytesIO(data), source, star_ids, columns)
+    return parse_stream(io.BytesIO(data), source, star_ids, columns, time_format=time_format)
 
 
 def parse_stream(
@@ -117,6 +122,7 @@ def parse_stream(
     columns: Mapping[str, str] | None = None,
     *,
     hasher: Any = None,
+    time_format: str = "jd",
 ) -> pd.DataFrame:
     """Parse and validate a measurement table read from a binary stream, piece by piece.
 
@@ -148,7 +154,7 @@ def parse_stream(
         if numbers.size == 0:
             continue
         n_rows += numbers.size
-        part = _parse_piece(body, numbers, plan, source, ids, id_set, cut_line)
+        part = _parse_piece(body, numbers, plan, source, ids, id_set, cut_line, time_format)
         if part is not None:
             found = part.attrs.pop("placeholders", None)
             if found is not None:
@@ -176,7 +182,10 @@ def parse_stream(
     return out
 
 
-def _parse_piece(body: str, numbers: np.ndarray, plan: Header, source: str, ids: list[str], id_set: set[str], cut_line: int | None) -> pd.DataFrame | None:
+def _parse_piece(
+    body: str, numbers: np.ndarray, plan: Header, source: str, ids: list[str], id_set: set[str], cut_line: int | None,
+    time_format: str,
+) -> pd.DataFrame | None:
     """The tidy rows of one piece of data lines (``numbers`` their line numbers), checked row by row; None if it has none."""
     text = plan.placeholder + "\n" + body
     lines_all = np.concatenate([[plan.line], numbers])
@@ -191,13 +200,15 @@ def _parse_piece(body: str, numbers: np.ndarray, plan: Header, source: str, ids:
         df = wide_to_long(df, numbers, source)
         if df.empty:  # no star measured in any row of this piece
             return None
-    return validate_rows(df, source, ids, id_set)
+    return validate_rows(df, source, ids, id_set, time_format)
 
 
 def read_measurement_file(
     path: str | Path,
     star_ids: Sequence[str],
     columns: Mapping[str, str] | None = None,
+    *,
+    time_format: str = "jd",
 ) -> tuple[pd.DataFrame, str]:
     """Read and validate one measurement file, piece by piece; also return the SHA-256 of what was read.
 
@@ -208,7 +219,7 @@ def read_measurement_file(
     h = hashlib.sha256()
     with open_table(p) as fh:
         try:
-            table = parse_stream(fh, str(p), star_ids, columns, hasher=h)
+            table = parse_stream(fh, str(p), star_ids, columns, hasher=h, time_format=time_format)
         except OSError as exc:
             raise read_error(p, exc) from None
     return table, h.hexdigest()

@@ -136,7 +136,8 @@ def _jd_hint(vals: np.ndarray) -> str:
     """A hint for times that look like a reduced or modified JD, else nothing."""
     v = vals[np.isfinite(vals)]
     if v.size and np.median(v) < 100_000:
-        return " (it looks like a reduced or modified JD: give the full Julian Date, e.g. MJD + 2400000.5)"
+        return (" (it looks like a reduced or modified JD: give the full Julian Date, e.g. MJD + 2400000.5, or declare "
+                "an MJD column: ingest --time-format mjd, or [measurements] time_format = \"mjd\" in the target description)")
     return ""
 
 
@@ -181,7 +182,11 @@ def _frame_column(df: pd.DataFrame, jd: np.ndarray, lines: np.ndarray, source: s
     return np.asarray([f"{v:.6f}" for v in uniq], dtype=object)[codes]
 
 
-def validate_rows(df: pd.DataFrame, source: str, ids: list[str], id_set: set[str]) -> pd.DataFrame:
+#: What each declared time format adds to the column to give a Julian Date.
+JD_OFFSETS = {"jd": 0.0, "mjd": 2400000.5}
+
+
+def validate_rows(df: pd.DataFrame, source: str, ids: list[str], id_set: set[str], time_format: str = "jd") -> pd.DataFrame:
     """Check every row on its own (ids, numbers, ranges); the tidy columns but ``source``.
 
     Parameters
@@ -192,6 +197,8 @@ def validate_rows(df: pd.DataFrame, source: str, ids: list[str], id_set: set[str
         The file's name, for messages.
     ids, id_set
         The target's star ids, as a list (for messages) and as a set.
+    time_format
+        ``"jd"`` or ``"mjd"`` (MJD = JD - 2400000.5): what the time column holds.
 
     Returns
     -------
@@ -217,8 +224,8 @@ def validate_rows(df: pd.DataFrame, source: str, ids: list[str], id_set: set[str
         i = int(np.flatnonzero(unknown_u[codes])[0])
         raise fail(source, int(lines[i]), f"unknown star id {shown_cell(star[i])} (the target file lists {listing(ids)})")
 
-    jd = numeric_column(df, "jd", lines, source, allow_empty=False)
-    _check_range(jd, lines, source, "jd", JD_MIN, JD_MAX, _jd_hint(jd))
+    jd = numeric_column(df, "jd", lines, source, allow_empty=False) + JD_OFFSETS[time_format]
+    _check_range(jd, lines, source, "jd", JD_MIN, JD_MAX, _jd_hint(jd) if time_format == "jd" else f" (read as {time_format.upper()})")
     flag = _flag_column(df, lines, source)
     # A measurement the upstream photometry marked bad may lack a magnitude, or hold anything there.
     marked = flag != 0

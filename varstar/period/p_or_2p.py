@@ -168,12 +168,14 @@ def _verdict(period: float, z: float, z_crit: float, cv_p: float, cv_2p: float) 
     if z > z_crit:
         return 2, (
             f"the two halves of the cycle folded at 2P = {2 * period:.6g} d differ: neighbours in the 2P fold "
-            f"predict the points better (mean squared error {cv_2p:.3g} vs {cv_p:.3g} mag^2, z = {z:.1f}); "
+            f"predict the points better (mean squared error {cv_2p:.3g} vs {cv_p:.3g} mag^2, a difference of "
+            f"{z:.1f} standard errors where {z_crit:g} would be needed by chance alone); "
             f"the light curve repeats only after 2P = {2 * period:.6g} d"
         )
     return 1, (
         f"the two halves of the cycle folded at 2P = {2 * period:.6g} d agree within the noise "
-        f"(z = {z:.1f} <= {z_crit:g}): the data support P = {period:.6g} d; for an eclipsing binary with "
+        f"(their difference is {z:.1f} standard errors; {z_crit:g} would show a real one): the data support "
+        f"P = {period:.6g} d; for an eclipsing binary with "
         "equal minima the orbital period may still be 2P"
     )
 

@@ -54,13 +54,16 @@ def check_rivals(report: aliases.AliasReport, t: np.ndarray, y: np.ndarray, dy: 
             continue
         d = (rival.chi2 - best.chi2) / max(best.reduced_chi2, 1e-300)
         settled = bool(d > ALIAS_DCHI2)
+        what = "an unrelated peak" if p.relation == "unrelated" else f"the {p.relation}"
         out.append({
             "period": rival.period, "grid_frequency": p.frequency, "relation": p.relation,
             "source": "rival periodogram peak (refined)", "delta_chi2": d, "settled": settled,
-            "note": (f"the {p.relation} at P={rival.period:.6g} d fits the light curve worse by chi2 {d:.0f} "
-                     f"(with {best.nterms} harmonics): the adopted period is preferred" if settled else
-                     f"the {p.relation} at P={rival.period:.6g} d fits the light curve nearly as well (chi2 worse by "
-                     f"only {d:.1f}): the choice between them is not secure; more nights spread in time would decide"),
+            "note": (f"{what} at P = {rival.period:.6g} d fits the light curve clearly worse (with "
+                     f"{best.nterms} harmonics its chi2 is larger by {d:.0f}, where {ALIAS_DCHI2:g} would already "
+                     f"decide): the adopted period is preferred" if settled else
+                     f"{what} at P = {rival.period:.6g} d fits the light curve nearly as well (its chi2 is "
+                     f"larger by only {d:.1f}, below the {ALIAS_DCHI2:g} that would decide): the choice between them "
+                     f"is not secure; more nights spread in time would decide"),
         })
     return out
 
@@ -90,10 +93,10 @@ def pdm_versus_periodogram(t: np.ndarray, y: np.ndarray, dy: np.ndarray, f_peak:
     candidates.append({
         "period": 1.0 / f_pdm, "source": "PDM minimum (grid value)", "theta": theta_pdm,
         "relation_to_periodogram_peak": rel, "z": z,
-        "note": (f"phase neighbours predict the points better at PDM's period (z = {z:.1f} > {z_crit:g}); "
-                 "this candidate was refined and adopted"
-                 if adopt else f"rejected: not better supported by the phased curve than the periodogram "
-                 f"peak (z = {z:.1f} <= {z_crit:g})"),
+        "note": (f"phase neighbours predict the points better at PDM's period (by {z:.1f} standard errors, more "
+                 f"than the {z_crit:g} chance could give); this candidate was refined and adopted"
+                 if adopt else f"rejected: the phased curve supports it no better than the periodogram peak (by "
+                 f"{z:.1f} standard errors, where {z_crit:g} would be needed)"),
     })
     if not adopt:
         return f_peak

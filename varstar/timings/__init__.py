@@ -45,7 +45,7 @@ from .ephemeris import (
 )
 from .kvw import KweeVanWoerden, kwee_van_woerden
 from .mean_curve import TemplateFit, template_fit
-from .search import ASYMMETRY_PVALUE, DISAGREE_SIGMA, Refusal, Timing, find_timings
+from .search import ASYMMETRY_PVALUE, DISAGREE_SIGMA, Refusal, Timing, disagreements, find_timings
 from .symmetric_polynomial import SymmetricFit, symmetric_fit
 
 __all__ = [
@@ -65,6 +65,7 @@ __all__ = [
     "TemplateFit",
     "Timing",
     "check_coverage",
+    "disagreements",
     "ephemeris_from_table",
     "find_timings",
     "fit_ephemeris",

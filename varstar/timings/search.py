@@ -25,10 +25,13 @@ from .ephemeris import Ephemeris, predict_extrema
 from .estimators import KWEE_VAN_WOERDEN, MEAN_CURVE_TEMPLATE, SYMMETRIC_POLYNOMIAL, estimate
 from .kvw import KweeVanWoerden
 
-__all__ = ["ASYMMETRY_PVALUE", "DISAGREE_SIGMA", "Refusal", "Timing", "find_timings"]
+__all__ = ["ASYMMETRY_PVALUE", "DISAGREE_SIGMA", "MIN_FOR_USUAL_OFFSET", "Refusal", "Timing", "disagreements", "find_timings"]
 
 #: Two estimates of one time "disagree" beyond this many combined standard errors.
 DISAGREE_SIGMA = 3.0
+#: How many timings of one band, type and pair of methods give the usual offset between the two
+#: estimates (their median difference); with fewer, the estimates are compared as they are (our choice).
+MIN_FOR_USUAL_OFFSET = 3
 #: A timing gets an asymmetry note when Kwee & van Woerden's asymmetry p-value is below this
 #: (about 0 of 300 symmetric simulated minima reach it; a skewed maximum reaches 1e-100).
 ASYMMETRY_PVALUE = 1e-3
@@ -284,9 +287,77 @@ def _estimates(
 def _asymmetry_note(kvw: KweeVanWoerden, main_method: str) -> str:
     """What a timing says when Kwee & van Woerden finds that the branches are not mirror images."""
     if main_method == KWEE_VAN_WOERDEN:
-        return (f"the branches are not mirror images (S_min is {kvw.asymmetry:.1f} times what the magnitude "
-                "errors explain): a symmetric method times the centre of symmetry of the data, which can differ "
+        return (f"the rising and falling branches are not mirror images (their mismatch is {kvw.asymmetry:.1f} times "
+                "what the magnitude errors explain): a symmetric method times the centre of symmetry of the data, which can differ "
                 "from the extremum by more than the error; check the light curve or the errors")
-    return (f"the branches are not mirror images (S_min is {kvw.asymmetry:.1f} times what the errors "
-            "explain): the mean-curve template allows for that; the symmetric Kwee & van Woerden value "
+    return (f"the rising and falling branches are not mirror images (their mismatch is {kvw.asymmetry:.1f} times "
+            "what the magnitude errors explain): the mean-curve template allows for that; the symmetric Kwee & van Woerden value "
             "beside it times the centre of symmetry instead")
+
+
+def disagreements(
+    main: np.ndarray,
+    main_err: np.ndarray,
+    check: np.ndarray,
+    check_err: np.ndarray,
+    groups: np.ndarray,
+    sigma: float = DISAGREE_SIGMA,
+    offset_expected: np.ndarray | None = None,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Which timings' two estimates disagree beyond the usual difference between the two methods.
+
+    Two estimators of one extremum can differ by a constant for a given star: on
+    an asymmetric maximum a symmetric method times the centre of symmetry of the
+    branches, not the maximum, and it does so on every night alike.  That
+    difference says nothing about a night; a night whose difference departs from
+    the star's usual one by more than ``sigma`` combined errors does (clouds, a
+    gap, a wrong extremum).  The usual difference is the median over each group
+    (type and the pair of methods, say) that has at least
+    :data:`MIN_FOR_USUAL_OFFSET` finite pairs, else zero.  How far the symmetric
+    method's centre lies from the extremum depends on the night's coverage of
+    the branches, so the group's own spread (1.4826 times the median absolute
+    deviation from the median, a robust standard deviation) joins the two
+    errors in the combined error.
+
+    Parameters
+    ----------
+    main, main_err, check, check_err
+        The two estimates of each timing and their 1-sigma errors (days); a
+        check that is NaN never disagrees.
+    groups
+        A label per timing; timings with the same label share a usual difference.
+    sigma
+        Threshold in combined standard errors.
+    offset_expected
+        Per timing, whether its two methods may differ by a constant (the
+        mean-curve template, which follows an asymmetric extremum, against a
+        symmetric method).  In a group too small to give the usual difference
+        such a timing is not judged (never disagrees); two symmetric methods
+        are compared as they are.
+
+    Returns
+    -------
+    (disagree, usual)
+        A boolean per timing, and the usual difference (main - check, days) it was judged against.
+    """
+    main, main_err, check, check_err = (np.asarray(a, dtype=float) for a in (main, main_err, check, check_err))
+    groups = np.asarray(groups)
+    diff = main - check
+    ok = np.isfinite(diff) & np.isfinite(main_err) & np.isfinite(check_err)
+    usual = np.zeros(diff.size)
+    spread = np.zeros(diff.size)
+    if offset_expected is not None:
+        offset_expected = np.asarray(offset_expected, dtype=bool)
+    for g in np.unique(groups):
+        rows = (groups == g) & ok
+        if rows.sum() < MIN_FOR_USUAL_OFFSET:
+            if offset_expected is not None:
+                ok &= ~((groups == g) & offset_expected)
+        else:
+            med = float(np.median(diff[rows]))
+            usual[groups == g] = med
+            spread[groups == g] = 1.4826 * float(np.median(np.abs(diff[rows] - med)))
+    with np.errstate(invalid="ignore"):
+        combined = np.sqrt(main_err**2 + check_err**2 + spread**2)
+        disagree = ok & (np.abs(diff - usual) > sigma * combined)
+    return disagree, usual

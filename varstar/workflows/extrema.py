@@ -16,6 +16,8 @@ import pandas as pd
 
 from ..errors import ArchiveError, InputError, VarstarError
 from ..results import Result, plain
+from ..timings.estimators import MEAN_CURVE_TEMPLATE
+from ..timings.search import DISAGREE_SIGMA
 from .periods import ANALYSIS_COLUMNS
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -58,6 +60,11 @@ class PredictResult(Result):
     min_altitude_deg: float
     max_sun_altitude_deg: float
     events: list[dict[str, Any]]
+
+
+def _ephemeris_command(path: Any) -> str:
+    return (f"varstar edit-target {path} --set 'ephemeris={{epoch = BJD_TDB, period = DAYS, kind = \"minimum\"}}' "
+            f"(or kind = \"maximum\"; 'varstar period {path}' finds the period)")
 
 
 def active_ephemeris(archive: ArchiveStore) -> tuple[int | None, Any]:
@@ -132,8 +139,47 @@ def _time_nights(
     return found, refused
 
 
-def _listing(before: pd.DataFrame, new: list[Any], cycles: np.ndarray, oc: np.ndarray, note: str) -> list[dict[str, Any]]:
-    """Every timing, stored and new, with its cycle and O - C, in time order."""
+def _judge_disagreements(before: pd.DataFrame, new: list[Any]) -> tuple[list[Any], np.ndarray]:
+    """Whether each timing (stored, then new) disagrees with its second estimate beyond the usual difference.
+
+    :func:`varstar.timings.disagreements` over all of them, grouped by band, type
+    and the pair of methods; the new timings get that verdict and a note saying
+    it in place of their own night's (which could not know the usual difference).
+    """
+    import dataclasses
+
+    from ..timings import disagreements
+
+    def key(band: Any, kind: Any, method: Any, check: Any) -> str:
+        # not by band: the methods' difference comes from the shape of the extremum, alike in every band,
+        # and a season has few timings per band
+        return f"{kind}|{method}|{check}"
+
+    groups = [key(r.band, r.type, r.method, r.check_method) for r in before.itertuples()]
+    groups += [key(t.band, t.type, t.method, t.check_method) for t in new]
+    col = lambda name: np.concatenate([before[name].to_numpy(float), [getattr(t, name) for t in new]])  # noqa: E731
+    methods = [(r.method, r.check_method) for r in before.itertuples()] + [(t.method, t.check_method) for t in new]
+    biased = np.array([MEAN_CURVE_TEMPLATE in pair and len(set(pair)) == 2 for pair in methods], dtype=bool)
+    disagree, usual = disagreements(col("bjd_tdb"), col("err"), col("check_bjd_tdb"), col("check_err"),
+                                    np.asarray(groups, dtype=object), offset_expected=biased)
+    judged = []
+    for k, t in enumerate(new, start=len(before)):
+        notes = [x for x in t.note.split("; ") if x and not x.startswith("the two estimates differ by")]
+        if disagree[k]:
+            diff = (t.bjd_tdb - t.check_bjd_tdb) * 1440.0
+            notes.insert(0, f"the two estimates differ by {diff:+.1f} min where they usually differ by "
+                            f"{usual[k] * 1440.0:+.1f} min: more than {DISAGREE_SIGMA:g} combined errors from that; "
+                            f"the data of this extremum may be disturbed")
+        judged.append(dataclasses.replace(t, disagree=bool(disagree[k]), note="; ".join(notes)))
+    return judged, disagree
+
+
+def _listing(
+    before: pd.DataFrame, new: list[Any], cycles: np.ndarray, oc: np.ndarray, note: str, disagree: np.ndarray,
+    in_fit: np.ndarray,
+) -> list[dict[str, Any]]:
+    """Every timing, stored and new, with its cycle and O - C, in time order; ``disagree`` as judged now and
+    whether the ephemeris fit used it (``in_fit``)."""
     listing = []
     stored_rows = list(before.itertuples())
     for i in range(cycles.size):
@@ -149,7 +195,7 @@ def _listing(before: pd.DataFrame, new: list[Any], cycles: np.ndarray, oc: np.nd
                  "night": t.night, "check_method": t.check_method, "check_bjd_tdb": t.check_bjd_tdb,
                  "check_err": t.check_err, "disagree": bool(t.disagree), "n_points": int(t.n_points),
                  "note": "; ".join(x for x in (t.note, note) if x), "new": True}
-        d.update(cycle=float(cycles[i]), o_minus_c=float(oc[i]))
+        d.update(cycle=float(cycles[i]), o_minus_c=float(oc[i]), disagree=bool(disagree[i]), in_fit=bool(in_fit[i]))
         listing.append(d)
     listing.sort(key=lambda d: d["bjd_tdb"])
     return listing
@@ -164,6 +210,7 @@ def timings_of_archive(
     note: str = "",
     store: bool = True,
     update: bool = False,
+    include_disagreeing: bool = False,
     seed: int = 0,
     timeout_s: float = 30.0,
 ) -> TimingsResult:
@@ -178,14 +225,18 @@ def timings_of_archive(
     ephemeris becomes the archive's new ephemeris (the old ones are kept).
     Everything is written in one atomic change; nothing is written when no
     extremum can be timed.
+
+    A timing whose two estimates disagree beyond the usual difference between
+    the two methods for this star (:func:`varstar.timings.disagreements`) is
+    listed, marked and left out of the ephemeris fit, unless
+    ``include_disagreeing`` is given.
     """
     from ..timings import fit_ephemeris, o_minus_c
 
     eph_no, eph = active_ephemeris(archive)
     if eph is None:
         raise InputError(
-            f"{archive.path}: no ephemeris: add an [ephemeris] table (epoch = BJD_TDB, period = days, "
-            f"kind = \"minimum\" or \"maximum\") to the target description"
+            f"{archive.path}: no ephemeris: give one with {_ephemeris_command(archive.path)}"
         )
     found, refused = _time_nights(archive, eph, band=band, kind=kind, night=night, seed=seed)
     before = archive.timings()
@@ -205,16 +256,27 @@ def timings_of_archive(
     times = np.concatenate([before["bjd_tdb"].to_numpy(float), [t.bjd_tdb for t in new]])
     errs = np.concatenate([before["err"].to_numpy(float), [t.err for t in new]])
     cycles, oc = o_minus_c(times, eph, secondary_allowed=eph.kind == "minimum")
+    new, disagree = _judge_disagreements(before, new)
+    use = np.ones(times.size, dtype=bool) if include_disagreeing else ~disagree
     fit, fit_note = None, ""
-    n_cycles = int(np.unique(cycles).size)
+    n_cycles = int(np.unique(cycles[use]).size)
     if n_cycles >= 2:
-        fit = fit_ephemeris(cycles, times, errs, quadratic="auto", kind=eph.kind)
+        fit = fit_ephemeris(cycles[use], times[use], errs[use], quadratic="auto", kind=eph.kind)
     else:  # one night's B and V timings of one extremum: O - C, but no new ephemeris
-        fit_note = (f"no ephemeris fit: {times.size} timing{'s' if times.size != 1 else ''} at {n_cycles} cycle; "
+        n_use = int(use.sum())
+        fit_note = (f"no ephemeris fit: {n_use} timing{'s' if n_use != 1 else ''} at {n_cycles} cycle; "
                     "a fit needs timings at 2 or more distinct cycles")
+    if disagree.any():
+        nights = sorted({str(x) for x in np.concatenate([before["night"].to_numpy(object), [t.night for t in new]])[disagree]})
+        said = (f"{int(disagree.sum())} timing{'s' if disagree.sum() != 1 else ''} whose two estimates disagree beyond "
+                f"the usual difference between the methods (night{'s' if len(nights) != 1 else ''} {', '.join(nights)})")
+        said += " are in the fit (--include-disagreeing)" if include_disagreeing else \
+            " left out of the fit; --include-disagreeing puts them in"
+        fit_note = "; ".join(x for x in (fit_note, said) if x)
     if update and fit is None:
+        n_use = int(use.sum())
         raise InputError(f"{archive.path}: --update needs timings at 2 or more distinct cycles; there "
-                         f"{'are' if times.size != 1 else 'is'} {times.size} at {n_cycles}; nothing stored")
+                         f"{'are' if n_use != 1 else 'is'} {n_use} usable at {n_cycles}; nothing stored")
 
     numbers: dict[str, Any] = {"timings": [], "ephemeris": None}
     if store and (new or update):
@@ -232,7 +294,7 @@ def timings_of_archive(
                 numbers["ephemeris"] = w.append_ephemeris(
                     fit.to_ephemeris(), f"fit of {fit.n_timings} timings ({fit.model})", fit, fit.note)
 
-    listing = _listing(before, new, cycles, oc, note)
+    listing = _listing(before, new, cycles, oc, note, disagree, use & (fit is not None))
     return TimingsResult(**plain({
         "archive": str(archive.path),
         "ephemeris": dict(eph.to_dict(), entry=eph_no),
@@ -268,7 +330,7 @@ def predict_of_archive(
 
     _, eph = active_ephemeris(archive)
     if eph is None:
-        raise InputError(f"{archive.path}: no ephemeris to predict from: add an [ephemeris] table to the target description")
+        raise InputError(f"{archive.path}: no ephemeris to predict from: give one with {_ephemeris_command(archive.path)}")
     j0, j1 = parse_utc(start, what="--from"), parse_utc(end, what="--to")
     if j1 <= j0:
         raise InputError(f"--to {end} must be later than --from {start}")

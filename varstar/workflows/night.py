@@ -13,14 +13,16 @@ from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
-from ..errors import InputError
+from ..errors import ArchiveError, InputError
 from ..measurements import file_sha256, is_regular_file, read_measurement_file
 from ..results import Result
-from .reduce import NightReduction, reduce_night, settings_from_target, split_nights
+from ..target import time_declaration
+from .reduce import NightReduction, declared_times, exclude_command, reduce_night, settings_from_target, split_nights
 from .standard import apply_to_reduction
 
 if TYPE_CHECKING:  # pragma: no cover
     from ..ensemble import EnsembleSettings
+    from ..target import Target
 
 
 @dataclass(frozen=True)
@@ -47,7 +49,8 @@ class RemovalResult(Result):
 
 
 def _read_new_files(
-    files: Sequence[str | Path], star_ids: Sequence[str], columns: Mapping[str, str] | None, known: set[str], replace: bool
+    files: Sequence[str | Path], star_ids: Sequence[str], columns: Mapping[str, str] | None, known: set[str],
+    replace: bool, time_format: str = "jd",
 ) -> tuple[list[tuple[Path, pd.DataFrame, str]], list[dict[str, str]]]:
     """Read the files not stored yet: ``(path, table, sha256)`` each, and the ones skipped with why."""
     skipped: list[dict[str, str]] = []
@@ -60,7 +63,7 @@ def _read_new_files(
         if h is not None and (h in seen_here or (h in known and not replace)):
             skipped.append({"file": str(p), "sha256": h, "why": "already ingested (same content)"})
             continue
-        t, h_read = read_measurement_file(p, star_ids, columns)
+        t, h_read = read_measurement_file(p, star_ids, columns, time_format=time_format)
         if h is not None and h_read != h:
             raise InputError(f"{p}: the file changed while it was being read; nothing was written, ingest again")
         if h_read in seen_here or (h_read in known and not replace):
@@ -80,6 +83,9 @@ def ingest(
     timeout_s: float = 30.0,
     replace: bool = False,
     accept_unusual: bool = False,
+    time_format: str | None = None,
+    time_system: str | None = None,
+    time_point: str | None = None,
 ) -> IngestResult:
     """Reduce measurement files and add them to an archive, all or nothing.
 
@@ -99,6 +105,13 @@ def ingest(
     refused with the reasons, unless ``accept_unusual`` is given; the reasons are
     then recorded in the night's report.
 
+    The time column is JD(UTC) at mid-exposure unless declared otherwise, by
+    ``[measurements]`` in the target description or by ``time_format`` (``"jd"``,
+    ``"mjd"``), ``time_system`` (``"utc"``, ``"hjd_utc"``, ``"bjd_tdb"``) and
+    ``time_point`` (``"mid"``, ``"start"``, ``"end"``: then every row needs its
+    ``exptime``); the archive stores JD(UTC) at mid-exposure
+    (:func:`varstar.workflows.reduce.declared_times`).
+
     A regular file is hashed first (read in bounded blocks) and then read and
     checked piece by piece (:func:`varstar.measurements.read_measurement_file`),
     which stops at the first fault; a pipe is read once.
@@ -109,7 +122,8 @@ def ingest(
     target = arch.target
     if not files:
         raise InputError("no measurement files given")
-    parsed, skipped = _read_new_files(files, target.star_ids, columns, arch.source_hashes(), replace)
+    decl = time_declaration(target, time_format=time_format, time_system=time_system, time_point=time_point)
+    parsed, skipped = _read_new_files(files, target.star_ids, columns, arch.source_hashes(), replace, decl["time_format"])
     if not parsed:
         return IngestResult(str(arch.path), (), tuple(skipped))
     settings = settings or settings_from_target(target)
@@ -119,6 +133,7 @@ def ingest(
     table = pd.concat([t for _, t, _ in parsed], ignore_index=True)
     # what the reader noted about each file (placeholders flagged, delimiter, ...): concat drops it
     table.attrs["warnings"] = [w for _, t, _ in parsed for w in t.attrs.get("warnings", [])]
+    table = declared_times(target, table, decl)
     nights = split_nights(target, table)
     stored = sorted(set(nights) & set(arch.nights()["night"]))
     if stored and not replace:
@@ -131,7 +146,10 @@ def ingest(
         )
     reductions = [reduce_night(target, t, settings, label=lab, accept_unusual=accept_unusual)
                   for lab, t in sorted(nights.items())]
-    _add_history_notes(arch.comparisons(last_nights=HISTORY_NIGHTS), reductions)
+    description = arch.description_in_force()
+    for red in reductions:
+        red.report["description"] = description  # which version of the target description this reduction used
+    _add_history_notes(arch.comparisons(last_nights=HISTORY_NIGHTS), reductions, arch.path, target)
     active = arch.active_transformation()
     if active is not None:
         for red in reductions:
@@ -149,6 +167,9 @@ def ingest(
                 raise InputError(f"{arch.path}: another process ingested one of these nights meanwhile; nothing was written")
         elif w.source_hashes_outside(set(nights)) & set(sha_of.values()):
             raise InputError(f"{arch.path}: some of these files are stored with another night; nothing was written")
+        if w.description_in_force() != description:
+            raise InputError(f"{arch.path}: another process changed the target description meanwhile; nothing was "
+                             f"written, ingest again")
         now_active = w.active_transformation()
         if (now_active and now_active[0]) != (active and active[0]):
             raise InputError(f"{arch.path}: another process changed the transformation meanwhile; nothing was written, ingest again")
@@ -165,7 +186,7 @@ def ingest(
 HISTORY_NIGHTS = 100
 
 
-def _add_history_notes(history: pd.DataFrame, reductions: Sequence[NightReduction]) -> None:
+def _add_history_notes(history: pd.DataFrame, reductions: Sequence[NightReduction], archive: Path, target: Target) -> None:
     """Warn when a comparison star kept tonight was found variable on earlier nights.
 
     A slowly varying comparison star may pass one night's test (near an
@@ -184,7 +205,7 @@ def _add_history_notes(history: pd.DataFrame, reductions: Sequence[NightReductio
                 red.report["warnings"].append(
                     f"comparison star {star} passed tonight's test but was found variable on {len(earlier)} earlier "
                     f"night(s) (latest: {', '.join(sorted(earlier)[-3:])}); if it is variable, keep it out of every ensemble "
-                    f"with [reduction] exclude = [\"{star}\"] in the target file"
+                    f"with: {exclude_command(archive, target, star)}"
                 )
         for r in red.comparisons.itertuples():
             if r.status == "variable":
@@ -203,6 +224,10 @@ def remove_night(archive_path: str | Path, label: str, *, reason: str = "", time
     from ..archive import open_archive
 
     arch = open_archive(archive_path)
+    known = arch.nights()["night"].tolist()
+    if label not in known:  # said before any writer starts (the writer checks again under its lock)
+        raise ArchiveError(f"{arch.path}: no night '{label}' (nights are evening dates YYYY-MM-DD; latest: "
+                           f"{', '.join(known[-5:]) or 'none'}); nothing changed")
     with arch.writing(timeout_s=timeout_s) as w:
         record = w.drop_night(label, reason=reason)
     return RemovalResult(archive=str(arch.path), **{**record, "sources": tuple(record["sources"])})

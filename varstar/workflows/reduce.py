@@ -9,6 +9,7 @@ quality (:mod:`varstar.quality`) and writes the night's report.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
@@ -81,6 +82,24 @@ def excluded_stars(target: Target) -> tuple[str, ...]:
     return reduction_options(target)[1]
 
 
+def _first_comparison(target: Target) -> str:
+    comps = target.stars_with_role("comparison")
+    return comps[0].id if comps else "ID"
+
+
+def edit_command(archive: Any, key: str, value: Any) -> str:
+    """The command that sets one key of an archive's target description (what advice names)."""
+    import json
+
+    shown = json.dumps(value) if not isinstance(value, float) else repr(value)
+    return f"varstar edit-target {archive or 'ARCHIVE'} --set '{key}={shown}'"
+
+
+def exclude_command(archive: Any, target: Target, star: str) -> str:
+    """The command that keeps ``star`` out of every ensemble (the stars excluded so far, plus it)."""
+    return edit_command(archive, "reduction.exclude", [*excluded_stars(target), star])
+
+
 def split_nights(target: Target, table: pd.DataFrame) -> dict[str, pd.DataFrame]:
     """Split a measurement table into nights (evening date at the site)."""
     labels = night_label(table["jd"].to_numpy(), target.site.longitude_deg)
@@ -95,6 +114,65 @@ def sources_of(table: pd.DataFrame, rows: np.ndarray | None = None) -> str:
     return shown + (f" and {len(names) - 5} more file(s)" if len(names) > 5 else "")
 
 
+def declared_times(target: Target, table: pd.DataFrame, declaration: Mapping[str, str]) -> pd.DataFrame:
+    """The table with its times as JD(UTC) at mid-exposure, from the declared system and point.
+
+    ``declaration`` is :func:`varstar.target.time_declaration` (the format, JD or
+    MJD, was applied when the file was read).  HJD(UTC) and BJD_TDB are turned
+    back into JD(UTC) for the target and site of ``target``
+    (:func:`varstar.timescale.to_jd_utc`); a time at the start (end) of an
+    exposure moves by half its exposure time, which every row then needs.  A
+    declared time column is said in the night's warnings.
+    """
+    from ..timescale import to_jd_utc
+
+    system, point = declaration["time_system"], declaration["time_point"]
+    if system == "utc" and point == "mid":
+        return table
+    jd = table["jd"].to_numpy(dtype=float)
+    if point != "mid":
+        exp = table["exptime_s"].to_numpy(dtype=float)
+        bad = ~np.isfinite(exp)
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise InputError(
+                f"{table['source'].iloc[i]}, line {int(table['line'].iloc[i])}: the times are declared as the {point} "
+                f"of each exposure, so every row needs its exposure time (column exptime), and this one has none"
+            )
+        jd = jd + (0.5 if point == "start" else -0.5) * exp / 86400.0
+    jd = to_jd_utc(jd, system, target.ra_deg, target.dec_deg, target.site)
+    out = table.assign(jd=jd)
+    names = {"utc": "JD(UTC)", "hjd_utc": "HJD(UTC)", "bjd_tdb": "BJD_TDB"}
+    out.attrs["warnings"] = [*table.attrs.get("warnings", []),
+                             f"times of {sources_of(table)} read as {declaration['time_format'].upper()} "
+                             f"{names[system]} at the {point} of each exposure; stored as JD(UTC) at mid-exposure"]
+    return out
+
+
+def band_names(target: Target, table: pd.DataFrame) -> pd.DataFrame:
+    """The table with its band names spelled as the target description spells them.
+
+    ``v`` and ``V`` are one band unless the description itself has both (then
+    case tells them apart: a Stromgren v is not a Johnson V).  A renamed band
+    is said in the night's warnings.
+    """
+    have = target.catalog_bands()
+    by_fold: dict[str, list[str]] = {}
+    for b in have:
+        by_fold.setdefault(b.casefold(), []).append(b)
+    rename = {}
+    for band in pd.unique(table["band"]):
+        same = by_fold.get(str(band).casefold(), [])
+        if band not in have and len(same) == 1:
+            rename[band] = same[0]
+    if not rename:
+        return table
+    out = table.assign(band=table["band"].replace(rename))
+    out.attrs["warnings"] = [*table.attrs.get("warnings", []), *(
+        f"band '{a}' of {sources_of(table)} read as '{b}', the target description's name for it" for a, b in rename.items())]
+    return out
+
+
 def _check_bands(target: Target, table: pd.DataFrame) -> None:
     have = target.catalog_bands()
     for band in pd.unique(table["band"]):
@@ -103,7 +181,9 @@ def _check_bands(target: Target, table: pd.DataFrame) -> None:
             src, line = rows["source"].iloc[0], int(rows["line"].iloc[0])
             raise InputError(
                 f"{src}, line {line}: band '{band}' has no catalogue magnitude for any comparison star in "
-                f"{target.source}; add '{band} = ...' to the comparison stars there, or leave this band out"
+                f"{target.source}; give the comparison stars their {band} magnitudes (for an archive: "
+                f"varstar edit-target ARCHIVE --set stars.{_first_comparison(target)}.{band}=MAG, one --set per star), "
+                f"or leave this band out"
             )
 
 
@@ -281,7 +361,7 @@ def _comparison_rows(band: str, sol: Any, mean_err: np.ndarray, stars: _NightSta
             "band": band,
             "star": sid,
             "status": "excluded" if excluded else status,
-            "reason": "excluded by [reduction] exclude in the target file" if excluded else reason,
+            "reason": "excluded by the target description ([reduction] exclude)" if excluded else reason,
             **{key: float(v) for key, v in zip(("offset", "excess", "chi2_dof", "tie_weight", "mean_err"), values)},
         })
     return out
@@ -355,6 +435,7 @@ def reduce_night(
     if table.empty:
         raise InputError("no measurements to reduce")
     settings = settings or settings_from_target(target)
+    table = band_names(target, table)
     _check_bands(target, table)
     if label is None:
         label = str(night_label(table["jd"].to_numpy()[:1], target.site.longitude_deg)[0])
@@ -405,12 +486,13 @@ def reduce_night(
         if no_err:
             warnings.append(
                 f"{', '.join(no_err)}: no catalogue error in {band}; {CATALOGUE_ERR_ASSUMED:.3f} mag assumed for "
-                f"{'each' if len(no_err) > 1 else 'it'} in the calibration error (add {band}_err = ... beside "
-                f"{band} = ... in the target file)"
+                f"{'each' if len(no_err) > 1 else 'it'} in the calibration error (give the catalogue's errors: "
+                f"varstar edit-target ARCHIVE --set stars.{no_err[0]}.{band}_err=ERR, one --set per star)"
             )
         summary = sol.to_dict()
-        for entry in summary["stars"]:  # the index of each star in the target file, as before
-            entry["index"] = int(stars.measured[entry["index"]])
+        for k, entry in enumerate(summary["stars"]):  # each star by its id (and its place in the target file)
+            i = int(stars.measured[entry["index"]])
+            summary["stars"][k] = {"star": target.stars[i].id, **entry, "index": i}
         band_reports[band] = {"ensemble": summary}
 
     exposures = pd.DataFrame({
