@@ -271,3 +271,16 @@ def test_the_warnings_of_each_file_reach_the_report_when_several_files_are_inges
     (rep,) = res.nights
     said = [w for w in rep["warnings"] if "placeholder" in w]
     assert len(said) == 1 and "night-V.csv" in said[0], rep["warnings"]
+
+
+def test_diagnostic_columns_of_measured_frames_are_read_past():
+    # What 'varstar measure' writes beside each measurement (why it is flagged, FWHM, sky, peak, position)
+    # does not change what is read; an unknown column is still refused, and in any case the names fold.
+    plain = f"jd,band,star,mag,mag_err,flag\n{T0},V,V1,-7.1,0.01,0\n{T0},V,C1,-9.2,0.01,0\n{T0},V,C2,-8.0,0.01,2\n"
+    rich = ("jd,band,star,mag,mag_err,flag,flag_reason,FWHM_px,sky,peak,x,y\n"
+            f"{T0},V,V1,-7.1,0.01,0,,3.1,120.5,5000,10.5,20.25\n"
+            f"{T0},V,C1,-9.2,0.01,0,,3.1,121.0,9000,40.0,60.0\n"
+            f"{T0},V,C2,-8.0,0.01,2,\"saturated: peak 65535 ADU\",3.1,119.0,65535,80.0,10.0\n")
+    assert parse(rich).equals(parse(plain))
+    with pytest.raises(InputError, match="unknown column 'seeing'.*read past: flag_reason"):
+        parse(plain.replace("flag\n", "flag,seeing\n", 1).replace(",0\n", ",0,1\n").replace(",2\n", ",2,1\n"))

@@ -11,6 +11,7 @@ are kept verbatim in :attr:`Target.extra` and in the original text.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import re
 from dataclasses import dataclass, field
@@ -22,7 +23,7 @@ from .inputs import finite_number, id_problem, load_toml, printable, read_toml_t
 
 ROLES = ("target", "comparison", "check")
 _KNOWN_TABLES = ("target", "site", "stars")
-_STAR_KEYS = ("id", "role", "name", "notes")
+_STAR_KEYS = ("id", "role", "name", "notes", "ra", "dec")
 _BAND_RE = re.compile(r"^[A-Za-z][A-Za-z0-9']{0,7}$")
 
 
@@ -43,6 +44,10 @@ class Star:
     role: str
     catalog: Mapping[str, float] = field(default_factory=dict)
     catalog_err: Mapping[str, float] = field(default_factory=dict)
+    #: ICRS position in degrees (``ra``, ``dec`` in its ``[[stars]]`` table; the target's defaults to
+    #: ``[target]``); None where not given.  Needed to measure the star on FITS frames.
+    ra_deg: float | None = None
+    dec_deg: float | None = None
 
 
 @dataclass(frozen=True)
@@ -93,7 +98,8 @@ class Target:
                 "elevation_m": self.site.elevation_m,
             },
             "stars": [
-                {"id": s.id, "role": s.role, "catalog": dict(s.catalog), "catalog_err": dict(s.catalog_err)}
+                {"id": s.id, "role": s.role, "catalog": dict(s.catalog), "catalog_err": dict(s.catalog_err),
+                 **({"ra_deg": s.ra_deg, "dec_deg": s.dec_deg} if s.ra_deg is not None else {})}
                 for s in self.stars
             ],
         }
@@ -184,11 +190,14 @@ def _parse_stars(stars_t: list, source: str, roles: tuple[str, ...]) -> list[Sta
                 if not -30 < val < 40:
                     raise InputError(f"{w}.{key}: magnitude {val} is not plausible")
                 cat[band] = float(val)
+        pos = [parse_angle(st[k], kind=k, where=f"{w}.{k}") if k in st else None for k in ("ra", "dec")]
+        if (pos[0] is None) != (pos[1] is None):
+            raise InputError(f"{w}: give both 'ra' and 'dec', or neither")
         orphan = set(cat_err) - set(cat)
         if orphan:
             b = sorted(orphan)[0]
             raise InputError(f"{w}: '{b}_err' given without '{b}'")
-        stars.append(Star(sid, role, cat, cat_err))
+        stars.append(Star(sid, role, cat, cat_err, pos[0], pos[1]))
     return stars
 
 
@@ -240,6 +249,9 @@ def parse_target(text: str, source: str = "<string>") -> Target:
     n_target = sum(s.role == "target" for s in stars)
     if n_target != 1:
         raise InputError(f"{source}: exactly one star must have role = \"target\", found {n_target}")
+    # the target star is where [target] says, unless its own table gives a position
+    stars = [dataclasses.replace(s, ra_deg=ra, dec_deg=dec) if s.role == "target" and s.ra_deg is None else s
+             for s in stars]
     comps = [s for s in stars if s.role == "comparison"]
     if len(comps) < 2:
         raise InputError(f"{source}: at least two [[stars]] with role = \"comparison\" are needed, found {len(comps)}")
@@ -356,7 +368,9 @@ def time_declaration(target: Target, **given: str | None) -> dict[str, str]:
 
 
 def check_tables(target: Target) -> None:
-    """Check the optional tables other modules read later (``[reduction]``, ``[measurements]``, ``[ephemeris]``).
+    """Check the optional tables other modules read later (``[reduction]``, ``[measurements]``, ``[ephemeris]``;
+    ``[photometry]`` is checked by :func:`varstar.workflows.frames.check_photometry`, which the commands that
+    store or use a description call).
 
     :func:`parse_target` keeps them verbatim; a file being read for a new
     archive is checked here as well, so that ``init`` refuses what ``ingest`` or

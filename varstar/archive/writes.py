@@ -105,7 +105,7 @@ class ArchiveWriter:
         name, exposures numbered from 0 within the night), with its ``label``
         and ``report``.  ``sha_of`` maps each source name in ``red.raw["source"]``
         to its file's SHA-256.  ``night_id`` and ``ingested_utc`` are given by
-        :meth:`replace_reduction` only (a night stored again keeps them).
+        :meth:`replace_reductions` only (a night stored again keeps them).
         """
         f = self._f
         stars = pd.Index(tables.read(f, "stars", ["id"])["id"])
@@ -166,22 +166,23 @@ class ArchiveWriter:
         i = int(hit[0])
         return int(nights["night"][i]), {k: v[i] for k, v in nights.items()}
 
-    def _remove_night_rows(self, night_id: int) -> list[str]:
-        """Take every row of night ``night_id`` out of every table; return its source file names.
+    def _remove_night_rows(self, night_ids: Sequence[int]) -> list[str]:
+        """Take every row of the nights ``night_ids`` out of every table, in one pass; return their source file names.
 
         The row numbers other tables hold into the exposures and sources are renumbered.
         """
         f = self._f
+        ids = np.asarray(list(night_ids), dtype=np.int64)
         src = tables.read(f, "sources", ["night", "name"])
-        names = sorted(set(src["name"][src["night"] == night_id].tolist()))
+        names = sorted(set(src["name"][np.isin(src["night"], ids)].tolist()))
         remap = {}
         for ref, col in (("exposures", "exposure"), ("sources", "source")):
-            keep = f[ref]["night"][()] != night_id
+            keep = ~np.isin(f[ref]["night"][()], ids)
             remap[col] = np.cumsum(keep) - 1  # old row -> new row (rows that stay)
         for t in ("raw", "points", "exposures", "sources", "comparisons", "ensembles", "timings", "digests"):
-            keep = f[t]["night"][()] != night_id
+            keep = ~np.isin(f[t]["night"][()], ids)
             tables.keep_rows(f, t, keep, {c: m for c, m in remap.items() if c in TABLES[t]})
-        tables.keep_rows(f, "nights", f["nights"]["night"][()] != night_id)
+        tables.keep_rows(f, "nights", ~np.isin(f["nights"]["night"][()], ids))
         return names
 
     def drop_night(self, label: str, *, reason: str) -> dict[str, Any]:
@@ -190,7 +191,7 @@ class ArchiveWriter:
         Returns the night, its counts, its source files and the reason.
         """
         night_id, row = self._night_row(label)
-        names = self._remove_night_rows(night_id)
+        names = self._remove_night_rows([night_id])
         tables.append(self._f, "removals", {
             "night": [night_id], "label": [label], "removed_utc": [self.now], "software": [self.software],
             "n_exposures": [int(row["n_exposures"])], "n_points": [int(row["n_points"])],
@@ -199,20 +200,26 @@ class ArchiveWriter:
         return {"night": label, "n_exposures": int(row["n_exposures"]), "n_points": int(row["n_points"]),
                 "sources": names, "reason": reason}
 
-    def replace_reduction(self, red: Any) -> int:
-        """Put a new reduction of a stored night in place of its old one; return the night's number.
+    def replace_reductions(self, reductions: Sequence[Any]) -> list[int]:
+        """Put new reductions of stored nights in place of their old ones; return the nights' numbers.
 
-        ``red`` (a :class:`varstar.workflows.reduce.NightReduction` of the night's
-        stored raw measurements, labelled as the night) replaces every row the old
-        reduction made; the raw measurements and sources are written back as they
-        were (with their checksums), and the night keeps its number and ingest
-        date.  Its timings, measured on the old reduction, go with it.
+        Each of ``reductions`` (a :class:`varstar.workflows.reduce.NightReduction`
+        of a night's stored raw measurements, labelled as the night) replaces
+        every row the old reduction made; the raw measurements and sources are
+        written back as they were (with their checksums), and the night keeps
+        its number and ingest date.  Its timings, measured on the old
+        reduction, go with it.  The old rows of all the nights leave in one pass
+        over the tables, so the cost does not grow with the square of their number.
         """
-        night_id, row = self._night_row(red.label)
+        rows = [self._night_row(red.label) for red in reductions]
         src = tables.read(self._f, "sources", ["night", "name", "sha256"])
-        sha_of = {str(n): str(h) for k, n, h in zip(src["night"], src["name"], src["sha256"]) if int(k) == night_id}
-        self._remove_night_rows(night_id)
-        return self.append_night(red, sha_of, night_id=night_id, ingested_utc=str(row["ingested_utc"]))
+        sha = {int(n): {} for n, _ in rows}
+        for k, name, h in zip(src["night"], src["name"], src["sha256"]):
+            if int(k) in sha:
+                sha[int(k)][str(name)] = str(h)
+        self._remove_night_rows([n for n, _ in rows])
+        return [self.append_night(red, sha[n], night_id=n, ingested_utc=str(row["ingested_utc"]))
+                for red, (n, row) in zip(reductions, rows)]
 
     # -- the target description -------------------------------------------------------------
     def description_in_force(self) -> int:

@@ -31,6 +31,9 @@ OPTIONAL = ("airmass", "exptime", "flag", "frame")
 PER_EXPOSURE = ("jd", "band") + OPTIONAL
 #: Every name varstar knows; a header cell equal to one of them but for case is read as it.
 KNOWN = REQUIRED_LONG + OPTIONAL
+#: Columns the long form may carry to explain a measurement (what ``varstar measure`` writes beside
+#: it: why it is flagged, the frame's FWHM, the sky, the peak, the position); read past, not stored.
+DIAGNOSTIC = ("flag_reason", "fwhm_px", "sky", "peak", "x", "y")
 #: Delimiters a header line may use instead of the comma, and how messages name them.
 DELIMITER_NAMES = {",": "commas", ";": "semicolons", "\t": "tabs"}
 
@@ -83,7 +86,7 @@ def _folded(header: list[str], line: int, source: str, id_set: set[str]) -> list
     names = []
     for h in header:
         low = h.lower()
-        if h in KNOWN or low not in KNOWN or h in id_set or (h.endswith("_err") and h[:-4] in id_set):
+        if h in KNOWN or low not in KNOWN + DIAGNOSTIC or h in id_set or (h.endswith("_err") and h[:-4] in id_set):
             names.append(h)
         else:
             names.append(low)
@@ -201,10 +204,11 @@ def plan_header(text: str, line: int, source: str, columns: Mapping[str, str] | 
             raise fail(source, line, f"missing {which} (a long table needs {', '.join(REQUIRED_LONG)}; "
                                      f"a wide table has a column per star instead of 'star', 'mag' and 'mag_err')"
                                      f"{''.join(mapping_hint(c, header, used) for c in missing)}")
-        unknown = [c for c in names if c not in KNOWN]
+        unknown = [c for c in names if c not in KNOWN + DIAGNOSTIC]
         if unknown:
             more = f" and {len(unknown) - 1} more" if len(unknown) > 1 else ""
-            raise fail(source, line, f"unknown column {shown_cell(unknown[0])}{more} (known: {', '.join(KNOWN)}; use a column mapping to rename)")
+            raise fail(source, line, f"unknown column {shown_cell(unknown[0])}{more} (known: {', '.join(KNOWN)}; read "
+                                     f"past: {', '.join(DIAGNOSTIC)}; use a column mapping to rename)")
         return Header(line, tuple(names), True, sep)
     _check_wide(names, line, source, ids, id_set)
     return Header(line, tuple(names), False, sep)

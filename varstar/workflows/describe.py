@@ -27,6 +27,7 @@ import pandas as pd
 from ..errors import InputError, VarstarError
 from ..results import Result
 from ..target import Target, check_tables, parse_target
+from .frames import check_photometry
 
 #: Tables of a description that no night's reduction reads: ``[ephemeris]`` (timings and
 #: predictions) and ``[transformation]`` (read once, when the archive is created).
@@ -336,6 +337,7 @@ def edit_target(
         raise InputError(f"{where}: {exc}; nothing changed") from None
     new = parse_target(new_text, source=where)
     check_tables(new)
+    check_photometry(new)
     missing = [sid for sid in arch.star_ids() if sid not in new.star_ids]
     if missing:
         raise InputError(
@@ -395,8 +397,7 @@ def edit_target(
             if set(w.nights()["label"]) != set(nights["night"]):
                 raise InputError(f"{arch.path}: another process added or removed a night meanwhile; nothing changed, "
                                  f"run the command again")
-            for red in rereduced:
-                w.replace_reduction(red)
+            w.replace_reductions(rereduced)
             got = w.set_description(new, note, labels)
             assert got == number
             if "ephemeris" in new.extra and new.extra.get("ephemeris") != old.extra.get("ephemeris"):
