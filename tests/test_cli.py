@@ -397,6 +397,29 @@ def test_plot_text_and_json(capsys, series, full_archive, tmp_path):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["f.png", "k.svg", "lc.png", "n.png", "v.png"]
 
 
+def test_plot_by_night_and_one_night_with_its_check_stars(capsys, series, full_archive, tmp_path, monkeypatch):
+    import varstar.plots as plots
+
+    drawn = {}
+    for name in ("nights_figure", "lightcurve_figure"):
+        real = getattr(plots, name)
+
+        def spy(*a, _real=real, _name=name, **kw):
+            fig = _real(*a, **kw)
+            drawn[_name] = (kw, fig)
+            return fig
+
+        monkeypatch.setattr(plots, name, spy)
+    ok(capsys, "plot", full_archive.path, "-o", tmp_path / "b.png", "--by-night", "2")
+    kw, fig = drawn["nights_figure"]
+    n_bands = len(set(varstar.open_archive(full_archive.path).lightcurve()["band"]))
+    assert kw["max_nights"] == 2 and len([a for a in fig.axes if a.get_visible()]) == 2 * n_bands
+    ok(capsys, "plot", full_archive.path, "-o", tmp_path / "n.png", "--night", series.clear)
+    kw, fig = drawn["lightcurve_figure"]
+    assert set(kw["checks"]["star"]) == {"K1"} and set(kw["checks"]["night"]) == {series.clear}
+    assert any("check star" in a.get_ylabel() for a in fig.axes)
+
+
 def test_export_text_and_json(capsys, series, full_archive, tmp_path):
     arch = varstar.open_archive(full_archive.path)
     csv = tmp_path / "obs.csv"

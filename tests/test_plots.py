@@ -13,9 +13,11 @@ call it, on the demo's own data (the invented field of ``varstar.simulate``,
 fixed seed, ingested, transformed, period and timings found), and on small
 hand-built inputs with fixed seeds where a case needs a feature the demo lacks
 (a rejected standard star, a rejected comparison star, a night seen in one band
-only, primary and secondary timings).  The tests read the returned Figure's
-artists: panels, series, the plotted numbers, error bars, axis direction and
-limits, labels and legends.
+only, primary and secondary timings, several check stars).  The tests read the
+returned Figure's artists: panels, series, the plotted numbers, error bars, axis
+direction and limits, labels and legends (never one of a single entry), and,
+where the question is whether words can be read, the drawn extents of texts.
+The night-by-night figure has its own file, ``test_plots_nights.py``.
 """
 
 from __future__ import annotations
@@ -40,9 +42,12 @@ from varstar.plots import (
     colour_magnitude_figure,
     lightcurve_figure,
     oc_figure,
+    period_figures,
+    period_text,
     periodogram_figure,
     phased_figure,
     save,
+    timings_figure,
 )
 
 OKABE_ITO = {"#000000", "#e69f00", "#56b4e9", "#009e73", "#f0e442", "#0072b2", "#d55e00", "#cc79a7"}
@@ -341,6 +346,8 @@ def demo(demo_data, demo_archive_path, tmp_path_factory):
         lc=lc, phase=phases(lc["bjd_tdb"].to_numpy(), arch.target), period_eph=colour["ephemeris"]["period"],
         last=last, field=field, track=track, found=found, res=found.result, payload=found.to_dict(), lcp=lcp,
         resid=resid, model=phased_model(found.result), timed=arch.time_extrema(store=False).to_dict(),
+        checks=pd.concat([arch.lightcurve(star=s.id, include_flagged=True) for s in arch.target.stars_with_role("check")],
+                         ignore_index=True),
     )
 
 
@@ -357,16 +364,11 @@ def demo_cmd_figure(demo) -> Figure:
 
 
 def demo_periodogram_figure(demo) -> Figure:
-    res = demo.res
-    return periodogram_figure(res.freq, res.power, best_frequency=res.aliases.best_frequency, fap_levels=res.fap_levels,
-                              peaks=demo.payload["aliases"][:4], theta=res.theta,
-                              title=f"{demo.name}: {demo.star}, {res.method}", ylabel="normalised power")
+    return period_figures(demo.found, f"{demo.name}: {demo.star}")[0]  # as the command line and the demo draw it
 
 
 def demo_phased_figure(demo) -> Figure:
-    res = demo.res
-    return phased_figure(demo.lcp, period=res.period, epoch=res.epoch, model=demo.model, residuals=demo.resid,
-                         title=f"{demo.name}: {demo.star}, P = {res.period:.7f} d")
+    return period_figures(demo.found, f"{demo.name}: {demo.star}")[1]
 
 
 def oc_inputs(timed: dict) -> tuple[list, list, list, list]:
@@ -375,10 +377,7 @@ def oc_inputs(timed: dict) -> tuple[list, list, list, list]:
 
 
 def demo_oc_figure(demo) -> Figure:
-    timed = demo.timed
-    eph = timed["ephemeris"]
-    return oc_figure(*oc_inputs(timed), fit=dict(timed["fit"], reference=eph),
-                     reference=f"T0 = {eph['epoch']:.5f}, P = {eph['period']:.7f} d (BJD_TDB)", title=f"{demo.name}: O − C")
+    return timings_figure(demo.timed, f"{demo.name}: O − C")  # as the command line and the demo draw it
 
 
 # --------------------------------------------------------------------------- the checks themselves
@@ -465,6 +464,124 @@ def test_lightcurve_legend_names_nights_and_flagged_points_of_every_panel():
     assert to_hex(handle.get_colors()[0], keep_alpha=False) == to_hex(v_series[nights[2]].lines[0].get_color())
 
 
+def all_legends(fig) -> list:
+    return list(fig.legends) + [ax.get_legend() for ax in fig.axes if ax.get_legend() is not None]
+
+
+def check_lc(n: int = 30, stars=("K1",), bands=("V",), seed: int = 9, t0: float = 2461295.65,
+             night: str = "2026-09-11") -> pd.DataFrame:
+    """Invented check-star points (seed ``seed``): constant stars with 0.005-0.012 mag errors, the first point
+    of each series flagged."""
+    rng = np.random.default_rng(seed)
+    rows = []
+    for k, s in enumerate(stars):
+        for b in bands:
+            t = t0 + np.sort(rng.uniform(0, 0.25, n))
+            err = rng.uniform(0.005, 0.012, n)
+            mag = 12.6 + 0.4 * k + (0.5 if b == "B" else 0.0) + rng.normal(0, err)
+            for i in range(n):
+                rows.append(dict(bjd_tdb=t[i], jd_utc=t[i] - 4e-3, band=b, star=s, mag=mag[i], mag_err=err[i],
+                                 night=night, quality=1 if i == 0 else 0))
+    return pd.DataFrame(rows).sort_values(["bjd_tdb", "band"]).reset_index(drop=True)
+
+
+def weighted_mean(mag, err) -> float:
+    w = 1.0 / np.asarray(err, float) ** 2
+    return float(np.sum(w * np.asarray(mag, float)) / np.sum(w))
+
+
+def test_one_night_has_no_one_entry_legend_and_names_the_night_in_the_title():
+    lc = make_lc(n_nights=1, n_flagged=0)
+    fig = drawn(lightcurve_figure(lc, title="one night"))
+    assert all_legends(fig) == []  # one night: a legend would say nothing
+    assert fig.axes[0].get_title(loc="right") == "2026-09-11"
+    assert fig.axes[0].get_title(loc="left") == ""  # nothing flagged shown: no note
+    # two nights: the legend is back, and no title names a night
+    two = drawn(lightcurve_figure(make_lc(n_nights=2, n_flagged=0)))
+    assert legend_texts(two.legends[0]) == ["2026-09-11", "2026-09-13"]
+    assert two.axes[0].get_title(loc="right") == ""
+
+
+def test_one_night_with_flagged_points_says_what_the_grey_points_are():
+    lc = make_lc(n_nights=2, n_flagged=3)
+    second = lc[lc["night"] == "2026-09-13"]  # the night with flagged points
+    fig = drawn(lightcurve_figure(second, show_flagged=True))
+    assert all_legends(fig) == []
+    assert fig.axes[0].get_title(loc="left") == "hollow grey: flagged points"
+    assert all("flagged" in series_by_label(ax) for ax in fig.axes)
+    hidden = drawn(lightcurve_figure(second))
+    assert hidden.axes[0].get_title(loc="left") == ""
+
+
+def test_night_figure_draws_check_stars_in_a_panel_of_their_own():
+    lc = make_lc(n_nights=1, n_flagged=0)
+    checks = check_lc(stars=("K1", "K2"), bands=("V", "B"))
+    fig = drawn(lightcurve_figure(lc, title="with checks", checks=checks))
+    assert len(fig.axes) == 3  # B, V, then the check stars
+    *bands_axes, axc = fig.axes
+    assert [ax.get_ylabel() for ax in bands_axes] == ["B (mag)", "V (mag)"]
+    assert axc.get_ylabel() == "check star − its mean (mag)"
+    assert_magnitude_axis(axc)
+    assert axc.get_xlim() == bands_axes[0].get_xlim()  # the same time axis
+    t0 = x_offset(fig)
+    assert fig.axes[-1].get_xlabel() == f"BJD_TDB − {t0:.0f} (d)"
+    series = series_by_label(axc)
+    labels = []
+    for star, band in (("K1", "B"), ("K1", "V"), ("K2", "B"), ("K2", "V")):
+        sub = checks[(checks["star"] == star) & (checks["band"] == band)]
+        good = sub[sub["quality"] == 0]
+        ref = weighted_mean(good["mag"], good["mag_err"])
+        sd = float(np.std(good["mag"] - ref, ddof=1))
+        label = f"{star} {band}: σ = {sd:.3f} mag"
+        labels.append(label)
+        c = series[label]
+        np.testing.assert_allclose(xy(c)[0] + t0, good["bjd_tdb"], atol=1e-9)
+        np.testing.assert_allclose(xy(c)[1], good["mag"] - ref, atol=1e-12)
+        np.testing.assert_allclose(bars(c)[1], good["mag_err"])
+        assert to_hex(c.lines[0].get_color()) in OKABE_ITO
+        assert abs(np.mean(xy(c)[1])) < 0.01  # around its own mean (mag), whatever the star's brightness
+    assert len({(to_hex(series[lab].lines[0].get_color()), series[lab].lines[0].get_marker()) for lab in labels}) == 4
+    assert legend_texts(axc.get_legend()) == labels
+    # the zero line, and no flagged check points unless asked for
+    assert [list(ln.get_ydata()) for ln in axc.lines if ln.get_transform() == axc.get_yaxis_transform()] == [[0.0, 0.0]]
+    assert "flagged" not in series
+    shown = drawn(lightcurve_figure(lc, checks=checks, show_flagged=True))
+    flagged = [c for c in errorbar_series(shown.axes[-1]) if c.get_label() == "flagged"]
+    assert sum(xy(c)[0].size for c in flagged) == 4  # the first point of each star and band
+    assert all(c.lines[0].get_markerfacecolor() == "none" for c in flagged)
+    assert legend_texts(shown.axes[-1].get_legend()) == labels + ["flagged"]  # named once
+    # without checks the figure is as before
+    assert len(lightcurve_figure(lc).axes) == 2
+
+
+def test_one_check_star_is_named_in_the_panel_title_not_a_legend():
+    lc = make_lc(n_nights=1, bands=("V",), n_flagged=0)
+    checks = check_lc(stars=("K1",), bands=("V",))
+    fig = drawn(lightcurve_figure(lc, checks=checks))
+    axc = fig.axes[-1]
+    assert axc.get_legend() is None and all_legends(fig) == []
+    (c,) = errorbar_series(axc)
+    assert axc.get_title(loc="right") == c.get_label() and c.get_label().startswith("K1 V: σ = ")
+
+
+def test_check_panel_of_a_demo_night(demo):
+    last = demo.last
+    lc = demo.lc_all[demo.lc_all["night"] == last]
+    checks = demo.checks[demo.checks["night"] == last]
+    assert set(checks["star"]) == {"K1"} and set(checks["band"]) == {"B", "V"}
+    fig = drawn(lightcurve_figure(lc, title=f"{demo.name}: {demo.star}, night {last}", show_flagged=True, checks=checks))
+    assert len(fig.axes) == 3
+    axc = fig.axes[-1]
+    assert_magnitude_axis(axc)
+    texts = legend_texts(axc.get_legend())
+    assert [t.split(":")[0] for t in texts] == ["K1 B", "K1 V"]
+    # the invented check star is constant: its drawn scatter is that of its errors, a few millimagnitudes
+    for c in errorbar_series(axc):
+        y = xy(c)[1]
+        assert 0.001 < np.std(y) < 0.02 and abs(np.median(y)) < 0.005
+    assert fig.axes[0].get_title(loc="right") == last and not fig.legends
+
+
 # --------------------------------------------------------------------------- transformation coefficients
 
 
@@ -485,18 +602,55 @@ def invented_standard_fit():
                             b_inst, np.full(n, 0.004))
 
 
+def removed_from(label: str) -> float:
+    """The constant an axis label says was taken off its values (``"V − v + 21.3 (mag; constant removed)"`` -> -21.3)."""
+    m = re.search(r" ([−+]) (\d+\.\d) \(mag; constant removed\)$", label)
+    if not m:
+        assert label.endswith(" (mag)"), label
+        return 0.0
+    return float(m.group(2)) * (1.0 if m.group(1) == "−" else -1.0)
+
+
+def boxes_overlap(a, b) -> bool:
+    return a.x0 < b.x1 and b.x0 < a.x1 and a.y0 < b.y1 and b.y0 < a.y1
+
+
+def assert_labels_clear(fig) -> None:
+    """No axis label or title of one panel runs into another panel, its labels, or the figure's title."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    FigureCanvasAgg(fig)
+    fig.canvas.draw()
+    r = fig.canvas.get_renderer()
+    texts = []
+    for k, ax in enumerate(fig.axes):
+        for t in (ax.xaxis.label, ax.yaxis.label, ax.title, ax._left_title, ax._right_title):
+            if t.get_text():
+                texts.append((k, t.get_text(), t.get_window_extent(r)))
+    if fig._suptitle is not None:
+        texts.append((-1, fig._suptitle.get_text(), fig._suptitle.get_window_extent(r)))
+    for i, (ka, ta, a) in enumerate(texts):
+        for kb, tb, b in texts[i + 1:]:
+            assert not boxes_overlap(a, b), (ta, tb)
+        for k, ax in enumerate(fig.axes):
+            if k != ka:
+                assert not boxes_overlap(a, ax.get_window_extent(r)), (ta, k)
+
+
 def check_coefficient_panels(fig, fit) -> None:
     used = np.asarray(fit.used, bool)
-    assert len(fig.axes) == 2
-    panels = ((fit.x_v, fit.y_v, fit.xerr_v, fit.yerr_v, fit.epsilon_v, fit.zeta_v, "ε"),
-              (fit.x_bv, fit.y_bv, fit.xerr_bv, fit.yerr_bv, fit.mu_bv, fit.zeta_bv, "μ"))
-    for ax, (x, y, xe, ye, slope, zero, sym) in zip(fig.axes, panels):
-        x, y, xe, ye = (np.asarray(a, float) for a in (x, y, xe, ye))
+    assert len(fig.axes) == 4  # each fit above its residuals
+    panels = ((fit.x_v, fit.y_v, fit.xerr_v, fit.yerr_v, fit.epsilon_v, fit.zeta_v, fit.resid_v, "ε"),
+              (fit.x_bv, fit.y_bv, fit.xerr_bv, fit.yerr_bv, fit.mu_bv, fit.zeta_bv, fit.resid_bv, "μ"))
+    for ax, axr, (x, y, xe, ye, slope, zero, resid, sym) in zip(fig.axes[:2], fig.axes[2:], panels):
+        x, y, xe, ye, resid = (np.asarray(a, float) for a in (x, y, xe, ye, resid))
+        assert ax.get_xlim() == axr.get_xlim()  # the residuals under their own fit
+        cx, cy = removed_from(axr.get_xlabel()), removed_from(ax.get_ylabel())
         series = series_by_label(ax)
         std = series["standard stars"]
         xs, ys = xy(std)
-        np.testing.assert_allclose(xs, x[used])
-        np.testing.assert_allclose(ys, y[used])
+        np.testing.assert_allclose(xs + cx, x[used])
+        np.testing.assert_allclose(ys + cy, y[used])
         np.testing.assert_allclose(bars(std, "x")[1], xe[used])  # both variables carry errors
         np.testing.assert_allclose(bars(std, "y")[1], ye[used])
         assert to_hex(std.lines[0].get_color()) in OKABE_ITO
@@ -504,26 +658,40 @@ def check_coefficient_panels(fig, fit) -> None:
         (line,) = [ln for ln in ax.lines if ln.get_label().startswith(f"{sym} = ")]
         lx, ly = np.asarray(line.get_xdata(), float), np.asarray(line.get_ydata(), float)
         np.testing.assert_allclose(np.diff(ly) / np.diff(lx), slope, rtol=1e-9)
-        assert lx.min() <= x[used].min() and x[used].max() <= lx.max()
-        off = y[used] - np.interp(x[used], lx, ly)
+        np.testing.assert_allclose(ly + cy, slope * (lx + cx) + zero, atol=1e-9)  # the fit's own intercept
+        assert lx.min() <= xs.min() and xs.max() <= lx.max()
+        off = ys - np.interp(xs, lx, ly)
         assert np.all(np.abs(off) < 5 * np.hypot(ye[used], slope * xe[used]) + 0.05)
+        assert line.get_zorder() > std.lines[0].get_zorder()  # the line over the points
         assert line.get_label().startswith(f"{sym} = {slope:+.4f} ± " if sym == "ε" else f"{sym} = {slope:.4f} ± ")
         # every star named beside its point
         fin = np.isfinite(x) & np.isfinite(y)
         assert sorted(t.get_text() for t in ax.texts) == sorted(np.asarray(fit.star_ids)[fin])
-        assert_view_fits(ax, np.concatenate([x[fin], lx]), np.concatenate([y[fin], ly]), slack=1.5)
+        assert_view_fits(ax, np.concatenate([x[fin] - cx, lx]), np.concatenate([y[fin] - cy, ly]), slack=1.5)
         want = ["standard stars", line.get_label()] + (["rejected"] if (~used & fin).any() else [])
         assert sorted(legend_texts(ax.get_legend())) == sorted(want)
-    x1, y1 = fig.axes[0].get_xlabel(), fig.axes[0].get_ylabel()
-    x2, y2 = fig.axes[1].get_xlabel(), fig.axes[1].get_ylabel()
+        # the residual panel: data minus the fitted line, the fit's own residuals, with both errors projected on y
+        rs = series_by_label(axr)
+        rx, ry = xy(rs["standard stars"])
+        np.testing.assert_allclose(rx + cx, x[used])
+        np.testing.assert_allclose(ry, y[used] - (slope * x[used] + zero), atol=1e-12)
+        np.testing.assert_allclose(ry, resid[used], atol=1e-9)
+        np.testing.assert_allclose(bars(rs["standard stars"])[1], np.hypot(ye[used], slope * xe[used]))
+        assert ("rejected" in rs) == bool((~used & fin).any())
+        assert axr.get_ylabel() == "data − fit (mag)"
+        assert [list(ln.get_ydata()) for ln in axr.lines if ln.get_transform() == axr.get_yaxis_transform()] == [[0.0, 0.0]]
+        assert_view_fits(axr, x[fin] - cx, y[fin] - (slope * x[fin] + zero), yerr=np.hypot(ye, slope * xe)[fin])
+    x1, y1 = fig.axes[2].get_xlabel(), fig.axes[0].get_ylabel()
+    x2, y2 = fig.axes[3].get_xlabel(), fig.axes[1].get_ylabel()
     assert "B − V" in x1 and "V − v" in y1 and "b − v" in x2 and "B − V" in y2
-    assert all(lab.endswith("(mag)") for lab in (x1, y1, x2, y2))
+    assert removed_from(x1) == removed_from(y2) == 0.0  # catalogue colours are drawn as they are
     assert fig.get_suptitle() == f"Transformation coefficients from {fit.n_stars} standard stars"
 
 
 def test_coefficient_figure_of_the_demo_standard_field(demo):
     fig = drawn(coefficient_figure(demo.fit))
     check_coefficient_panels(fig, demo.fit)
+    assert_labels_clear(fig)
 
 
 def test_coefficient_figure_shows_rejected_star_apart():
@@ -533,15 +701,33 @@ def test_coefficient_figure_shows_rejected_star_apart():
     assert abs(fit.epsilon_v - 0.06) < 0.01 and abs(fit.mu_bv - 0.93) < 0.03
     fig = drawn(coefficient_figure(fit))
     check_coefficient_panels(fig, fit)
-    for ax, x, y in ((fig.axes[0], fit.x_v, fit.y_v), (fig.axes[1], fit.x_bv, fit.y_bv)):
-        series = series_by_label(ax)
-        rej, std = series["rejected"], series["standard stars"]
-        np.testing.assert_allclose(xy(rej)[0], [x[6]])
-        np.testing.assert_allclose(xy(rej)[1], [y[6]])
-        assert xy(std)[0].size == 9
-        assert rej.lines[0].get_marker() != std.lines[0].get_marker()
-        assert to_hex(rej.lines[0].get_color()) != to_hex(std.lines[0].get_color())
-        assert to_hex(rej.lines[0].get_color()) in OKABE_ITO
+    for ax, axr, x, y in ((fig.axes[0], fig.axes[2], fit.x_v, fit.y_v), (fig.axes[1], fig.axes[3], fit.x_bv, fit.y_bv)):
+        for panel in (ax, axr):
+            series = series_by_label(panel)
+            rej, std = series["rejected"], series["standard stars"]
+            np.testing.assert_allclose(xy(rej)[0] + removed_from(fig.axes[2 + (ax is fig.axes[1])].get_xlabel()), [x[6]])
+            assert xy(std)[0].size == 9
+            assert rej.lines[0].get_marker() != std.lines[0].get_marker()
+            assert to_hex(rej.lines[0].get_color()) != to_hex(std.lines[0].get_color())
+            assert to_hex(rej.lines[0].get_color()) in OKABE_ITO
+        np.testing.assert_allclose(xy(series_by_label(ax)["rejected"])[1] + removed_from(ax.get_ylabel()), [y[6]])
+    # F07 was read 0.25 mag too faint in v, so its V - v is 0.25 mag too small: its residual shows it
+    assert xy(series_by_label(fig.axes[2])["rejected"])[1][0] == pytest.approx(-0.25, abs=0.03)
+    assert_labels_clear(fig)
+
+
+def test_coefficient_figure_says_when_a_constant_was_removed():
+    """The invented field's V - v is near -21.3 (an instrumental zero point): the axis reads V - v + 21.3."""
+    fit = invented_standard_fit()
+    fig = drawn(coefficient_figure(fit))
+    ax = fig.axes[0]
+    assert ax.get_ylabel() == "V − v + 21.3 (mag; constant removed)"
+    _, ys = xy(series_by_label(ax)["standard stars"])
+    assert np.all(np.abs(ys) < 0.3)  # hundredths of a magnitude around zero, not -21.3
+    lo, hi = sorted(ax.get_ylim())
+    assert hi - lo < 0.6
+    # b - v of this field lies near 0.3 (already near zero): left as it is, and the label says nothing removed
+    assert fig.axes[3].get_xlabel() == "instrumental b − v (mag)"
 
 
 # --------------------------------------------------------------------------- colour curve
@@ -618,7 +804,7 @@ def check_cmd(fig, field, track) -> None:
     series = series_by_label(ax)
     kinds = {
         "comparison stars": (field["role"] == "comparison") & (field["status"] == "kept"),
-        "comparison stars, rejected": (field["role"] == "comparison") & (field["status"] != "kept"),
+        "rejected comparison": (field["role"] == "comparison") & (field["status"] != "kept"),
         "check stars": field["role"] == "check",
     }
     markers, colours = set(), set()
@@ -636,7 +822,10 @@ def check_cmd(fig, field, track) -> None:
         colours.add(to_hex(c.lines[0].get_color()))
     assert len(markers) == len(colours) == sum(bool(m.any()) for m in kinds.values())
     assert colours <= OKABE_ITO
-    assert sorted(t.get_text() for t in ax.texts) == sorted(field["star"])
+    # every star named beside its point; a rejected comparison star with the reason the ensemble gave
+    rejected = kinds["rejected comparison"] & (field["status"] != "rejected")
+    names = [f"{s} ({st.replace('_', ' ')})" if r else s for s, st, r in zip(field["star"], field["status"], rejected)]
+    assert sorted(t.get_text() for t in ax.texts) == sorted(names)
     # the target's path over the night: points coloured by hours since the first one, with their error bars
     (sc,) = [c for c in ax.collections if isinstance(c, PathCollection)]  # the scatter; bars are LineCollections
     t = track["bjd_tdb"].to_numpy()
@@ -662,23 +851,47 @@ def test_colour_magnitude_figure_of_the_demo_night(demo):
     assert fig.axes[0].get_title() == f"{demo.name}, night {demo.last}"
 
 
-def test_colour_magnitude_figure_shows_a_rejected_comparison_apart(demo):
+@pytest.mark.parametrize("status", ["rejected", "variable", "catalog_offset"])
+def test_colour_magnitude_figure_shows_a_rejected_comparison_apart(demo, status):
     field = demo.field.copy()
-    field.loc[field["star"] == "C3", "status"] = "rejected"
+    field.loc[field["star"] == "C3", "status"] = status
     fig = drawn(colour_magnitude_figure(field, demo.track))
     check_cmd(fig, field, demo.track)
-    series = series_by_label(fig.axes[0])
+    ax = fig.axes[0]
+    series = series_by_label(ax)
     c3 = field[field["star"] == "C3"]
-    np.testing.assert_allclose(xy(series["comparison stars, rejected"])[1], c3["V"])
+    rej = series["rejected comparison"]
+    np.testing.assert_allclose(xy(rej)[1], c3["V"])
     assert not np.isin(xy(series["comparison stars"])[1], c3["V"]).any()
+    assert rej.lines[0].get_marker() == "x" and series["comparison stars"].lines[0].get_marker() == "o"
+    assert "rejected comparison" in legend_texts(ax.get_legend())
+    note = "C3" if status == "rejected" else f"C3 ({status.replace('_', ' ')})"
+    assert note in [t.get_text() for t in ax.texts]
 
 
 # --------------------------------------------------------------------------- periodogram
 
 
+def rendered(fig: Figure):
+    """Draw ``fig`` with Agg and return its renderer (text extents in pixels)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    FigureCanvasAgg(fig)
+    fig.canvas.draw()
+    return fig.canvas.get_renderer()
+
+
+def text_box(text, renderer):
+    """The extent of a text's own characters (an annotation's leader line left out)."""
+    from matplotlib.text import Text
+
+    return Text.get_window_extent(text, renderer)
+
+
 def test_periodogram_figure_of_the_demo_period(demo):
     res, peaks = demo.res, demo.payload["aliases"][:4]
-    fig = drawn(demo_periodogram_figure(demo))
+    fig = demo_periodogram_figure(demo)
+    renderer = rendered(fig)
     assert len(fig.axes) == 2  # periodogram, and the PDM statistic on the same grid
     ax, axt = fig.axes
     freq, power = np.asarray(res.freq), np.asarray(res.power)
@@ -688,17 +901,22 @@ def test_periodogram_figure_of_the_demo_period(demo):
     assert to_hex(curve.get_color()) in OKABE_ITO
     lo, hi = ax.get_ylim()
     assert lo == 0 and power.max() <= hi < 1.3 * power.max()
-    xl = ax.get_xlim()
-    assert xl[0] <= freq.min() and freq.max() <= xl[1] and xl[1] - xl[0] < 1.3 * np.ptp(freq)
+    # the frequency axis is the searched range, edge to edge: no margins
+    assert ax.get_xlim() == pytest.approx((1 / res.grid["max_period"], 1 / res.grid["min_period"]), rel=1e-12)
+    assert ax.get_xlim() == (freq.min(), freq.max())
     assert ax.get_ylabel() == "normalised power" and axt.get_xlabel() == "frequency (cycles per day)"
-    # false-alarm levels: one horizontal line each, at the power it needs
+    # false-alarm levels: one horizontal line each, at the power it needs, named in the right margin
+    fap_texts = {t.get_text(): t for t in ax.texts if t.get_text().startswith("FAP ")}
+    assert sorted(fap_texts) == sorted(f"FAP {fap:g}" for fap in res.fap_levels)
+    right = ax.get_window_extent(renderer).x1
     for fap, level in res.fap_levels.items():
         (line,) = labelled_lines(ax, f"false-alarm probability {fap:g}")
         assert list(line.get_ydata()) == [level, level]
+        assert text_box(fap_texts[f"FAP {fap:g}"], renderer).x0 > right  # beside the panel, not on the curve
     assert len({ln.get_linestyle() for ln in ax.lines if ln.get_label().startswith("false-alarm")}) == len(res.fap_levels)
-    # the best peak marked as such, at the highest power of the grid, the others apart
+    # the adopted period is what the marked peak's note prints: the refined one the result reports
     assert peaks[0]["relation"] == "best"
-    (best,) = labelled_lines(ax, "best peak")
+    (best,) = labelled_lines(ax, "adopted period")
     assert best.get_xdata()[0] == peaks[0]["frequency"] and best.get_ydata()[0] == peaks[0]["power"]
     assert best.get_ydata()[0] == pytest.approx(power.max())
     assert abs(best.get_xdata()[0] - freq[np.argmax(power)]) < 0.01  # refined, within a grid step or so
@@ -706,17 +924,26 @@ def test_periodogram_figure_of_the_demo_period(demo):
     assert sorted(float(ln.get_xdata()[0]) for ln in others) == sorted(p["frequency"] for p in peaks[1:])
     assert best.get_marker() != others[0].get_marker()
     assert to_hex(best.get_color()) in OKABE_ITO and to_hex(others[0].get_color()) in OKABE_ITO
-    notes = [t.get_text() for t in ax.texts]
-    assert len(notes) == len(peaks) and notes[0].startswith("best")
-    for p, note in zip(peaks, notes):
-        assert f"P = {1 / p['frequency']:.5f} d" in note
-    assert legend_texts(ax.get_legend()) == [f"false-alarm probability {f:g}" for f in sorted(res.fap_levels)] + [
-        "best peak", "other strong peaks"]
-    # the PDM panel: theta on the same grid, the best frequency marked
+    notes = [t for t in ax.texts if not t.get_text().startswith("FAP ")]
+    assert len(notes) == len(peaks)
+    assert notes[0].get_text() == f"adopted\n{period_text(res.period)}"
+    grid_period = f"{1 / res.aliases.best_frequency:.7f}"
+    if grid_period != f"{res.period:.7f}":  # the grid's value would be a different number
+        assert grid_period not in notes[0].get_text()
+    for p, note in zip(peaks[1:], notes[1:]):
+        assert f"P = {1 / p['frequency']:.5f} d" in note.get_text()
+    # every drawn text of the panel stands clear of every other
+    boxes = [(t.get_text(), text_box(t, renderer)) for t in ax.texts]
+    for i, (ta, a) in enumerate(boxes):
+        for tb, b in boxes[i + 1:]:
+            assert not a.overlaps(b), (ta, tb)
+    assert ax.get_legend() is None  # every marker carries its note, every level its name
+    assert fig.get_suptitle() == f"{demo.name}: {demo.star}, {res.method}; adopted {period_text(res.period, res.period_err)}"
+    # the PDM panel: theta on the same grid, the adopted frequency marked, lower is better
     np.testing.assert_allclose(axt.lines[0].get_xdata(), freq)
     np.testing.assert_allclose(axt.lines[0].get_ydata(), res.theta)
-    assert "PDM" in axt.get_ylabel()
-    assert [ln.get_xdata()[0] for ln in axt.lines[1:]] == [res.aliases.best_frequency]
+    assert "PDM" in axt.get_ylabel() and "lower is better" in axt.get_ylabel()
+    assert [ln.get_xdata()[0] for ln in axt.lines[1:]] == [1 / res.period]
     assert ax.get_xlim() == axt.get_xlim()
 
 
@@ -728,7 +955,8 @@ def test_periodogram_figure_alone():
     ax = fig.axes[0]
     assert len(ax.lines) == 1 and ax.get_xlabel() == "frequency (cycles per day)"
     assert ax.get_ylabel() == "power (generalised Lomb–Scargle)" and ax.get_ylim()[0] == 0
-    assert legend_texts(ax.get_legend()) == []
+    assert ax.get_xlim() == (0.1, 6.0)
+    assert ax.get_legend() is None and not ax.texts
 
 
 # --------------------------------------------------------------------------- phased light curve
@@ -743,7 +971,13 @@ def test_phased_figure_of_the_demo_period(demo):
     assert_magnitude_axis(axr)  # positive residual = fainter than the fit, drawn down like the data
     assert ax.get_ylabel() == "magnitude" and axr.get_ylabel() == "data − fit (mag)"
     xlabel = axr.get_xlabel()
-    assert f"P = {res.period:.6f} d" in xlabel and f"BJD_TDB {res.epoch:.5f}" in xlabel and "two cycles" in xlabel
+    shown = period_text(res.period, res.period_err)
+    assert shown == f"P = {res.period:.7f} ± {res.period_err:.7f} d"
+    assert f"({shown}, epoch BJD_TDB {res.epoch:.5f})" in xlabel and "two cycles" in xlabel
+    # the title prints the period exactly as the axis does
+    assert fig.get_suptitle() == f"{demo.name}: {demo.star}, {shown}, phase 0 at {res.epoch_kind} light"
+    assert len(re.findall(r"\d+\.\d+", shown)) == 2 and re.findall(r"P = [\d.]+", fig.get_suptitle()) == re.findall(
+        r"P = [\d.]+", xlabel)
     bands = sorted(lc["band"].unique())
     assert bands == ["B", "V"]
     phase = np.mod((lc["bjd_tdb"].to_numpy() - res.epoch) / res.period, 1.0)
@@ -764,6 +998,13 @@ def test_phased_figure_of_the_demo_period(demo):
         styles.add((to_hex(main[2 * k].lines[0].get_color()), main[2 * k].lines[0].get_marker()))
         # the model drawn over both cycles, and the data minus that curve are the residuals drawn below
         model_lines = [ln for ln in ax.lines if to_hex(ln.get_color()) == "#000000"][2 * k: 2 * k + 2]
+        # the model is drawn over the points, on a white halo that keeps it visible through them
+        for ln in model_lines:
+            assert ln.get_zorder() > max(c.lines[0].get_zorder() for c in main)
+            assert ln.get_zorder() > max(bar.get_zorder() for c in main for bar in c.lines[2])
+            effects = ln.get_path_effects()
+            assert effects and to_hex(effects[0]._gc["foreground"]) == "#ffffff"
+            assert effects[0]._gc["linewidth"] > ln.get_linewidth()
         px, py = (np.asarray(a, float) for a in (model_lines[0].get_xdata(), model_lines[0].get_ydata()))
         np.testing.assert_allclose(np.asarray(model_lines[1].get_xdata()), px + 1.0)
         np.testing.assert_allclose(np.asarray(model_lines[1].get_ydata()), py)
@@ -773,7 +1014,7 @@ def test_phased_figure_of_the_demo_period(demo):
         shifted = lc["mag"].to_numpy()[m] - np.interp(phase[m] + 0.1, px, py, period=1.0)
         assert np.median(np.abs(shifted - resid[m])) > 0.03
     assert len(styles) == len(bands) and {s[0] for s in styles} <= OKABE_ITO
-    assert sorted(legend_texts(ax.get_legend())) == sorted(bands + ["fitted model"])
+    assert legend_texts(ax.get_legend()) == bands + ["fitted model"]
     assert_view_fits(ax, np.concatenate([phase, phase + 1.0]), np.tile(lc["mag"].to_numpy(), 2),
                      yerr=np.tile(lc["mag_err"].to_numpy(), 2))
     zero = [ln for ln in axr.lines if ln.get_transform() == axr.get_yaxis_transform()]  # lines across the panel
@@ -801,24 +1042,30 @@ def assert_oc_view(ax, cycle, oc_min, err_min) -> None:
 
 def test_oc_figure_of_the_demo_timings(demo):
     timed = demo.timed
-    cycle, oc, err, types = (np.asarray(a) for a in oc_inputs(timed))
-    assert len(cycle) >= 4 and set(types) == {"maximum"}
+    cycle, oc, err, types = (np.asarray(a, dtype=object) for a in oc_inputs(timed))
+    cycle, oc, err = (a.astype(float) for a in (cycle, oc, err))
+    bands = np.asarray([t["band"] for t in timed["timings"]])
+    assert len(cycle) >= 4 and set(types) == {"maximum"} and set(bands) == {"B", "V"}
+    assert all(t["in_fit"] for t in timed["timings"])  # the demo's timings all agree
     fig = drawn(demo_oc_figure(demo))
     assert len(fig.axes) == 1
     ax = fig.axes[0]
-    assert ax.get_xlabel() == "cycle number E" and ax.get_ylabel() == "O − C (minutes)"
+    assert ax.get_xlabel() == "cycle number E" and ax.get_ylabel() == "O − C (min)"
     assert "BJD_TDB" in ax.get_title(loc="left")
-    (c,) = errorbar_series(ax)
-    assert c.get_label() == f"maximum ({len(cycle)})"
-    np.testing.assert_allclose(xy(c)[0], cycle.astype(float))
-    np.testing.assert_allclose(xy(c)[1], oc.astype(float) * 1440.0)
-    np.testing.assert_allclose(bars(c)[1], err.astype(float) * 1440.0)
+    series = series_by_label(ax)
+    assert sorted(series) == ["maximum, B", "maximum, V"]
+    for band in ("B", "V"):
+        c, m = series[f"maximum, {band}"], bands == band
+        np.testing.assert_allclose(xy(c)[0], cycle[m])
+        np.testing.assert_allclose(xy(c)[1], oc[m] * 1440.0)  # days in the result, minutes on the axis
+        np.testing.assert_allclose(bars(c)[1], err[m] * 1440.0)
     # the linear ephemeris fitted to these timings runs through them
     (lin,) = labelled_lines(ax, "linear ephemeris")
-    at = np.interp(cycle.astype(float), np.asarray(lin.get_xdata()), np.asarray(lin.get_ydata()))
-    assert abs(np.median(oc.astype(float) * 1440.0 - at)) < 3 * np.median(err.astype(float) * 1440.0)
-    assert_oc_view(ax, cycle.astype(float), oc.astype(float) * 1440.0, err.astype(float) * 1440.0)
-    assert "linear ephemeris" in legend_texts(ax.get_legend())
+    at = np.interp(cycle, np.asarray(lin.get_xdata()), np.asarray(lin.get_ydata()))
+    assert abs(np.median(oc * 1440.0 - at)) < 3 * np.median(err * 1440.0)
+    assert_oc_view(ax, cycle, oc * 1440.0, err * 1440.0)
+    assert legend_texts(ax.get_legend()) == [f"maximum ({len(cycle)})", "B", "V", "linear ephemeris"]
+    assert not labelled_lines(ax, "left out of the fit")
 
 
 def test_oc_figure_tells_timing_types_apart_and_draws_both_ephemerides():
@@ -848,6 +1095,7 @@ def test_oc_figure_tells_timing_types_apart_and_draws_both_ephemerides():
         np.testing.assert_allclose(xy(c)[1], oc[m] * 1440.0)
         np.testing.assert_allclose(bars(c)[1], err[m] * 1440.0)
         assert to_hex(c.lines[0].get_color()) in OKABE_ITO
+    assert ax.get_ylabel() == "O − C (min)"
     assert prim.lines[0].get_marker() != sec.lines[0].get_marker()
     assert to_hex(prim.lines[0].get_color()) != to_hex(sec.lines[0].get_color())
     assert to_hex(sec.lines[0].get_markerfacecolor()) == "#ffffff"  # secondaries hollow
@@ -884,7 +1132,7 @@ DEMO_FIGURES = {
     "colour_magnitude": (demo_cmd_figure, PALETTE[0]),  # comparison stars
     "periodogram": (demo_periodogram_figure, PALETTE[0]),  # the power curve
     "phased": (demo_phased_figure, PALETTE[0]),  # the first band
-    "oc": (demo_oc_figure, PALETTE[2]),  # times of maximum
+    "oc": (demo_oc_figure, PALETTE[0]),  # times of maximum in B (the first band)
 }
 
 

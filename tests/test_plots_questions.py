@@ -2,10 +2,14 @@
 
 - A night's light curve: what UT hour a point was taken (a secondary axis on
   top, from the light curve's ``jd_utc``).
-- The periodogram: which way the PDM statistic is better, and peak notes that
-  do not print over each other.
-- The O − C diagram: which band a timing is from, and whether its two
-  estimates disagree.
+- The periodogram: which way the PDM statistic is better, peak notes that
+  do not print over each other, which period was adopted (the refined one, or
+  twice the peak's), false-alarm levels whose names can be read, and a
+  frequency axis that is the searched range.
+- The O − C diagram: which band a timing is from, whether its two estimates
+  disagree, and whether the ephemeris fit used it.
+- Every figure: no legend of a single entry (its words go to a title or
+  an axis label).
 
 Invented data only (fixed seeds).  Conventions checked are common practice in
 the trade: a Julian day starts at noon UT, so 0 h UT is at JD n + 0.5 (from
@@ -25,7 +29,18 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import to_hex
 from matplotlib.container import ErrorbarContainer
 
-from varstar.plots import PALETTE, TIMING_STYLE, lightcurve_figure, oc_figure, periodogram_figure, timings_figure
+from varstar.plots import (
+    PALETTE,
+    TIMING_STYLE,
+    colour_figure,
+    colour_magnitude_figure,
+    lightcurve_figure,
+    nights_figure,
+    oc_figure,
+    periodogram_figure,
+    phased_figure,
+    timings_figure,
+)
 
 OKABE_ITO = {"#000000", "#e69f00", "#56b4e9", "#009e73", "#f0e442", "#0072b2", "#d55e00", "#cc79a7"}
 
@@ -128,10 +143,14 @@ def test_peak_notes_do_not_print_over_each_other():
     # the three close notes stand in three rows, all above their peaks; the far one just above its own peak
     bottoms = [b.y0 for b in boxes]
     assert len({round(y) for y in bottoms[:3]}) == 3
-    for t, b in zip(notes, boxes):
+    for t, b in zip(notes[:3], boxes[:3]):
         x_peak, y_peak = ax.transData.transform(t.xy)
         assert b.y0 > y_peak and 0 <= b.x0 - x_peak < 10, (t.get_text(), b, x_peak, y_peak)  # starts at its peak
-    assert boxes[3].y0 - ax.transData.transform(notes[3].xy)[1] < 15  # pixels: not raised for nothing
+    # the note of the peak near the right edge runs leftwards and ends at its peak, inside the panel
+    x_peak, y_peak = ax.transData.transform(notes[3].xy)
+    assert boxes[3].y0 > y_peak and 0 <= x_peak - boxes[3].x1 < 10, (boxes[3], x_peak)
+    assert boxes[3].x1 <= ax.get_window_extent(renderer).x1
+    assert boxes[3].y0 - y_peak < 15  # pixels: not raised for nothing
     # each note is the note of its own peak
     assert [t.xy[0] for t in notes] == [2.20, 2.17, 2.23, 4.50]
     assert [t.get_text().split("\n")[0] for t in notes] == ["best", "alias +1/30 d", "alias −1/30 d", "harmonic"]
@@ -187,14 +206,15 @@ def test_oc_tells_bands_apart_and_marks_disagreeing_estimates():
     for handle, text in zip(ax.get_legend().legend_handles, texts):
         if text in ("B", "V"):
             assert to_hex(handle.get_facecolor()) == colours[text]
-    assert ax.get_ylabel() == "O − C (minutes)"
+    assert ax.get_ylabel() == "O − C (min)"
 
 
 def test_oc_without_bands_or_disagreement_draws_no_band_entries():
     cycle, oc, err, types, bands, _ = band_timings()
     fig = drawn(oc_figure(cycle, oc, err, types, disagree=[False] * cycle.size))
     ax = fig.axes[0]
-    assert [t.get_text() for t in ax.get_legend().get_texts()] == ["maximum (16)"]
+    assert ax.get_legend() is None  # one entry: it is the panel's title instead
+    assert ax.get_title(loc="right") == "maximum (16)"
     assert not [ln for ln in ax.lines if ln.get_label() == "estimates disagree"]
     (c,) = errorbar_series(ax)
     assert to_hex(c.lines[0].get_color()) == to_hex(TIMING_STYLE["maximum"][1])
@@ -223,3 +243,187 @@ def test_oc_band_names_are_drawn_as_written(band):
     texts = fig.axes[0].get_legend().get_texts()
     assert band in [t.get_text() for t in texts]
     assert all(t.get_parse_math() is False for t in texts)
+
+
+# --------------------------------------------------------------------------- the adopted period, and legible levels
+
+
+def text_box(text, renderer):
+    """The extent of a text's own characters (an annotation's leader line left out)."""
+    from matplotlib.text import Text
+
+    return Text.get_window_extent(text, renderer)
+
+
+def rendered(fig):
+    FigureCanvasAgg(fig)
+    fig.canvas.draw()
+    return fig.canvas.get_renderer()
+
+
+def peak_notes(ax):
+    return [t for t in ax.texts if not t.get_text().startswith("FAP ")]
+
+
+def one_peak(centre: float = 2.0, extra=()):
+    """An invented periodogram on 0.5-5 c/d: one strong peak at ``centre`` and any ``extra`` (frequency, height)."""
+    freq = np.linspace(0.5, 5.0, 4501)  # step 0.001 c/d
+    power = 0.02 + 0.9 * np.exp(-0.5 * ((freq - centre) / 0.004) ** 2)
+    for c, h in extra:
+        power = power + h * np.exp(-0.5 * ((freq - c) / 0.004) ** 2)
+    return freq, power
+
+
+def test_the_adopted_period_is_what_the_marked_peak_prints():
+    freq, power = one_peak(2.2)
+    grid_f, refined_f = 2.2, 2.20034  # the grid's best and the refined frequency the result reports
+    peaks = [{"frequency": refined_f, "power": 0.92, "relation": "best"}]
+    fig = periodogram_figure(freq, power, best_frequency=grid_f, peaks=peaks, theta=1 - power,
+                             adopted_period=1 / refined_f)
+    ax, axt = fig.axes
+    (note,) = peak_notes(ax)
+    assert note.get_text() == f"adopted\nP = {1 / refined_f:.7f} d"
+    assert f"{1 / grid_f:.7f}" not in note.get_text() and f"{1 / grid_f:.5f}" not in note.get_text()
+    (marker,) = [ln for ln in ax.lines if ln.get_label() == "adopted period"]
+    assert marker.get_xdata()[0] == refined_f
+    assert [ln.get_xdata()[0] for ln in axt.lines[1:]] == [pytest.approx(refined_f)]  # PDM panel: the same frequency
+
+
+def test_a_period_twice_the_peaks_is_marked_at_its_peak_and_said_to_be_twice():
+    # an eclipsing binary with equal minima: the periodogram peaks at 2/P, the analysis adopted P = 2/f
+    freq, power = one_peak(2.0, extra=[(3.0, 0.4)])
+    peaks = [{"frequency": 2.0, "power": 0.92, "relation": "best"},
+             {"frequency": 3.0, "power": 0.42, "relation": "+1 c/d alias"}]
+    fig = periodogram_figure(freq, power, best_frequency=2.0, peaks=peaks, theta=1 - power, adopted_period=1.0)
+    ax, axt = fig.axes
+    notes = peak_notes(ax)
+    assert [t.get_text() for t in notes] == ["adopted, P = 2/f\nP = 1.0000000 d", "+1 c/d alias\nP = 0.33333 d"]
+    (marker,) = [ln for ln in ax.lines if ln.get_label() == "adopted period"]
+    assert marker.get_xdata()[0] == 2.0 and marker.get_marker() == "v"
+    assert [ln.get_xdata()[0] for ln in axt.lines[1:]] == [1.0]  # PDM's minimum is at the true period
+
+
+def test_an_adopted_period_off_the_listed_peaks_is_marked_on_the_curve():
+    # the periodogram's highest peak lost to a rival the fit preferred (3.3 c/d), not among the listed peaks
+    freq, power = one_peak(2.0, extra=[(3.3, 0.85)])
+    peaks = [{"frequency": 2.0, "power": 0.92, "relation": "best"}]
+    fig = periodogram_figure(freq, power, best_frequency=2.0, peaks=peaks, adopted_period=1 / 3.3)
+    ax = fig.axes[0]
+    texts = sorted(t.get_text() for t in peak_notes(ax))
+    assert texts == [f"adopted\nP = {1 / 3.3:.7f} d", "highest peak\nP = 0.50000 d"]
+    (marker,) = [ln for ln in ax.lines if ln.get_label() == "adopted period"]
+    assert marker.get_xdata()[0] == pytest.approx(3.3)
+    assert marker.get_ydata()[0] == pytest.approx(np.interp(3.3, freq, power))  # on the curve
+
+
+def test_false_alarm_labels_stand_apart_beside_the_panel():
+    """Three levels 0.01 apart in power (a few pixels), and a peak note near the right edge at the same height."""
+    freq, power = one_peak(2.0, extra=[(4.9, 0.40)])
+    levels = {0.1: 0.40, 0.01: 0.41, 0.001: 0.42}
+    peaks = [{"frequency": 2.0, "power": 0.92, "relation": "best"},
+             {"frequency": 4.9, "power": 0.42, "relation": "harmonic"}]
+    for theta in (None, 1 - power):  # one panel and two
+        fig = periodogram_figure(freq, power, best_frequency=2.0, fap_levels=levels, peaks=peaks, theta=theta,
+                                 adopted_period=0.5)
+        renderer = rendered(fig)
+        ax = fig.axes[0]
+        panel = ax.get_window_extent(renderer)
+        labels = {t.get_text(): t for t in ax.texts if t.get_text().startswith("FAP ")}
+        assert sorted(labels) == ["FAP 0.001", "FAP 0.01", "FAP 0.1"]
+        boxes = [(t.get_text(), text_box(t, renderer)) for t in ax.texts]
+        for i, (ta, a) in enumerate(boxes):
+            for tb, b in boxes[i + 1:]:
+                assert not a.overlaps(b), (ta, tb, a, b)
+        for fap, level in levels.items():
+            t = labels[f"FAP {fap:g}"]
+            box = text_box(t, renderer)
+            assert box.x0 > panel.x1 and box.x1 <= fig.bbox.x1  # in the right margin, inside the figure
+            assert t.xy == (1.0, level)  # its leader starts at its own line's end
+            assert abs((box.y0 + box.y1) / 2 - ax.transData.transform((0, level))[1]) < 40  # pixels: near its line
+        # the order of the labels is the order of the lines
+        ys = [text_box(labels[k], renderer).y0 for k in ("FAP 0.1", "FAP 0.01", "FAP 0.001")]
+        assert ys == sorted(ys)
+        # the peak note near the right edge stays inside the panel, clear of the margin's labels
+        (edge,) = [t for t in peak_notes(ax) if t.get_text().startswith("harmonic")]
+        assert text_box(edge, renderer).x1 <= panel.x1
+
+
+def test_frequency_axis_spans_the_searched_range_exactly():
+    freq, power = one_peak(2.0)
+    fig = drawn(periodogram_figure(freq, power, best_frequency=2.0, theta=1 - power))
+    assert fig.axes[0].get_xlim() == (0.5, 5.0) and fig.axes[1].get_xlim() == (0.5, 5.0)
+
+
+# --------------------------------------------------------------------------- O - C: what the fit used
+
+
+def test_timings_left_out_of_the_fit_are_ringed_and_named():
+    cycle, oc, err, types, bands, disagree = band_timings()
+    in_fit = ~disagree  # the fit left out the disagreeing timings, and one more
+    in_fit[5] = False
+    fig = drawn(oc_figure(cycle, oc, err, types, bands=list(bands), disagree=list(disagree), in_fit=list(in_fit)))
+    ax = fig.axes[0]
+    (ring,) = [ln for ln in ax.lines if ln.get_label() == "left out of the fit"]
+    np.testing.assert_allclose(ring.get_xdata(), cycle[~in_fit])
+    np.testing.assert_allclose(ring.get_ydata(), oc[~in_fit] * 1440.0)
+    assert ring.get_markerfacecolor() == "none" and ring.get_linestyle() == "None"
+    (disagreeing,) = [ln for ln in ax.lines if ln.get_label() == "estimates disagree"]
+    assert ring.get_marker() != disagreeing.get_marker()  # the two rings differ in shape
+    assert ring.get_markersize() > 10 and to_hex(ring.get_markeredgecolor()) in OKABE_ITO
+    # the timings themselves are still drawn, in their band's series
+    assert sum(np.asarray(c.lines[0].get_xdata()).size for c in errorbar_series(ax)) == cycle.size
+    texts = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert texts == ["maximum (16)", "B", "V", "estimates disagree", "left out of the fit"]
+    # all used: no ring, no entry
+    fig2 = drawn(oc_figure(cycle, oc, err, types, bands=list(bands), in_fit=[True] * cycle.size))
+    assert "left out of the fit" not in [t.get_text() for t in fig2.axes[0].get_legend().get_texts()]
+
+
+def test_timings_figure_passes_in_fit_and_reads_missing_as_used():
+    cycle, oc, err, types, bands, disagree = band_timings()
+    p, t0 = 0.46173, 2461295.6
+    rows = [dict(cycle=float(e), o_minus_c=float(d), err=float(s), type=t, band=str(b), disagree=bool(x),
+                 in_fit=not bool(x), bjd_tdb=t0 + p * e + d)
+            for e, d, s, t, b, x in zip(cycle, oc, err, types, bands, disagree)]
+    timed = {"timings": rows, "ephemeris": {"epoch": t0, "period": p, "kind": "maximum"}, "fit": None}
+    ax = drawn(timings_figure(timed, "Invented star: O − C")).axes[0]
+    (ring,) = [ln for ln in ax.lines if ln.get_label() == "left out of the fit"]
+    np.testing.assert_allclose(ring.get_xdata(), cycle[disagree])
+    assert ax.get_ylabel() == "O − C (min)"
+    for r in rows:
+        del r["in_fit"]  # a result from before the key existed
+    ax = drawn(timings_figure(timed, "Invented star: O − C")).axes[0]
+    assert not [ln for ln in ax.lines if ln.get_label() == "left out of the fit"]
+
+
+# --------------------------------------------------------------------------- no legend of one entry
+
+
+def one_entry_figures():
+    """Each figure in a case where its legend would have held a single entry."""
+    lc = night_lc(bands=("V",), n=20)
+    lc["quality"] = 0
+    one_band = lc.assign(bv=0.4, bv_err=0.01)
+    cycle, oc, err, types, _, _ = band_timings()
+    field = pd.DataFrame({"star": ["C1", "C2"], "role": ["comparison", "comparison"], "status": ["kept", "kept"],
+                          "V": [12.0, 12.5], "V_err": [0.01, 0.01], "bv": [0.5, 0.7], "bv_err": [0.01, 0.01]})
+    return {
+        "night": (lightcurve_figure(lc), "2026-09-11"),
+        "colour": (colour_figure(one_band), "2026-09-11"),
+        "phased": (phased_figure(lc, period=0.46173, epoch=2461295.6, model={}, residuals=np.zeros(len(lc))), None),
+        "oc": (oc_figure(cycle, oc, err, types), "maximum (16)"),
+        "colour_magnitude": (colour_magnitude_figure(field, lc.iloc[:0]), "comparison stars"),
+        "nights": (nights_figure(lc), None),
+    }
+
+
+@pytest.mark.parametrize("name", ["night", "colour", "phased", "oc", "colour_magnitude", "nights"])
+def test_no_figure_draws_a_legend_of_one_entry(name):
+    fig, title = one_entry_figures()[name]
+    drawn(fig)
+    legends = list(fig.legends) + [ax.get_legend() for ax in fig.axes if ax.get_legend() is not None]
+    assert legends == [], [[t.get_text() for t in lg.get_texts()] for lg in legends]
+    if title is not None:  # the entry's words moved to the panel's title
+        assert title in [ax.get_title(loc="right") for ax in fig.axes]
+    if name == "phased":
+        assert fig.axes[0].get_ylabel() == "V (mag)"  # the band's name is in the axis label
