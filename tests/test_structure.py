@@ -22,7 +22,7 @@ PACKAGE = REPO / "varstar"
 #: Computational cores: arrays and tables in, results out.
 CORES = ("varstar.ensemble", "varstar.transform", "varstar.period", "varstar.timings", "varstar.quality",
          "varstar.results", "varstar.errors", "varstar.inputs", "varstar.timescale", "varstar.colour", "varstar.simulate",
-         "varstar.target", "varstar.measurements", "varstar.almanac")
+         "varstar.target", "varstar.measurements", "varstar.almanac", "varstar.photometry")
 #: Shells: files, archives, terminals, figures.
 SHELLS = ("varstar.archive", "varstar.workflows", "varstar.cli", "varstar.demo", "varstar.plots", "varstar.export",
           "varstar.text")

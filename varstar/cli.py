@@ -117,8 +117,28 @@ def cmd_ingest(args: argparse.Namespace) -> int:
 
     res = ingest(args.archive, args.files, columns=_parse_columns(args.column), timeout_s=args.wait,
                  replace=args.replace, accept_unusual=args.accept_unusual, time_format=args.time_format,
-                 time_system=args.time_system, time_point=args.time_point)
+                 time_system=args.time_system, time_point=args.time_point, workers=args.workers)
     _emit(args, res, fmt.format_ingest(res.to_dict()))
+    return 0
+
+
+def cmd_measure(args: argparse.Namespace) -> int:
+    import pandas as pd
+
+    from .export import write_atomic
+    from .photometry import measurement_csv
+    from .target import check_tables, read_target
+    from .workflows.frames import measure
+
+    target = read_target(args.target)
+    check_tables(target)
+    res = measure(target, args.frames, workers=args.workers)
+    write_atomic(args.output, measurement_csv(res.table))
+    t = res.table
+    payload = {"output": str(args.output), "n_frames": int(res.n_frames), "n_rows": int(len(t)),
+               "n_flagged": int((t["flag"] != 0).sum()), "bands": sorted(pd.unique(t["band"]).tolist()),
+               "refused": list(res.refused)}
+    _emit(args, payload, fmt.format_measure(payload))
     return 0
 
 
@@ -139,8 +159,10 @@ def cmd_report(args: argparse.Namespace) -> int:
 
 
 def cmd_plot(args: argparse.Namespace) -> int:
+    import pandas as pd
+
     from .workflows.archive import open_archive
-    from .plots import lightcurve_figure, save
+    from .plots import lightcurve_figure, nights_figure, save
 
     from .errors import ArchiveError
 
@@ -150,7 +172,17 @@ def cmd_plot(args: argparse.Namespace) -> int:
         if args.night not in set(arch.nights()["night"]):
             raise ArchiveError(f"{arch.path}: no night '{args.night}' (see 'varstar summary')")
         lc = lc[lc["night"] == args.night]
-    fig = lightcurve_figure(lc, title=f"{arch.target.name} — {lc['star'].iloc[0] if len(lc) else ''}", show_flagged=args.include_flagged)
+    title = f"{arch.target.name} — {lc['star'].iloc[0] if len(lc) else ''}"
+    if args.by_night:
+        fig = nights_figure(lc, title=title, show_flagged=args.include_flagged, max_nights=args.by_night)
+    else:
+        checks = None
+        if args.night and args.star is None:  # one night of the target: its check stars in a panel of their own
+            parts = [arch.lightcurve(band=args.band, star=s.id, include_flagged=args.include_flagged)
+                     for s in arch.target.stars_with_role("check")]
+            parts = [p[p["night"] == args.night] for p in parts]
+            checks = pd.concat(parts, ignore_index=True) if any(len(p) for p in parts) else None
+        fig = lightcurve_figure(lc, title=title, show_flagged=args.include_flagged, checks=checks)
     save(fig, args.output)
     _emit(args, {"plot": str(args.output), "n_points": int(len(lc))}, f"wrote {args.output} ({fmt.plural(len(lc), 'point')})")
     return 0
@@ -469,6 +501,8 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--wait", type=float, default=30.0, metavar="SECONDS", help="how long to wait for another writer (default 30)")
     sp.add_argument("--replace", action="store_true",
                     help="replace a stored night of the same date with these files (e.g. the complete version of a file cut short)")
+    sp.add_argument("--workers", type=int, default=None, metavar="N",
+                    help="processes measuring FITS frames given instead of tables (default: one per core)")
     sp.add_argument("--time-format", choices=("jd", "mjd"),
                     help="what the time column holds: a Julian Date or an MJD (= JD - 2400000.5) (default: "
                          "[measurements] time_format of the target description, else jd)")
@@ -482,6 +516,17 @@ def build_parser() -> argparse.ArgumentParser:
                     help="store a night that cannot be what it claims (target below the horizon or the Sun up at its "
                          "exposures, no target rows, an airmass column far from the computed one), which is refused "
                          "by default; the reasons are recorded in the night's report")
+    sp = add("measure", cmd_measure,
+             "measure every star of a target description on FITS frames: aperture photometry, one measurement "
+             "table (what ingest reads)")
+    sp.add_argument("target", type=Path, help="target description (TOML) whose [[stars]] carry ra and dec")
+    sp.add_argument("frames", type=Path, nargs="+", metavar="FRAMES",
+                    help="FITS frames (.fits, .fit, .fts, optionally .gz) or folders of them; calibrated, or raw "
+                         "with master bias, dark and flat named in [photometry]")
+    sp.add_argument("-o", "--output", type=Path, default=Path("measurements.csv"), metavar="FILE",
+                    help="the measurement table (CSV, '-' for standard output; default measurements.csv)")
+    sp.add_argument("--workers", type=int, default=None, metavar="N", help="processes measuring frames (default: one per core)")
+
     sp = add("summary", cmd_summary, "overview of an archive: nights, bands, magnitude ranges")
     sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
 
@@ -489,7 +534,7 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
     sp.add_argument("night", help="night label (evening date, YYYY-MM-DD)")
 
-    sp = add("plot", cmd_plot, "plot the light curve (one panel per band)")
+    sp = add("plot", cmd_plot, "plot the light curve (one panel per band; --by-night: one per night)")
     sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
     sp.add_argument("-o", "--output", type=Path, default=Path("lightcurve.png"), metavar="FILE",
                     help="image file (png, pdf, svg; default lightcurve.png)")
@@ -499,6 +544,10 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--include-flagged", "--show-flagged", dest="include_flagged", action="store_true",
                     help="also draw flagged points, hollow and grey (default: left out; "
                          "--show-flagged is its old name, kept for one release)")
+    sp.add_argument("--by-night", nargs="?", type=int, const=12, default=None, metavar="N",
+                    help="one panel per night (the latest N, default 12 when given), UT hours on each, a shared "
+                         "magnitude axis per band, so each night's shape shows (default: the whole light curve "
+                         "on one time axis; with --night, that night with its check stars)")
 
     sp = add("export", cmd_export, "write the light curve as neutral CSV, one observation a row")
     sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")

@@ -338,9 +338,28 @@ def format_descriptions(history: Any) -> str:
     return "\n".join(lines)
 
 
+def format_measure(res: dict[str, Any]) -> str:
+    """What ``measure`` did: frames measured, rows written, frames refused with their reasons."""
+    lines = [f"measured {plural(res['n_frames'] - len(res['refused']), 'frame')} of {res['n_frames']}: "
+             f"{plural(res['n_rows'], 'measurement')} ({res['n_flagged']} flagged) written to {res['output']}"]
+    lines += _refused_frames(res["refused"])
+    return "\n".join(lines)
+
+
+def _refused_frames(refused: Any) -> list[str]:
+    if not refused:
+        return []
+    lines = [f"{plural(len(refused), 'frame')} not measured:"]
+    lines += [f"  {r['frame']}: {r['reason']}" for r in refused[:20]]
+    if len(refused) > 20:
+        lines.append(f"  ... and {len(refused) - 20} more (--json lists them all)")
+    return lines
+
+
 def format_ingest(res: dict[str, Any]) -> str:
     """Each night added (its report), the nights replaced and the files skipped."""
     lines = [format_night_report(r) for r in res["nights"]]
+    lines += _refused_frames(res.get("frames_refused", ()))
     lines += [f"replaced the stored night {label} (its removal is recorded in the archive)" for label in res["replaced"]]
     lines += [f"skipped {s['file']}: {s['why']}" for s in res["skipped"]]
     if not res["nights"]:

@@ -61,7 +61,9 @@ def create_archive(path: str | Path, target: Target) -> Archive:
     archive's first coefficient set.
     """
     from ..setups import resolve_transformation
+    from .frames import check_photometry
 
+    check_photometry(target)
     coeffs = None
     if "transformation" in target.extra:
         coeffs = resolve_transformation(target.extra["transformation"], Path(target.source))

@@ -17,6 +17,7 @@ from ..errors import ArchiveError, InputError
 from ..measurements import file_sha256, is_regular_file, read_measurement_file
 from ..results import Result
 from ..target import time_declaration
+from .frames import is_frame_input, measured_table
 from .reduce import NightReduction, declared_times, exclude_command, reduce_night, settings_from_target, split_nights
 from .standard import apply_to_reduction
 
@@ -34,6 +35,8 @@ class IngestResult(Result):
     skipped: tuple[dict[str, str], ...] = field(default_factory=tuple)
     #: Labels of stored nights replaced by this ingest (``ingest(..., replace=True)``).
     replaced: tuple[str, ...] = ()
+    #: FITS frames given that could not be measured, with the reason (the others were).
+    frames_refused: tuple[dict[str, str], ...] = ()
 
 
 @dataclass(frozen=True)
@@ -86,6 +89,7 @@ def ingest(
     time_format: str | None = None,
     time_system: str | None = None,
     time_point: str | None = None,
+    workers: int | None = None,
 ) -> IngestResult:
     """Reduce measurement files and add them to an archive, all or nothing.
 
@@ -112,6 +116,13 @@ def ingest(
     ``exptime``); the archive stores JD(UTC) at mid-exposure
     (:func:`varstar.workflows.reduce.declared_times`).
 
+    FITS frames (files ending ``.fits``, ``.fit`` or ``.fts``, optionally
+    gzipped, or folders of them) are measured first
+    (:func:`varstar.workflows.frames.measured_table`, ``workers`` processes)
+    and their measurement table is ingested as a file would be; frames that
+    cannot be measured are listed in ``frames_refused`` and in the night's
+    warnings, and the others are used.
+
     A regular file is hashed first (read in bounded blocks) and then read and
     checked piece by piece (:func:`varstar.measurements.read_measurement_file`),
     which stops at the first fault; a pipe is read once.
@@ -123,9 +134,23 @@ def ingest(
     if not files:
         raise InputError("no measurement files given")
     decl = time_declaration(target, time_format=time_format, time_system=time_system, time_point=time_point)
-    parsed, skipped = _read_new_files(files, target.star_ids, columns, arch.source_hashes(), replace, decl["time_format"])
+    frame_inputs = [p for p in files if is_frame_input(p)]
+    known = arch.source_hashes()
+    parsed, skipped = _read_new_files([p for p in files if not is_frame_input(p)], target.star_ids, columns, known,
+                                      replace, decl["time_format"])
+    parsed = [(p, declared_times(target, t, decl), h) for p, t, h in parsed]
+    frames_refused: tuple[dict[str, str], ...] = ()
+    if frame_inputs:  # measured frames give times in JD(UTC) at mid-exposure: no declaration applies
+        name, t, sha, measured = measured_table(target, frame_inputs, workers=workers)
+        frames_refused = tuple(measured.refused)
+        t.attrs["warnings"] = [*t.attrs.get("warnings", []),
+                               *(f"frame {r['frame']} not measured: {r['reason']}" for r in frames_refused)]
+        if sha in known and not replace:
+            skipped.append({"file": name, "sha256": sha, "why": "already ingested (the same measurements of these frames)"})
+        else:
+            parsed.append((Path(name), t, sha))
     if not parsed:
-        return IngestResult(str(arch.path), (), tuple(skipped))
+        return IngestResult(str(arch.path), (), tuple(skipped), frames_refused=frames_refused)
     settings = settings or settings_from_target(target)
     if len(parsed) > 1:
         for p, t, _ in parsed:
@@ -133,7 +158,6 @@ def ingest(
     table = pd.concat([t for _, t, _ in parsed], ignore_index=True)
     # what the reader noted about each file (placeholders flagged, delimiter, ...): concat drops it
     table.attrs["warnings"] = [w for _, t, _ in parsed for w in t.attrs.get("warnings", [])]
-    table = declared_times(target, table, decl)
     nights = split_nights(target, table)
     stored = sorted(set(nights) & set(arch.nights()["night"]))
     if stored and not replace:
@@ -178,7 +202,8 @@ def ingest(
             w.drop_night(lab, reason=f"replaced by a new ingest of {names}")
         for red in reductions:
             w.append_night(red, sha_of)
-    return IngestResult(str(arch.path), tuple(r.report for r in reductions), tuple(skipped), tuple(replaced))
+    return IngestResult(str(arch.path), tuple(r.report for r in reductions), tuple(skipped), tuple(replaced),
+                        frames_refused)
 
 
 #: How many of the latest stored nights the comparison-star history note looks back on:
