@@ -66,6 +66,7 @@ from ..almanac import (
 from .catalogues import catalogue, standards_toml, target_toml
 from .demo_series import demo_files, standard_field_files
 from .fields import demo_scenario, standard_field_scenario
+from .frames import FrameSet, frame_star_positions, frame_target_toml, write_frames
 from .files import measurements_csv, series_files, to_wide, truth_csv, wide_csv, write_series
 from .lightcurves import Pulsation, Sinusoid, Trend, Variability, pulsation_template
 from .noise import (
