@@ -446,8 +446,10 @@ def reduce_night(
     if unusual and not accept_unusual:
         raise InputError(
             f"{sources_of(table)} (night {label}): {'; '.join(unusual)}; nothing was written. Check the target "
-            f"file's coordinates and site and that the time column is JD(UTC); if the night really is so, "
-            f"ingest it with --accept-unusual (the reasons are recorded in the night's report)"
+            f"description's coordinates and site (to correct them: varstar edit-target ARCHIVE --set target.ra=... "
+            f"--set site.longitude=...) and the time column (JD(UTC) at mid-exposure unless declared: ingest "
+            f"--time-format, --time-system, --time-point); if the night really is so, ingest it with --accept-unusual "
+            f"(the reasons are recorded in the night's report)"
         )
     stars = _night_stars(target, table)
 
