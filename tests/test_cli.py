@@ -36,6 +36,7 @@ from helpers import DEMO, REPO, ok, one_json, run, strict_loads
 from varstar.cli import build_parser
 from varstar.errors import ArchiveError, InputError, OutputError
 from varstar.archive.layout import SCHEMA_VERSION
+from varstar.demo import FRAMES_NIGHT
 from varstar.export import LIGHTCURVE_COLUMNS
 from varstar.simulate import demo_scenario, simulate, write_series
 
@@ -667,7 +668,9 @@ def _check_demo_folder(folder: Path, demo_truth) -> dict:
     assert not [f for f in files if f.endswith(".tmp")]
     # The demo regenerates the shipped series byte for byte.
     shipped = {p.name for p in DEMO.iterdir() if p.suffix in (".csv", ".json", ".toml")}
-    assert {p.name for p in (folder / "data").iterdir()} == shipped
+    assert {p.name for p in (folder / "data").iterdir()} == shipped | {"frames"}  # and the night of FITS frames
+    frames = sorted(p.name for p in (folder / "data" / "frames").iterdir())
+    assert frames[-1] == "truth.csv" and len(frames) == 61 and all(f.endswith(".fits") for f in frames[:-1])
     for name in shipped:
         assert (folder / "data" / name).read_bytes() == (DEMO / name).read_bytes(), name
     result = strict_loads((folder / "summary.json").read_text())
@@ -678,7 +681,7 @@ def _check_demo_folder(folder: Path, demo_truth) -> dict:
     assert abs(result["coefficients"]["mu_bv"] - demo_truth["transformation"]["mu"]) < 0.03
     assert result["colour"]["teff_min_k"] < result["colour"]["teff_max_k"]
     assert all(b["n_standard"] > 0.9 * b["n_points"] for b in summary["bands"].values())
-    labels = sorted(demo_truth["files"]["nights"])
+    labels = sorted([*demo_truth["files"]["nights"], FRAMES_NIGHT])
     assert sorted(n["label"] for n in summary["nights"]) == labels
     obs = pd.read_csv(folder / "observations.csv")
     assert len(obs) == sum(b["n_points"] for b in summary["bands"].values())
@@ -696,7 +699,8 @@ def test_demo_text(capsys, demo_truth, tmp_path):
         assert f"rejected {v['id']} (variable)" in out
     # Truth: the cloudy night's report lists flagged frames, all of them under the cloud.
     blocks = night_blocks(out)
-    assert sorted(blocks) == sorted(demo_truth["files"]["nights"])
+    assert sorted(blocks) == sorted([*demo_truth["files"]["nights"], FRAMES_NIGHT])
+    assert f"drew 60 FITS frames of night {FRAMES_NIGHT}" in out
     cloud = demo_truth["clouds"][0]
     frames = flagged_frames_in_text(blocks[cloud["night"]])
     assert frames and set(frames) <= set(cloud["frames"])
@@ -708,10 +712,10 @@ def test_demo_json(capsys, demo_truth, tmp_path):
     obj = one_json(ok(capsys, "demo", "--out", out_dir, "--json"))
     summary = _check_demo_folder(out_dir, demo_truth)
     assert obj["folder"] == str(out_dir)
-    assert sorted(obj["nights"]) == sorted(demo_truth["files"]["nights"])
+    assert sorted(obj["nights"]) == sorted([*demo_truth["files"]["nights"], FRAMES_NIGHT])
     assert all(Path(p).exists() and Path(p).parent == out_dir for p in obj["files"])
     assert {Path(p).name for p in obj["files"]} >= {"lightcurve.png", "observations.csv", "summary.json"}
-    assert obj["summary"]["n_nights"] == len(demo_truth["files"]["nights"])
+    assert obj["summary"]["n_nights"] == len(demo_truth["files"]["nights"]) + 1
     assert obj["summary"]["bands"] == summary["bands"]
 
 

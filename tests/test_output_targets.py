@@ -105,7 +105,15 @@ def field(demo_data, tmp_path_factory) -> SimpleNamespace:
         assert main(["coefficients", str(std_csv), str(std_toml), "--save", str(setups)]) == 0
         assert main(["transform", str(archive), "--coefficients", str(setups)]) == 0
     n_obs = len(varstar.open_archive(archive).lightcurve())
-    return SimpleNamespace(archive=archive, std_csv=std_csv, std_toml=std_toml, n_obs=n_obs)
+    # two FITS frames of the invented field (varstar.simulate.write_frames) and a description that can measure them
+    from varstar.simulate import frame_target_toml, write_frames
+
+    frames = write_frames(folder / "frames", n_frames=2).folder
+    (frames / "truth.csv").unlink()
+    frame_toml = folder / "frame-target.toml"
+    frame_toml.write_text(frame_target_toml(), encoding="utf-8")
+    return SimpleNamespace(archive=archive, std_csv=std_csv, std_toml=std_toml, n_obs=n_obs, frames=frames,
+                           frame_toml=frame_toml)
 
 
 # --------------------------------------------------------------------------- what each output holds
@@ -120,6 +128,16 @@ def _check_lightcurve_csv(data: bytes, fld) -> None:
     assert list(df.columns) == list(LIGHTCURVE_COLUMNS)
     assert len(df) == fld.n_obs
     assert np.all(np.isfinite(df["mag"]))
+
+
+def _check_measurement_csv(data: bytes, fld) -> None:
+    from varstar.measurements import parse_measurements
+    from varstar.photometry import MEASURE_COLUMNS
+
+    df = pd.read_csv(io.BytesIO(data))
+    assert list(df.columns) == list(MEASURE_COLUMNS)
+    assert len(df) == 2 * len(varstar.read_target(fld.frame_toml).stars)
+    parse_measurements(data, "m.csv", varstar.read_target(fld.frame_toml).star_ids)  # what ingest reads
 
 
 def _check_timings_csv(data: bytes, _field) -> None:
@@ -159,6 +177,7 @@ class Option:
             "period": ["period", str(fld.archive), "--no-store", "--single", "--band", "V",
                        "--min-period", "0.3", "--max-period", "0.6"],
             "timings": ["timings", str(fld.archive), "--no-store"],
+            "measure": ["measure", str(fld.frame_toml), str(fld.frames), "--workers", "1"],
         }[self.command]
         return [*base, self.flag, target]
 
@@ -174,6 +193,7 @@ OPTIONS = (
     Option("period", "--phased", ".png", _check_png),
     Option("timings", "-o", ".png", _check_png),
     Option("timings", "--csv", ".csv", _check_timings_csv),
+    Option("measure", "-o", ".csv", _check_measurement_csv),
 )
 SLOW_COMMANDS = {"colour", "period"}  # about 0.4 s a run each; still run in CI
 
@@ -194,7 +214,7 @@ def _file_options_of_parser() -> set[tuple[str, str]]:
 
 def test_the_matrix_covers_every_output_option_of_the_cli():
     assert {(o.command, o.flag) for o in OPTIONS} == _file_options_of_parser()
-    assert len(OPTIONS) * len(KINDS) == 90  # the combinations the matrix below runs
+    assert len(OPTIONS) * len(KINDS) == 99  # the combinations the matrix below runs
 
 
 # --------------------------------------------------------------------------- the matrix

@@ -64,6 +64,7 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
     files: list[Path] = []
     fit, setups = _coefficients(data, folder, files, say)
     arch, reports = _archive(data, folder, setups, files, say)
+    reports.append(_frames_night(arch.path, data, say))
     summary = arch.summary().to_dict()
     say(text.format_summary(summary))
     colour = _look(arch, folder, files, say)
@@ -100,7 +101,7 @@ def _coefficients(data: Path, folder: Path, files: list[Path], say: Callable[[st
 
 
 def _archive(data: Path, folder: Path, setups: Path, files: list[Path], say: Callable[[str], Any]):
-    """2-3. The target's archive, night by night, then onto the standard system."""
+    """2-3. The target's archive, night by night from the measurement tables, then onto the standard system."""
     from .export import safe_filename
     from .setups import read_setup
     from .target import read_target
@@ -123,6 +124,39 @@ def _archive(data: Path, folder: Path, setups: Path, files: list[Path], say: Cal
     n_done = sum(n["n_transformed"] for n in trans["nights"])
     say(f"transformed {n_done} of {sum(n['n_points'] for n in trans['nights'])} points to the standard system\n")
     return open_archive(archive), reports
+
+
+#: The demo's night of FITS frames: after the six nights of measurement tables (an invented plan).
+FRAMES_NIGHT = "2026-10-14"
+
+
+def _frames_night(archive: Path, data: Path, say: Callable[[str], Any]) -> dict[str, Any]:
+    """3b. A night of FITS frames: varstar measures them (aperture photometry) and stores the night like the others.
+
+    Measuring needs each star's position and the name the camera gives the B
+    filter, so the target description gains them first (``edit-target``: no
+    stored night changes); the frames are drawn by :func:`varstar.simulate.write_frames`
+    for one more night of the same invented scenario.
+    """
+    import dataclasses
+
+    from .simulate import demo_scenario, frame_target_toml, write_frames
+    from .simulate.scenario import NightPlan
+    from .workflows.describe import edit_target
+    from .workflows.night import ingest
+
+    edit = edit_target(archive, text=frame_target_toml(), note="star positions and the B filter's name, to measure frames")
+    say(f"target description {edit.description}: star positions and [photometry.filters] added "
+        f"({text.plural(len(edit.rereduced), 'night')} changed by it)\n")
+    sc = demo_scenario()
+    sc = dataclasses.replace(sc, nights=(*sc.nights, NightPlan(FRAMES_NIGHT, start_delay_h=0.3, max_hours=3.5)))
+    fs = write_frames(data / "frames", scenario=sc, night=FRAMES_NIGHT, n_frames=60)
+    say(f"drew {text.plural(len(fs.paths), 'FITS frame')} of night {FRAMES_NIGHT} into {fs.folder} (invented, "
+        f"with their truth in truth.csv); measuring and ingesting them:\n")
+    res = ingest(archive, [fs.folder])
+    rep = res.nights[0]
+    say(text.format_night_report(rep) + "\n")
+    return rep
 
 
 def _look(arch: Any, folder: Path, files: list[Path], say: Callable[[str], Any]) -> dict[str, Any]:

@@ -340,8 +340,8 @@ def format_descriptions(history: Any) -> str:
 
 def format_measure(res: dict[str, Any]) -> str:
     """What ``measure`` did: frames measured, rows written, frames refused with their reasons."""
-    lines = [f"measured {plural(res['n_frames'] - len(res['refused']), 'frame')} of {res['n_frames']}: "
-             f"{plural(res['n_rows'], 'measurement')} ({res['n_flagged']} flagged) written to {res['output']}"]
+    lines = [f"wrote {res['output']}: {plural(res['n_rows'], 'measurement')} ({res['n_flagged']} flagged) from "
+             f"{res['n_frames'] - len(res['refused'])} of {plural(res['n_frames'], 'frame')} measured"]
     lines += _refused_frames(res["refused"])
     return "\n".join(lines)
 

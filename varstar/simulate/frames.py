@@ -242,6 +242,8 @@ def frame_target_toml(scenario: Scenario | None = None, *, seed: int = POSITION_
             out.append(f"ra = {pos.loc[star_id, 'ra_deg']:.6f}")
             out.append(f"dec = {pos.loc[star_id, 'dec_deg']:.6f}")
             star_id = None
+    # the frames name the B filter "Johnson B" (see write_frames): say which band that is
+    out += ["", "[photometry.filters]", f'"{FILTER_NAMES["B"]}" = "B"']
     return "\n".join(out) + "\n"
 
 
