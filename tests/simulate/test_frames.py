@@ -442,7 +442,10 @@ def test_frame_target_toml_parses_with_positions(frameset, scenario):
         assert (s.role, dict(s.catalog), dict(s.catalog_err)) == (ref.role, dict(ref.catalog), dict(ref.catalog_err))
         assert (s.ra_deg, s.dec_deg) == (pos.loc[s.id, "ra_deg"], pos.loc[s.id, "dec_deg"])
     assert (tgt.target_star.ra_deg, tgt.target_star.dec_deg) == (tgt.ra_deg, tgt.dec_deg)
-    # the text is the shipped file plus the comment and the ra/dec lines, nothing else changed
+    # the text is the shipped file plus the comment, the ra/dec lines and the B filter's name, nothing else changed
+    assert text.endswith('\n[photometry.filters]\n"Johnson B" = "B"\n')
+    assert tgt.extra["photometry"] == {"filters": {"Johnson B": "B"}}
+    text = text[: -len('\n[photometry.filters]\n"Johnson B" = "B"\n')]
     lines = text.splitlines(keepends=True)
     stripped = [ln for i, ln in enumerate(lines)
                 if not (ln.startswith("# Star positions")
