@@ -17,6 +17,7 @@ from pathlib import Path
 from typing import Any
 
 from . import text as fmt
+from .progress import progress_bar
 
 #: One exit code per kind of outcome, the same in every command (README, "Exit codes").  The codes of
 #: the error classes are their ``exit_code`` (varstar/errors.py); this table is what the README documents.
@@ -115,9 +116,10 @@ def cmd_init(args: argparse.Namespace) -> int:
 def cmd_ingest(args: argparse.Namespace) -> int:
     from .workflows.night import ingest
 
-    res = ingest(args.archive, args.files, columns=_parse_columns(args.column), timeout_s=args.wait,
-                 replace=args.replace, accept_unusual=args.accept_unusual, time_format=args.time_format,
-                 time_system=args.time_system, time_point=args.time_point, workers=args.workers)
+    with progress_bar("ingest", as_json=args.json) as progress:
+        res = ingest(args.archive, args.files, columns=_parse_columns(args.column), timeout_s=args.wait,
+                     replace=args.replace, accept_unusual=args.accept_unusual, time_format=args.time_format,
+                     time_system=args.time_system, time_point=args.time_point, workers=args.workers, progress=progress)
     _emit(args, res, fmt.format_ingest(res.to_dict()))
     return 0
 
@@ -132,7 +134,8 @@ def cmd_measure(args: argparse.Namespace) -> int:
 
     target = read_target(args.target)
     check_tables(target)
-    res = measure(target, args.frames, workers=args.workers)
+    with progress_bar("frames", as_json=args.json, unit="frame") as progress:
+        res = measure(target, args.frames, workers=args.workers, progress=progress)
     write_atomic(args.output, measurement_csv(res.table))
     t = res.table
     payload = {"output": str(args.output), "n_frames": int(res.n_frames), "n_rows": int(len(t)),
@@ -253,7 +256,8 @@ def cmd_transform(args: argparse.Namespace) -> int:
         if not 0 < args.max_gap_minutes <= 240:
             raise InputError(f"--max-gap-minutes {args.max_gap_minutes:g}: give minutes in (0, 240]")
         gap = args.max_gap_minutes / 1440.0
-    res = transform_archive(args.archive, coeffs, gap, timeout_s=args.wait)
+    with progress_bar("nights", as_json=args.json, unit="night") as progress:
+        res = transform_archive(args.archive, coeffs, gap, timeout_s=args.wait, progress=progress)
     _emit(args, res, fmt.format_transform(res.to_dict()))
     return 0
 
@@ -329,9 +333,10 @@ def cmd_timings(args: argparse.Namespace) -> int:
     from .plots import save, timings_figure
 
     arch = open_archive(args.archive)
-    d = timings_of_archive(arch, band=args.band, kind=args.kind, night=args.night, note=args.note or "",
-                           store=not args.no_store, update=args.update, include_disagreeing=args.include_disagreeing,
-                           seed=args.seed, timeout_s=args.wait).to_dict()
+    with progress_bar("extrema", as_json=args.json, unit="night") as progress:
+        d = timings_of_archive(arch, band=args.band, kind=args.kind, night=args.night, note=args.note or "",
+                               store=not args.no_store, update=args.update, include_disagreeing=args.include_disagreeing,
+                               seed=args.seed, timeout_s=args.wait, progress=progress).to_dict()
     text = fmt.format_timings(d)
     if args.output and d["timings"]:
         save(timings_figure(d, f"{arch.target.name}: O − C"), args.output)
@@ -446,9 +451,10 @@ def cmd_edit_target(args: argparse.Namespace) -> int:
     from .workflows.describe import edit_target
 
     text = read_toml_text(args.description) if args.description is not None else None
-    res = edit_target(args.archive, text=text, source=str(args.description) if args.description else None,
-                      sets=args.set or (), unsets=args.unset or (), note=args.note or "", dry_run=args.dry_run,
-                      accept_unusual=args.accept_unusual, timeout_s=args.wait)
+    with progress_bar("nights", as_json=args.json, unit="night") as progress:
+        res = edit_target(args.archive, text=text, source=str(args.description) if args.description else None,
+                          sets=args.set or (), unsets=args.unset or (), note=args.note or "", dry_run=args.dry_run,
+                          accept_unusual=args.accept_unusual, timeout_s=args.wait, progress=progress)
     _emit(args, res, fmt.format_description_change(res.to_dict()))
     return 0
 

@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import json
 import math
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -282,6 +282,7 @@ def edit_target(
     dry_run: bool = False,
     accept_unusual: bool = False,
     timeout_s: float = 30.0,
+    progress: Callable[[int, int], None] | None = None,
 ) -> DescriptionResult:
     """Replace or edit an archive's target description and re-reduce the nights it affects, atomically.
 
@@ -361,7 +362,9 @@ def edit_target(
         measured += [s.id for s in new.stars if s.role in ("target", "check") and s.id not in measured]
         stored_pts = _stored_points(arch, [s for s in measured if s in arch.star_ids()])
         active = arch.active_transformation()
-        for row in nights.itertuples():
+        for k, row in enumerate(nights.itertuples()):
+            if progress is not None:
+                progress(k, len(nights))
             label = str(row.night)
             report = arch.night_report(label)
             table = by_night.get(int(row.night_number))

@@ -113,7 +113,8 @@ def _mean_curves(lc: pd.DataFrame, eph: Any) -> dict[str, Any]:
 
 
 def _time_nights(
-    archive: ArchiveStore, eph: Any, *, band: str | None, kind: str | None, night: str | None, seed: int
+    archive: ArchiveStore, eph: Any, *, band: str | None, kind: str | None, night: str | None, seed: int,
+    progress: Any = None,
 ) -> tuple[list[Any], list[Any]]:
     """Timings and refusals of every extremum predicted in each night and band (or one night)."""
     from ..timings import find_timings
@@ -131,7 +132,10 @@ def _time_nights(
     templates = _mean_curves(whole, eph) if eph.kind == "maximum" else {}
     found: list[Any] = []
     refused: list[Any] = []
-    for (n, b), g in lc.groupby(["night", "band"], sort=True):
+    groups = lc.groupby(["night", "band"], sort=True)
+    for k, ((n, b), g) in enumerate(groups):
+        if progress is not None:
+            progress(k, groups.ngroups)
         ts, rs = find_timings(g["bjd_tdb"].to_numpy(), g["mag"].to_numpy(), g["mag_err"].to_numpy(), str(n), str(b),
                               eph, kind, rng=gen, template=templates.get(str(b)))
         found += ts
@@ -213,6 +217,7 @@ def timings_of_archive(
     include_disagreeing: bool = False,
     seed: int = 0,
     timeout_s: float = 30.0,
+    progress: Any = None,
 ) -> TimingsResult:
     """Time every extremum the light curve covers well enough; O−C; ephemeris fit.
 
@@ -238,7 +243,7 @@ def timings_of_archive(
         raise InputError(
             f"{archive.path}: no ephemeris: give one with {_ephemeris_command(archive.path)}"
         )
-    found, refused = _time_nights(archive, eph, band=band, kind=kind, night=night, seed=seed)
+    found, refused = _time_nights(archive, eph, band=band, kind=kind, night=night, seed=seed, progress=progress)
     before = archive.timings()
     have = {(r.night, r.band, r.type, float(r.cycle)) for r in before.itertuples()}
     new = [t for t in found if (t.night, t.band, t.type, float(t.cycle)) not in have]

@@ -6,7 +6,7 @@ itself goes through :meth:`varstar.archive.ArchiveStore.writing`.
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -90,6 +90,7 @@ def ingest(
     time_system: str | None = None,
     time_point: str | None = None,
     workers: int | None = None,
+    progress: Callable[[int, int], None] | None = None,
 ) -> IngestResult:
     """Reduce measurement files and add them to an archive, all or nothing.
 
@@ -123,6 +124,8 @@ def ingest(
     cannot be measured are listed in ``frames_refused`` and in the night's
     warnings, and the others are used.
 
+    ``progress(done, total)`` is told of each frame measured, then of each night reduced.
+
     A regular file is hashed first (read in bounded blocks) and then read and
     checked piece by piece (:func:`varstar.measurements.read_measurement_file`),
     which stops at the first fault; a pipe is read once.
@@ -141,7 +144,7 @@ def ingest(
     parsed = [(p, declared_times(target, t, decl), h) for p, t, h in parsed]
     frames_refused: tuple[dict[str, str], ...] = ()
     if frame_inputs:  # measured frames give times in JD(UTC) at mid-exposure: no declaration applies
-        name, t, sha, measured = measured_table(target, frame_inputs, workers=workers)
+        name, t, sha, measured = measured_table(target, frame_inputs, workers=workers, progress=progress)
         frames_refused = tuple(measured.refused)
         t.attrs["warnings"] = [*t.attrs.get("warnings", []),
                                *(f"frame {r['frame']} not measured: {r['reason']}" for r in frames_refused)]
@@ -168,8 +171,11 @@ def ingest(
             f"from an incomplete file), ingest again with --replace (or take it out with "
             f"'varstar remove-night {arch.path} {lab}' first)"
         )
-    reductions = [reduce_night(target, t, settings, label=lab, accept_unusual=accept_unusual)
-                  for lab, t in sorted(nights.items())]
+    reductions = []
+    for k, (lab, t) in enumerate(sorted(nights.items())):
+        if progress is not None:
+            progress(k, len(nights))
+        reductions.append(reduce_night(target, t, settings, label=lab, accept_unusual=accept_unusual))
     description = arch.description_in_force()
     for red in reductions:
         red.report["description"] = description  # which version of the target description this reduction used

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 from pathlib import Path
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
@@ -199,12 +200,14 @@ def transform_archive(
     max_gap_d: float,
     *,
     timeout_s: float = 30.0,
+    progress: Callable[[int, int], None] | None = None,
 ) -> TransformResult:
     """Apply (new) coefficients to every night of an archive, all or nothing.
 
     The coefficient set is added to the archive's transformation history and
     every light-curve point's standard-system columns are recomputed with it;
-    the untransformed values are never touched.
+    the untransformed values are never touched.  ``progress(done, total)`` is
+    told of each night done.
     """
     from ..archive import open_archive
 
@@ -219,7 +222,9 @@ def transform_archive(
         tid = w.add_transformation(coeffs, max_gap_d)
         new = {k: np.full(len(pts), -1 if k == "transformation" else np.nan) for k in STD_COLUMNS}
         night_of_point = pts["night"].to_numpy()
-        for night_id, label in zip(nights["night"], nights["label"]):
+        for k_night, (night_id, label) in enumerate(zip(nights["night"], nights["label"])):
+            if progress is not None:
+                progress(k_night, len(nights))
             rows = np.flatnonzero(night_of_point == night_id)
             sub = pts.iloc[rows]
             cols, notes = standardise_night(
