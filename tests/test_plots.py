@@ -938,7 +938,7 @@ def test_periodogram_figure_of_the_demo_period(demo):
         for tb, b in boxes[i + 1:]:
             assert not a.overlaps(b), (ta, tb)
     assert ax.get_legend() is None  # every marker carries its note, every level its name
-    assert fig.get_suptitle() == f"{demo.name}: {demo.star}, {res.method}; adopted {period_text(res.period, res.period_err)}"
+    assert fig.get_suptitle() == f"{demo.name}: {demo.star}\n{res.method}; adopted {period_text(res.period, res.period_err)}"
     # the PDM panel: theta on the same grid, the adopted frequency marked, lower is better
     np.testing.assert_allclose(axt.lines[0].get_xdata(), freq)
     np.testing.assert_allclose(axt.lines[0].get_ydata(), res.theta)
@@ -975,7 +975,7 @@ def test_phased_figure_of_the_demo_period(demo):
     assert shown == f"P = {res.period:.7f} ± {res.period_err:.7f} d"
     assert f"({shown}, epoch BJD_TDB {res.epoch:.5f})" in xlabel and "two cycles" in xlabel
     # the title prints the period exactly as the axis does
-    assert fig.get_suptitle() == f"{demo.name}: {demo.star}, {shown}, phase 0 at {res.epoch_kind} light"
+    assert fig.get_suptitle() == f"{demo.name}: {demo.star}\n{shown}, phase 0 at {res.epoch_kind} light"
     assert len(re.findall(r"\d+\.\d+", shown)) == 2 and re.findall(r"P = [\d.]+", fig.get_suptitle()) == re.findall(
         r"P = [\d.]+", xlabel)
     bands = sorted(lc["band"].unique())

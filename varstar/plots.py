@@ -1060,8 +1060,9 @@ def period_figures(stored, title: str) -> tuple["Figure", "Figure"]:
     """The periodogram and the phased light curve of a stored period analysis.
 
     ``stored`` is a :class:`varstar.workflows.periods.StoredPeriod` (its
-    ``result`` and the ``lightcurve`` analysed); ``title`` starts both titles,
-    which end with the adopted period as the phased curve's axis prints it.
+    ``result`` and the ``lightcurve`` analysed); ``title`` is the first line of
+    both titles, whose second line ends with the adopted period as the phased
+    curve's axis prints it (two lines, so that a long target name fits).
     """
     from .period import phased_data, phased_model
 
@@ -1070,11 +1071,11 @@ def period_figures(stored, title: str) -> tuple["Figure", "Figure"]:
     adopted = period_text(res.period, res.period_err)
     periodogram = periodogram_figure(res.freq, res.power, best_frequency=res.aliases.best_frequency,
                                      fap_levels=res.fap_levels, peaks=peaks, theta=res.theta,
-                                     title=f"{title}, {res.method}; adopted {adopted}", ylabel="normalised power",
+                                     title=f"{title}\n{res.method}; adopted {adopted}", ylabel="normalised power",
                                      adopted_period=res.period)
     lc, resid = phased_data(res, stored.lightcurve)
     phased = phased_figure(lc, period=res.period, epoch=res.epoch, model=phased_model(res), residuals=resid,
-                           title=f"{title}, {adopted}, phase 0 at {res.epoch_kind} light", period_err=res.period_err)
+                           title=f"{title}\n{adopted}, phase 0 at {res.epoch_kind} light", period_err=res.period_err)
     return periodogram, phased
 
 
