@@ -22,6 +22,7 @@ _API = {
     "Archive": "varstar.workflows.archive",
     "create_archive": "varstar.workflows.archive",
     "open_archive": "varstar.workflows.archive",
+    "open_fleet": "varstar.fleet",
     "VarstarError": "varstar.errors",
     "InputError": "varstar.errors",
     "ArchiveError": "varstar.errors",

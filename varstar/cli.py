@@ -681,6 +681,10 @@ def build_parser() -> argparse.ArgumentParser:
 
     sp = add("demo", cmd_demo, "run the whole pipeline on the shipped invented demo field")
     sp.add_argument("-o", "--out", type=Path, default=None, help="folder for the results (default: a new folder here)")
+
+    from .fleet.commands import add_fleet_commands
+
+    add_fleet_commands(sub, p, add)
     return p
 
 
