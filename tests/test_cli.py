@@ -662,7 +662,9 @@ def _check_demo_folder(folder: Path, demo_truth) -> dict:
     h5 = [f for f in files if f.endswith(".h5")]
     assert len(h5) == 1
     cloudy = demo_truth["clouds"][0]["night"]
-    assert {"lightcurve.png", "observations.csv", "summary.json", f"night-{cloudy}.png"} <= files
+    assert {"lightcurve.png", "observations.csv", "summary.json", f"night-{cloudy}.png", "archive.html",
+            f"night-{cloudy}.html"} <= files
+    assert b'id="verdict"' in (folder / f"night-{cloudy}.html").read_bytes()
     assert (folder / "lightcurve.png").read_bytes()[:8] == PNG_MAGIC
     assert (folder / f"night-{cloudy}.png").read_bytes()[:8] == PNG_MAGIC
     assert not [f for f in files if f.endswith(".tmp")]

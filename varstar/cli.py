@@ -48,7 +48,7 @@ def _parse_columns(items: Sequence[str] | None) -> dict[str, str] | None:
 
 
 #: Options that name a result file, with their spelling for messages; ``--save`` is read and updated, so regular only.
-_OUTPUT_OPTIONS = (("output", "-o"), ("phased", "--phased"), ("diagram", "--diagram"), ("csv", "--csv"), ("save", "--save"))
+_OUTPUT_OPTIONS = (("output", "-o"), ("html", "--html"), ("phased", "--phased"), ("diagram", "--diagram"), ("csv", "--csv"), ("save", "--save"))
 
 
 def _outputs(args: argparse.Namespace) -> list[tuple[str, Path]]:
@@ -154,11 +154,38 @@ def cmd_summary(args: argparse.Namespace) -> int:
 
 
 def cmd_report(args: argparse.Namespace) -> int:
+    from .errors import InputError
     from .workflows.archive import open_archive
 
-    rep = open_archive(args.archive).night_report(args.night)
-    _emit(args, rep, fmt.format_night_report(rep))
+    if args.html is None:
+        if args.night is None:
+            raise InputError("give a night (YYYY-MM-DD), or --html FILE for a page of the whole archive")
+        if args.open:
+            raise InputError("--open opens the page --html writes; give --html FILE")
+        rep = open_archive(args.archive).night_report(args.night)
+        _emit(args, rep, fmt.format_night_report(rep))
+        return 0
+    from .report_html import archive_page, night_page, write_page
+
+    arch = open_archive(args.archive)
+    page = night_page(arch.path, args.night) if args.night else archive_page(arch.path)
+    write_page(page, args.html)
+    opened = _open_in_browser(args.html) if args.open else None
+    what = f"night {args.night}" if args.night else "the whole archive"
+    payload = {"html": str(args.html), "night": args.night, "bytes": len(page.encode("utf-8")), "opened": opened}
+    note = {True: "; opened in the browser", False: "; no browser could be started here", None: ""}[opened]
+    _emit(args, payload, f"wrote {args.html} (a page of {what}, {payload['bytes'] / 1e6:.1f} MB){note}")
     return 0
+
+
+def _open_in_browser(path: Path) -> bool:
+    """Open a written page in the system browser when there is one; whether one was started."""
+    import webbrowser
+
+    try:
+        return bool(webbrowser.open(Path(path).resolve().as_uri()))
+    except webbrowser.Error:
+        return False
 
 
 def cmd_plot(args: argparse.Namespace) -> int:
@@ -536,9 +563,14 @@ def build_parser() -> argparse.ArgumentParser:
     sp = add("summary", cmd_summary, "overview of an archive: nights, bands, magnitude ranges")
     sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
 
-    sp = add("report", cmd_report, "show the reduction report stored for one night")
+    sp = add("report", cmd_report, "show the reduction report stored for one night, or write a report page (--html)")
     sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")
-    sp.add_argument("night", help="night label (evening date, YYYY-MM-DD)")
+    sp.add_argument("night", nargs="?", default=None,
+                    help="night label (evening date, YYYY-MM-DD); with --html and no night: a page of the whole archive")
+    sp.add_argument("--html", type=Path, metavar="FILE",
+                    help="write a self-contained HTML page (figures inside, nothing fetched; '-' for standard output; "
+                         "default: the text report on the terminal)")
+    sp.add_argument("--open", action="store_true", help="open the page in the system browser when there is one (default: no)")
 
     sp = add("plot", cmd_plot, "plot the light curve (one panel per band; --by-night: one per night)")
     sp.add_argument("archive", type=Path, help="the target's archive (HDF5)")

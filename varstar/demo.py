@@ -70,6 +70,7 @@ def run_demo(out: Path | None = None, echo: Callable[[str], Any] | None = print)
     colour = _look(arch, folder, files, say)
     found = _period(arch, folder, files, say)
     timed = _timings(arch, folder, files, say)
+    _pages(arch, folder, files, say)
     csv = write_csv(lightcurve_table(arch.lightcurve()), folder / "observations.csv")
     result = {"summary": summary, "coefficients": fit.to_dict(), "colour": colour, "period": found.to_dict(),
               "timings": timed}
@@ -203,6 +204,19 @@ def _period(arch: Any, folder: Path, files: list[Path], say: Callable[[str], Any
         save(fig, path)
     files += [pg_png, ph_png]
     return found
+
+
+def _pages(arch: Any, folder: Path, files: list[Path], say: Callable[[str], Any]) -> None:
+    """7. Report pages to look at: the whole archive, and the night with passing clouds (self-contained HTML)."""
+    from .report_html import archive_page, night_page, write_page
+
+    nights = arch.nights()
+    label = str(nights.loc[nights["n_flagged"].idxmax(), "night"])
+    whole, one = folder / "archive.html", folder / f"night-{label}.html"
+    write_page(archive_page(arch.path), whole)
+    write_page(night_page(arch.path, label), one)
+    files += [whole, one]
+    say(f"\nreport pages (open them in any browser; they need no network): {whole} and {one}")
 
 
 def _timings(arch: Any, folder: Path, files: list[Path], say: Callable[[str], Any]) -> dict[str, Any]:
