@@ -53,7 +53,9 @@ def test_timings_land_on_the_truth_and_are_stored_once(capsys, archive, tmp_path
         # truth of the simulation: the maximum of cycle E is at epoch + E P
         n = round((t["bjd_tdb"] - truth["epoch"]) / truth["period"])
         true_t = truth["epoch"] + n * truth["period"]
-        assert abs(t["bjd_tdb"] - true_t) < 4 * t["err"], t
+        # within 3 sigma, the truth's epoch rounded to 1e-4 d (truth.json) counted in; a mean curve that
+        # ignored the nights' shared calibration errors put the V maxima 1.5 min (5 sigma) early
+        assert abs(t["bjd_tdb"] - true_t) < 3 * math.hypot(t["err"], 0.5e-4 / math.sqrt(3)), t
         # the pulsator's maxima are asymmetric: the mean-curve template is the main estimate
         assert t["method"] == "mean-curve template" and t["check_method"] == "kwee-van-woerden"
         assert "demo run" in t["note"]
