@@ -1,4 +1,4 @@
-"""The HTML pages of a night and of an archive (varstar.report_html).
+"""The HTML pages of a night and of an archive (varstar.report).
 
 References: the numbers on the pages are checked against the archive's own
 stored records (the night report, ``comparisons()``, ``periods()``,
@@ -24,7 +24,7 @@ import numpy as np
 import pytest
 
 import varstar
-from varstar import report_html as R
+from varstar import report as R
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification, section 5.2
 

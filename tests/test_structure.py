@@ -25,11 +25,11 @@ CORES = ("varstar.ensemble", "varstar.transform", "varstar.period", "varstar.tim
          "varstar.target", "varstar.measurements", "varstar.almanac", "varstar.photometry")
 #: Shells: files, archives, terminals, figures.
 SHELLS = ("varstar.archive", "varstar.workflows", "varstar.cli", "varstar.demo", "varstar.plots", "varstar.export",
-          "varstar.report_html",
+          "varstar.report",
           "varstar.text", "varstar.fleet")
 #: What lives above the archive (the archive must never import these).
 ABOVE_ARCHIVE = ("varstar.workflows", "varstar.cli", "varstar.demo", "varstar.plots", "varstar.export", "varstar.text",
-                 "varstar.report_html",
+                 "varstar.report",
                  "varstar.fleet")
 #: Archive internals nobody outside the archive package may import.
 ARCHIVE_INTERNALS = ("varstar.archive.tables", "varstar.archive.layout", "varstar.archive.records",

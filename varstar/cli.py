@@ -165,7 +165,7 @@ def cmd_report(args: argparse.Namespace) -> int:
         rep = open_archive(args.archive).night_report(args.night)
         _emit(args, rep, fmt.format_night_report(rep))
         return 0
-    from .report_html import archive_page, night_page, write_page
+    from .report import archive_page, night_page, write_page
 
     arch = open_archive(args.archive)
     page = night_page(arch.path, args.night) if args.night else archive_page(arch.path)

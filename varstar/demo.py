@@ -208,7 +208,7 @@ def _period(arch: Any, folder: Path, files: list[Path], say: Callable[[str], Any
 
 def _pages(arch: Any, folder: Path, files: list[Path], say: Callable[[str], Any]) -> None:
     """7. Report pages to look at: the whole archive, and the night with passing clouds (self-contained HTML)."""
-    from .report_html import archive_page, night_page, write_page
+    from .report import archive_page, night_page, write_page
 
     nights = arch.nights()
     label = str(nights.loc[nights["n_flagged"].idxmax(), "night"])
