@@ -434,11 +434,8 @@ def save(fig: "Figure", path: "str | os.PathLike[str]") -> None:
         stdout on a terminal, or matplotlib fails to draw the figure (the
         message says what failed).
     """
-    import io
     import os
     from pathlib import Path
-
-    import matplotlib
 
     from .errors import OutputError
     from .export import STDOUT, check_output_path, write_atomic
@@ -457,15 +454,29 @@ def save(fig: "Figure", path: "str | os.PathLike[str]") -> None:
         # as compressors do (common practice): binary data is not sent to a terminal
         raise OutputError("-: standard output is a terminal, where a png image prints as garbage; "
                           "redirect it (> file, | program) or give a file name")
-    buf = io.BytesIO()
     try:
-        with matplotlib.rc_context({"text.usetex": False}):  # tick labels are made while drawing
-            fig.savefig(buf, format=fmt, dpi=120)
+        data = render(fig, fmt)
     except (ValueError, RuntimeError, OverflowError) as exc:
         said = " ".join(str(exc).split())
         said = f"{type(exc).__name__}: {said[:300]}{'…' if len(said) > 300 else ''}" if said else type(exc).__name__
         raise OutputError(f"{path}: matplotlib could not draw the figure as {fmt} ({said}); nothing written") from exc
-    write_atomic(path, buf.getvalue())
+    write_atomic(path, data)
+
+
+def render(fig: "Figure", fmt: str = "png", *, dpi: float = 120, metadata: dict | None = None) -> bytes:
+    """The figure drawn in memory as ``fmt`` bytes (the one place figures are drawn; :func:`save` writes them).
+
+    Drawn without TeX (a target's name is shown literally, ``$`` included); ``metadata``
+    goes to matplotlib (e.g. ``{"Software": None}`` leaves the PNG's software chunk out).
+    """
+    import io
+
+    import matplotlib
+
+    buf = io.BytesIO()
+    with matplotlib.rc_context({"text.usetex": False}):  # tick labels are made while drawing
+        fig.savefig(buf, format=fmt, dpi=dpi, metadata=metadata)
+    return buf.getvalue()
 
 
 #: A difference whose median lies further than this from 0 (mag) carries an instrumental zero point:

@@ -4,7 +4,6 @@ how any figure goes into a page: a PNG at a modest resolution, embedded as a ``d
 from __future__ import annotations
 
 import base64
-import io
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -28,12 +27,9 @@ def figure_html(fig: Figure, alt: str, caption: str = "") -> str:
     draws) and without the PNG's "Software" text chunk; a :class:`matplotlib.figure.Figure`
     made without pyplot needs no closing (it is freed with its last reference).
     """
-    import matplotlib
+    from ..plots import render
 
-    buf = io.BytesIO()
-    with matplotlib.rc_context({"text.usetex": False}):
-        fig.savefig(buf, format="png", dpi=FIGURE_DPI, metadata={"Software": None})
-    data = base64.b64encode(buf.getvalue()).decode("ascii")
+    data = base64.b64encode(render(fig, "png", dpi=FIGURE_DPI, metadata={"Software": None})).decode("ascii")
     cap = f"<figcaption>{esc(caption)}</figcaption>" if caption else ""
     return f'<figure><img src="data:image/png;base64,{data}" alt="{esc(alt)}">{cap}</figure>'
 
