@@ -94,7 +94,11 @@ def dask_client(*, n_tasks: int, must_see: Sequence[Path], workers: int | None =
     from distributed import LocalCluster
 
     n = max(1, min(workers or os.cpu_count() or 1, max(n_tasks, 1)))
-    with dask.config.set({"distributed.scheduler.allowed-failures": 0}):
+    # allowed-failures 0: a killed worker fails its task (reported, rerun by the user), never a silent retry;
+    # no statistical profiler on the workers: it samples every task's stack every 10 ms, which on a 2-core
+    # machine running coarse CPU-bound tasks costs a few per cent of the wall time (measured with
+    # benchmarks/bench_fleet.py) and shows nothing a fleet needs
+    with dask.config.set({"distributed.scheduler.allowed-failures": 0, "distributed.worker.profile.enabled": False}):
         cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=":0",
                                silence_logs=logging.CRITICAL)
         try:
