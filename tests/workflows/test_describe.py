@@ -169,8 +169,11 @@ def test_a_dry_run_and_a_refused_change_leave_the_archive_byte_identical(demo_ar
     # a star the archive knows cannot leave the description
     text = varstar.open_archive(path).target.source_text
     without_k1 = text[: text.index('[[stars]]\nid = "K1"')] + text[text.index("[ephemeris]"):]
-    with pytest.raises(InputError, match="K1 are in the archive.*reduction.exclude"):
+    with pytest.raises(InputError, match="K1 are in the archive.*keep its \\[\\[stars\\]\\] table"):
         edit_target(path, text=without_k1)
+    without_c7 = text[: text.index('[[stars]]\nid = "C7"')] + text[text.index('[[stars]]\nid = "K1"'):]
+    with pytest.raises(InputError, match=r"C7 are in the archive.*edit-target .* --set 'reduction.exclude=\[\"C7\"\]'"):
+        edit_target(path, text=without_c7)
     # a description the reader refuses
     with pytest.raises(InputError, match="C1'.V"):
         edit_target(path, sets=["stars.C1.V=bright"])

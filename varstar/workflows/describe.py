@@ -234,15 +234,19 @@ def reduction_inputs(target: Target) -> dict[str, Any]:
 _NOT_COMPARED = ("sources", "warnings", "description", "accepted_unusual")
 
 
+def _blank(v: Any) -> bool:
+    """A report value that says "no number": null or NaN."""
+    return v is None or (isinstance(v, float) and math.isnan(v))
+
+
 def _same(a: Any, b: Any) -> bool:
     """Equal as the JSON of a report is (floats exactly, NaN equal to NaN and to null)."""
     if isinstance(a, Mapping) and isinstance(b, Mapping):
         return a.keys() == b.keys() and all(_same(a[k], b[k]) for k in a)
     if isinstance(a, (list, tuple)) and isinstance(b, (list, tuple)):
         return len(a) == len(b) and all(_same(x, y) for x, y in zip(a, b))
-    nan = lambda v: v is None or (isinstance(v, float) and math.isnan(v))  # noqa: E731
-    if nan(a) or nan(b):
-        return nan(a) and nan(b)
+    if _blank(a) or _blank(b):
+        return _blank(a) and _blank(b)
     return a == b
 
 
@@ -343,8 +347,8 @@ def edit_target(
     if missing:
         raise InputError(
             f"{where}: star(s) {', '.join(missing[:5])} are in the archive (their measurements are stored under "
-            f"their ids) and must stay in the description; to keep one out of every ensemble, use --set "
-            f"'reduction.exclude=[\"{missing[0]}\"]' (or give it role = \"check\"); nothing changed"
+            f"their ids) and must stay in the description; {_keep_out_advice(arch.path, old, missing[0])}; "
+            f"nothing changed"
         )
     changes = describe_changes(old.source_text, new_text)
     if not changes:
@@ -410,6 +414,16 @@ def edit_target(
                 w.append_ephemeris(eph, f"target description {number} [ephemeris]")
     return DescriptionResult(str(arch.path), True, dry_run, number, old_no, tuple(changes), labels,
                              tuple(unchanged), n_timings, tuple(notes))
+
+
+def _keep_out_advice(path: Any, old: Target, sid: str) -> str:
+    """How to stop using a star that cannot leave the description: exclude a comparison star, keep any other."""
+    from .reduce import exclude_command
+
+    role = next((s.role for s in old.stars if s.id == sid), None)
+    if role == "comparison":
+        return f"to keep it out of every ensemble: {exclude_command(path, old, sid)}"
+    return f"keep its [[stars]] table as it is (a {role or 'star'} never enters the ensemble)"
 
 
 def _notes(arch: Any, old: Target, new: Target, labels: Sequence[str], n_timings: int) -> list[str]:
