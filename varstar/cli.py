@@ -129,11 +129,10 @@ def cmd_measure(args: argparse.Namespace) -> int:
 
     from .export import write_atomic
     from .photometry import measurement_csv
-    from .target import check_tables, read_target
+    from .target import read_target
     from .workflows.frames import measure
 
-    target = read_target(args.target)
-    check_tables(target)
+    target = read_target(args.target)  # checks the optional tables too; measure() checks [photometry]
     with progress_bar("frames", as_json=args.json, unit="frame") as progress:
         res = measure(target, args.frames, workers=args.workers, progress=progress)
     write_atomic(args.output, measurement_csv(res.table))
@@ -194,13 +193,10 @@ def cmd_plot(args: argparse.Namespace) -> int:
     from .workflows.archive import open_archive
     from .plots import lightcurve_figure, nights_figure, save
 
-    from .errors import ArchiveError
-
     arch = open_archive(args.archive)
     lc = arch.lightcurve(band=args.band, star=args.star, include_flagged=args.include_flagged)
     if args.night:
-        if args.night not in set(arch.nights()["night"]):
-            raise ArchiveError(f"{arch.path}: no night '{args.night}' (see 'varstar summary')")
+        arch.require_night(args.night)
         lc = lc[lc["night"] == args.night]
     title = f"{arch.target.name} — {lc['star'].iloc[0] if len(lc) else ''}"
     if args.by_night:
@@ -293,15 +289,13 @@ def cmd_colour(args: argparse.Namespace) -> int:
     from .workflows.archive import open_archive
     from .colour import colour_summary, phases
     from .workflows.standard import field_diagram
-    from .errors import ArchiveError
     from .plots import colour_figure, colour_magnitude_figure, save
 
     arch = open_archive(args.archive)
     target = arch.target
     lc = arch.lightcurve(star=args.star)
     if args.night:
-        if args.night not in set(arch.nights()["night"]):
-            raise ArchiveError(f"{arch.path}: no night '{args.night}' (see 'varstar summary')")
+        arch.require_night(args.night)
         lc = lc[lc["night"] == args.night]
     summary = colour_summary(lc, target)
     text = fmt.format_colour(summary)

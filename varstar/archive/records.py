@@ -13,6 +13,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
+from ..errors import ArchiveError
 from . import tables
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -58,6 +59,13 @@ def active_transformation(f: h5py.File) -> tuple[int, Coefficients, float] | Non
         source=str(rows["source"][k]),
     )
     return int(rows["transformation"][k]), coeffs, float(rows["max_gap_d"][k])
+
+
+def no_such_night(path: object, label: str, labels: list[str], *, changing: bool = False) -> ArchiveError:
+    """The one message for a night label the archive does not hold (all its nights when few, else the latest)."""
+    shown = ", ".join(labels) if len(labels) <= 10 else f"latest {', '.join(labels[-5:])} of {len(labels):,}"
+    return ArchiveError(f"{path}: no night '{label}' (nights are evening dates YYYY-MM-DD; {shown or 'none stored'}; "
+                        f"'varstar summary' lists them){'; nothing changed' if changing else ''}")
 
 
 def first_description(toml: str, set_utc: str, software: str) -> dict[str, list]:

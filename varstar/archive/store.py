@@ -179,14 +179,27 @@ class ArchiveStore:
         df.insert(0, "night", df["label"])
         return df
 
-    def night_report(self, label: str) -> dict[str, Any]:
-        """The reduction report stored when the night was ingested."""
+    def night_reports(self) -> dict[str, dict[str, Any]]:
+        """Every night's reduction report, by night label, in one read (for pages and checks over all nights)."""
         with self._open() as f:
             d = tables.read(f, "nights", ["label", "report"])
-        for lab, rep in zip(d["label"], d["report"]):
-            if lab == label:
-                return json.loads(rep)
-        raise ArchiveError(f"{self.path}: no night '{label}' (nights: {', '.join(d['label']) or 'none'})")
+        return {str(lab): json.loads(rep) for lab, rep in zip(d["label"], d["report"])}
+
+    def night_report(self, label: str) -> dict[str, Any]:
+        """The reduction report stored when the night was ingested."""
+        reports = self.night_reports()
+        if label not in reports:
+            raise records.no_such_night(self.path, label, list(reports))
+        return reports[label]
+
+    def require_night(self, label: str, *, changing: bool = False) -> None:
+        """Refuse (ArchiveError, exit 3) a night label the archive does not hold, naming the nights it has.
+
+        ``changing``: the caller was about to change the archive (the message says nothing changed).
+        """
+        labels = [str(x) for x in self.nights()["night"]]
+        if label not in labels:
+            raise records.no_such_night(self.path, label, labels, changing=changing)
 
     def exposures(self) -> pd.DataFrame:
         """Every exposure with its times, airmass, zero point and flags."""

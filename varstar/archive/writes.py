@@ -20,7 +20,6 @@ import numpy as np
 import pandas as pd
 
 from .. import __version__
-from ..errors import ArchiveError
 from ..results import plain, utc_now
 from . import records, tables
 from .integrity import night_digests_of_range
@@ -160,9 +159,7 @@ class ArchiveWriter:
         nights = tables.read(self._f, "nights", ["night", "label", "n_exposures", "n_points", "ingested_utc"])
         hit = np.flatnonzero(nights["label"] == label)
         if hit.size == 0:
-            known = ", ".join(nights["label"].tolist()[-5:]) or "none"
-            raise ArchiveError(f"{self.path}: no night '{label}' (nights are evening dates YYYY-MM-DD; latest: {known}); "
-                             f"nothing changed")
+            raise records.no_such_night(self.path, label, [str(x) for x in nights["label"]], changing=True)
         i = int(hit[0])
         return int(nights["night"][i]), {k: v[i] for k, v in nights.items()}
 

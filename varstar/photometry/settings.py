@@ -245,18 +245,14 @@ def photometry_settings(target: Any) -> PhotometrySettings:
     w = lambda key: f"{top}.{key}"  # noqa: E731 - a short local spelling of the message prefix
     kw: dict[str, Any] = {"source": source}
 
-    if "aperture_fwhm" in table and "aperture_px" in table:
-        raise InputError(f"{top}: give aperture_fwhm or aperture_px, not both")
-    if "aperture_px" in table:
-        kw["aperture_fwhm"], kw["aperture_px"] = None, _positive(table["aperture_px"], w("aperture_px"))
-    elif "aperture_fwhm" in table:
-        kw["aperture_fwhm"] = _positive(table["aperture_fwhm"], w("aperture_fwhm"))
-    if "annulus_fwhm" in table and "annulus_px" in table:
-        raise InputError(f"{top}: give annulus_fwhm or annulus_px, not both")
-    if "annulus_px" in table:
-        kw["annulus_fwhm"], kw["annulus_px"] = None, _radius_pair(table["annulus_px"], w("annulus_px"))
-    elif "annulus_fwhm" in table:
-        kw["annulus_fwhm"] = _radius_pair(table["annulus_fwhm"], w("annulus_fwhm"))
+    for what, parse in (("aperture", _positive), ("annulus", _radius_pair)):  # in FWHM or in pixels, not both
+        fwhm, px = f"{what}_fwhm", f"{what}_px"
+        if fwhm in table and px in table:
+            raise InputError(f"{top}: give {fwhm} or {px}, not both")
+        if px in table:
+            kw[fwhm], kw[px] = None, parse(table[px], w(px))
+        elif fwhm in table:
+            kw[fwhm] = parse(table[fwhm], w(fwhm))
     ap_fwhm, ap_px = kw.get("aperture_fwhm", 1.5), kw.get("aperture_px")
     an_fwhm, an_px = kw.get("annulus_fwhm", (3.0, 5.0)), kw.get("annulus_px")
     if ap_px is not None and an_px is not None and an_px[0] < ap_px:

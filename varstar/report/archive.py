@@ -17,7 +17,8 @@ if TYPE_CHECKING:  # pragma: no cover
     from ..workflows.archive import Archive
 
 from .figures import figure_html
-from .markup import BAND_HEADERS, CHECK_HEADERS, STATUS_WORDS, band_rows, check_rows, document, esc, html_list, html_table, night_id, num, plural, verdict_tag
+from ..text import plural
+from .markup import BAND_HEADERS, CHECK_HEADERS, STATUS_WORDS, band_rows, check_rows, document, esc, html_list, html_table, night_id, num, verdict_tag
 from .verdict import NightVerdict, night_verdict
 
 
@@ -65,7 +66,8 @@ def archive_page(archive_path: str | os.PathLike[str]) -> str:
     tgt = arch.target
     name = tgt.name
     nights = arch.nights()
-    verdicts = {str(n): night_verdict(arch.night_report(str(n))) for n in nights["night"]}
+    reports = arch.night_reports()
+    verdicts = {label: night_verdict(rep) for label, rep in reports.items()}
     parts = [f"<h1>{esc(name)}</h1>",
              f'<p class="note">Archive {esc(Path(str(archive_path)).name)}: {plural(len(nights), "night")}, '
              f"RA {tgt.ra_deg:.5f}°, Dec {tgt.dec_deg:+.5f}°.</p>"]
@@ -95,7 +97,7 @@ def archive_page(archive_path: str | os.PathLike[str]) -> str:
     parts.append(_predict_section(arch, nights))
     parts.append("<h2>Night by night</h2>")
     for r in nights.itertuples():
-        parts.append(_night_summary(arch.night_report(str(r.night)), verdicts[str(r.night)], str(r.software)))
+        parts.append(_night_summary(reports[str(r.night)], verdicts[str(r.night)], str(r.software)))
     parts.append("<details><summary>Target description in force</summary>"
                  f"<pre>{esc(tgt.source_text)}</pre></details>")
     return document(name, "\n".join(parts))

@@ -76,10 +76,6 @@ def num(value: Any, spec: str = ".3f") -> str:
     return "n/a" if not math.isfinite(v) else format(v, spec)
 
 
-def plural(n: int, noun: str) -> str:
-    return f"{n} {noun if n == 1 else noun + 's'}"
-
-
 def html_table(headers: list[str], rows: list[list[Any]], *, table_id: str = "", row_attrs: list[dict[str, str]] | None = None,
            numeric: set[int] | None = None, raw_cols: set[int] | None = None, caption: str = "",
            wide: set[int] | None = None) -> str:

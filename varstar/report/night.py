@@ -15,7 +15,8 @@ if TYPE_CHECKING:  # pragma: no cover
     from ..workflows.archive import Archive
 
 from .figures import comparison_figure, comparison_residuals, figure_html, zero_point_figure
-from .markup import BAND_HEADERS, CHECK_HEADERS, STATUS_WORDS, band_rows, check_rows, document, esc, html_list, html_table, num, plural
+from ..text import plural
+from .markup import BAND_HEADERS, CHECK_HEADERS, STATUS_WORDS, band_rows, check_rows, document, esc, html_list, html_table, num
 from .verdict import night_verdict
 
 

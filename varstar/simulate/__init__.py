@@ -97,6 +97,10 @@ from .synthetic import synthetic_night
 # Not part of the API: the single module this package replaced imported it, and
 
 __all__ = [
+    "FrameSet",
+    "frame_star_positions",
+    "frame_target_toml",
+    "write_frames",
     "AU_LIGHT_S",
     "MEASUREMENT_COLUMNS",
     "POGSON_K",

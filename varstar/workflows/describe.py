@@ -364,13 +364,15 @@ def edit_target(
         by_night = {int(n): g.drop(columns="night").reset_index(drop=True) for n, g in raw.groupby("night", sort=False)}
         measured = [s.id for s in old.stars if s.role in ("target", "check")]
         measured += [s.id for s in new.stars if s.role in ("target", "check") and s.id not in measured]
-        stored_pts = _stored_points(arch, [s for s in measured if s in arch.star_ids()])
+        known = set(arch.star_ids())
+        stored_pts = _stored_points(arch, [s for s in measured if s in known])
+        reports = arch.night_reports()
         active = arch.active_transformation()
         for k, row in enumerate(nights.itertuples()):
             if progress is not None:
                 progress(k, len(nights))
             label = str(row.night)
-            report = arch.night_report(label)
+            report = reports[label]
             table = by_night.get(int(row.night_number))
             if table is None or table.empty:
                 continue

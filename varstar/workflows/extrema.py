@@ -14,7 +14,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from ..errors import ArchiveError, InputError, VarstarError
+from ..errors import InputError, VarstarError
 from ..results import Result, plain
 from ..timings.estimators import MEAN_CURVE_TEMPLATE
 from ..timings.search import DISAGREE_SIGMA
@@ -126,8 +126,7 @@ def _time_nights(
     whole = archive.lightcurve(band, columns=ANALYSIS_COLUMNS)
     lc = whole
     if night is not None:
-        if night not in set(archive.nights()["night"]):
-            raise ArchiveError(f"{archive.path}: no night '{night}' (see 'varstar summary')")
+        archive.require_night(night)
         lc = whole[whole["night"] == night]
     if lc.empty:
         raise InputError(f"{archive.path}: no good light-curve points{' in band ' + band if band else ''}; nothing to time")

@@ -18,17 +18,13 @@ import pandas as pd
 
 from ..target import Target
 
-#: File names that are FITS frames (optionally gzipped), in any case.
-FRAME_SUFFIXES = (".fits", ".fit", ".fts")
-
-
 def is_frame_input(path: str | Path) -> bool:
-    """Whether ``path`` names frames rather than a measurement table: a FITS file or a folder."""
+    """Whether ``path`` names frames rather than a measurement table: a FITS file
+    (:func:`varstar.photometry.files.is_frame_name`) or a folder."""
+    from ..photometry.files import is_frame_name  # here: ingest of tables needs none of photometry
+
     p = Path(path)
-    name = p.name.lower()
-    if name.endswith(".gz"):
-        name = name[:-3]
-    return name.endswith(FRAME_SUFFIXES) or p.is_dir()
+    return p.is_dir() or is_frame_name(p)
 
 
 def check_photometry(target: Target) -> None:

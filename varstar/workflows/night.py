@@ -13,7 +13,7 @@ from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
-from ..errors import ArchiveError, InputError
+from ..errors import InputError
 from ..measurements import file_sha256, is_regular_file, read_measurement_file
 from ..results import Result
 from ..target import time_declaration
@@ -255,10 +255,7 @@ def remove_night(archive_path: str | Path, label: str, *, reason: str = "", time
     from ..archive import open_archive
 
     arch = open_archive(archive_path)
-    known = arch.nights()["night"].tolist()
-    if label not in known:  # said before any writer starts (the writer checks again under its lock)
-        raise ArchiveError(f"{arch.path}: no night '{label}' (nights are evening dates YYYY-MM-DD; latest: "
-                           f"{', '.join(known[-5:]) or 'none'}); nothing changed")
+    arch.require_night(label, changing=True)  # said before any writer starts (the writer checks again under its lock)
     with arch.writing(timeout_s=timeout_s) as w:
         record = w.drop_night(label, reason=reason)
     return RemovalResult(archive=str(arch.path), **{**record, "sources": tuple(record["sources"])})

@@ -264,10 +264,9 @@ def field_diagram(arch: ArchiveStore, night: str) -> tuple[pd.DataFrame, pd.Data
     if active is None:
         raise ArchiveError(f"{arch.path}: no transformation coefficients yet; see 'varstar transform'")
     _, coeffs, gap = active
+    arch.require_night(night)
     comps = arch.comparisons()
     comps = comps[comps["night"] == night]
-    if comps.empty:
-        raise ArchiveError(f"{arch.path}: no night '{night}' (see 'varstar summary')")
     ens = arch.ensembles()
     ens = ens[ens["night"] == night]
     if not {"B", "V"} <= set(ens["band"]):
